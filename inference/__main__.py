@@ -1,0 +1,7 @@
+"""``python -m inference`` runs the ``arrhenia`` command."""
+
+import sys
+
+from .cli import main
+
+sys.exit(main())

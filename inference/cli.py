@@ -1,0 +1,108 @@
+"""The ``arrhenia`` command: parses arguments, calls the API, maps errors to exit codes. Nothing else."""
+
+from __future__ import annotations
+
+import argparse
+import signal
+import sys
+import traceback
+from pathlib import Path
+
+from .errors import ExitCode, StudyError
+
+
+class _Terminated(BaseException):
+    """Raised in the main thread on SIGTERM so staged results are cleaned up like on Ctrl-C."""
+
+
+def _on_sigterm(signum: int, frame: object) -> None:
+    raise _Terminated
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="arrhenia", description="Bayesian inference of chemical kinetics.")
+    commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    def fit_options(command: argparse.ArgumentParser) -> None:
+        command.add_argument("--draws", type=int, help="draws per chain after tuning")
+        command.add_argument("--tune", type=int, help="tuning steps per chain")
+        command.add_argument("--chains", type=int, help="number of chains")
+        command.add_argument("--seed", type=int, help="the one integer seed of the run")
+        command.add_argument("--overwrite", action="store_true", help="replace an existing results folder")
+        command.add_argument("--quiet", action="store_true", help="print nothing but errors")
+
+    demo = commands.add_parser("demo", help="write the bundled demo study and data, then fit it")
+    demo.add_argument("--out", type=Path, default=Path("arrhenia-demo"), help="folder for the demo (default: %(default)s)")
+    fit_options(demo)
+
+    check = commands.add_parser("check", help="validate a study file and its data; samples nothing")
+    check.add_argument("study", type=Path)
+
+    fit = commands.add_parser("fit", help="fit a study and write its results folder")
+    fit.add_argument("study", type=Path)
+    fit.add_argument("--out", type=Path, help="results folder (default: results/<study>)")
+    fit_options(fit)
+    return parser
+
+
+def _fit_and_report(study_path: Path, args: argparse.Namespace, out: Path | None) -> int:
+    from . import pipeline, reporting
+
+    result = pipeline.fit_study(study_path, out=out, draws=args.draws, tune=args.tune, chains=args.chains,
+                                seed=args.seed, overwrite=args.overwrite, quiet=args.quiet,
+                                command_line=" ".join(["arrhenia", *sys.argv[1:]]))
+    if not args.quiet:
+        print(reporting.fit_report(result))
+    return ExitCode.DONE if result.diagnostics.verdict == "pass" else ExitCode.UNTRUSTED
+
+
+def _run(args: argparse.Namespace) -> int:
+    if args.command == "check":
+        from . import reporting
+        from .config import load_study
+
+        study = load_study(args.study)
+        print(reporting.check_report(study))
+        return ExitCode.DONE
+    if args.command == "fit":
+        return _fit_and_report(args.study, args, args.out)
+    if args.command == "demo":
+        from .demo import write_demo
+        from .results import check_target
+
+        out: Path = args.out
+        if out.exists() and not out.is_dir():
+            raise StudyError(str(out), "is a file, not a folder", "choose another --out")
+        results = out / "results"
+        check_target(results, args.overwrite)
+        study_path = write_demo(out)
+        if not args.quiet:
+            print(f"wrote the demo study {study_path} and its data")
+        return _fit_and_report(study_path, args, results)
+    raise AssertionError(args.command)  # argparse allows only the commands above
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point of the console script; returns the exit code."""
+    args = _parser().parse_args(argv)
+    signal.signal(signal.SIGTERM, _on_sigterm)
+    try:
+        return int(_run(args))
+    except StudyError as error:
+        print(f"arrhenia: error: {error}", file=sys.stderr)
+        return ExitCode.BAD_INPUT
+    except KeyboardInterrupt:
+        print("arrhenia: interrupted; no results were written", file=sys.stderr)
+        return ExitCode.INTERRUPTED
+    except _Terminated:
+        print("arrhenia: terminated; no results were written", file=sys.stderr)
+        return ExitCode.TERMINATED
+    except Exception:
+        traceback.print_exc()
+        print("arrhenia: internal error: this is a fault of Arrhenia, not of your input; please report it "
+              "with the lines above", file=sys.stderr)
+        return ExitCode.FAULT
+
+
+if __name__ == "__main__":
+    sys.exit(main())

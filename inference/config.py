@@ -1,0 +1,227 @@
+"""Read a study file, validate it once against ``schema``, and resolve it into an immutable ``Study``."""
+
+from __future__ import annotations
+
+import difflib
+import math
+from pathlib import Path
+from typing import Any, get_args
+
+import pydantic
+import yaml
+
+from . import units
+from .errors import StudyError
+from .schema import StudyFile
+from .study import ArrheniusPrior, ReactionSpec, Study
+
+#: A study file is a few kilobytes; anything much larger is not one.
+MAX_STUDY_BYTES = 1_000_000
+
+#: z for a central 95 % interval of a normal distribution; k_ref's ``factor`` spans that interval.
+Z95 = 1.959963984540054
+
+
+class _NoAliasLoader(yaml.SafeLoader):
+    """``yaml.SafeLoader`` that refuses anchors and aliases: study files never need them, and refusing them
+    makes "billion laughs" inputs fail at once instead of exhausting memory."""
+
+    def compose_node(self, parent: Any, index: Any) -> Any:
+        if self.check_event(yaml.AliasEvent):
+            event = self.peek_event()
+            raise yaml.constructor.ConstructorError(
+                None, None, "anchors and aliases (&name, *name) are not allowed in a study file",
+                event.start_mark)
+        return super().compose_node(parent, index)
+
+
+def read_yaml(path: Path) -> Any:
+    """Read a YAML file safely, turning every reading problem into a one-line ``StudyError``."""
+    where = str(path)
+    if not path.exists():
+        raise StudyError(where, "file not found")
+    if path.is_dir():
+        raise StudyError(where, "is a folder, not a file")
+    try:
+        size = path.stat().st_size
+        if size > MAX_STUDY_BYTES:
+            raise StudyError(where, f"is {size} bytes; a study file is at most {MAX_STUDY_BYTES} bytes")
+        raw = path.read_bytes()
+    except PermissionError:
+        raise StudyError(where, "cannot be read (permission denied)") from None
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise StudyError(where, f"is not UTF-8 text (byte {exc.start})") from None
+    if not text.strip():
+        raise StudyError(where, "is empty")
+    try:
+        return yaml.load(text, Loader=_NoAliasLoader)  # noqa: S506 -- a SafeLoader subclass
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        line = f"line {mark.line + 1}" if mark is not None else "YAML"
+        problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
+        hint = None
+        if "\t" in text and ("tab" in str(exc).lower() or "found character" in str(exc)):
+            hint = "YAML indentation must use spaces, not tabs"
+        raise StudyError(f"{where}: {line}", f"YAML syntax error: {problem}", hint) from None
+
+
+def _lists_to_tuples(value: Any) -> Any:
+    if isinstance(value, list | tuple):
+        return tuple(_lists_to_tuples(v) for v in value)
+    if isinstance(value, dict):
+        return {k: _lists_to_tuples(v) for k, v in value.items()}
+    return value
+
+
+def _key_path(loc: tuple) -> str:
+    text = ""
+    for part in loc:
+        if isinstance(part, int):
+            text += f"[{part}]"
+        else:
+            text += f".{part}" if text else str(part)
+    return text or "(top level)"
+
+
+def _model_at(loc: tuple) -> type[pydantic.BaseModel] | None:
+    """The schema model that holds the last key of ``loc``, for "did you mean" hints."""
+    model: type[pydantic.BaseModel] = StudyFile
+    for part in loc[:-1]:
+        if isinstance(part, int):
+            continue
+        field = model.model_fields.get(str(part))
+        if field is None:
+            return None
+        found = _find_model(field.annotation)
+        if found is None:
+            return None
+        model = found
+    return model
+
+
+def _find_model(annotation: Any) -> type[pydantic.BaseModel] | None:
+    if isinstance(annotation, type) and issubclass(annotation, pydantic.BaseModel):
+        return annotation
+    for arg in get_args(annotation):
+        found = _find_model(arg)
+        if found is not None:
+            return found
+    return None
+
+
+def _format_validation_error(where: str, error: pydantic.ValidationError) -> StudyError:
+    errors = error.errors(include_url=False)
+    first = errors[0]
+    # Union members show up in the location as type tags ('float', 'str'); they mean nothing to a user.
+    loc = tuple(p for p in first["loc"] if not (isinstance(p, str) and p in {"float", "str", "literal['auto']"}))
+    path = _key_path(loc)
+    more = f" (and {len(errors) - 1} more problem{'s' if len(errors) > 2 else ''})" if len(errors) > 1 else ""
+    kind = first["type"]
+    hint = None
+    if kind == "extra_forbidden":
+        model = _model_at(loc)
+        allowed = sorted(model.model_fields) if model else []
+        close = difflib.get_close_matches(str(loc[-1]), allowed, n=1, cutoff=0.6)
+        hint = f"did you mean '{close[0]}'?" if close else (f"known keys: {', '.join(allowed)}" if allowed else None)
+        problem = "unknown key"
+    elif kind == "missing":
+        problem = "required key is missing"
+    elif kind == "value_error":
+        problem = str(first["msg"]).removeprefix("Value error, ")
+    else:
+        given = first.get("input")
+        shown = "" if isinstance(given, dict | tuple) else f" (got {given!r})"
+        problem = f"{first['msg']}{shown}"
+    return StudyError(f"{where}: {path}", problem + more, hint)
+
+
+def _parse_reference_temperature(value: float | str, unit: str, where: str) -> float | None:
+    if value == "auto":
+        return None
+    if isinstance(value, float):
+        return float(units.to_kelvin(value, unit, where)[0])
+    parts = value.split(maxsplit=1)
+    try:
+        number = float(parts[0])
+    except ValueError:
+        raise StudyError(where, f"'{value}' is neither 'auto' nor a temperature",
+                         "write e.g. auto, 55, or '328.15 K'") from None
+    return float(units.to_kelvin(number, parts[1] if len(parts) > 1 else unit, where)[0])
+
+
+def _resolve_paths(file: StudyFile, base: Path, where: str) -> tuple[tuple[str, Path], ...]:
+    resolved = []
+    for role in ("rate_constants", "runs", "measurements"):
+        name = getattr(file.data, role)
+        if name is None:
+            continue
+        path = Path(name)
+        path = (path if path.is_absolute() else base / path).resolve()
+        resolved.append((role, path))
+    return tuple(resolved)
+
+
+def _resolve_reactions(file: StudyFile, where: str) -> tuple[ReactionSpec, ...]:
+    specs = []
+    for index, reaction in enumerate(file.reactions):
+        key = f"{where}: reactions[{index}]"
+        ea_mean = float(units.energy_to_joule_per_mol(reaction.Ea.mean, file.units.energy, f"{key}.Ea"))
+        ea_sd = float(units.energy_to_joule_per_mol(reaction.Ea.sd, file.units.energy, f"{key}.Ea"))
+        prior = ArrheniusPrior(
+            ln_k_ref_mean=math.log(reaction.k_ref.median),
+            ln_k_ref_sd=math.log(reaction.k_ref.factor) / Z95,
+            ea_mean=ea_mean,
+            ea_sd=ea_sd,
+        )
+        specs.append(ReactionSpec(reaction.name, reaction.equation, reaction.rate_law, prior))
+    return tuple(specs)
+
+
+def _check_units(file: StudyFile, where: str) -> None:
+    given = file.units
+    units.parse_unit(given.temperature, "temperature", f"{where}: units.temperature")
+    units.parse_unit(given.energy, "energy", f"{where}: units.energy")
+    for kind in ("time", "concentration", "rate_constant"):
+        text = getattr(given, kind)
+        if text is not None:
+            units.parse_unit(text, kind, f"{where}: units.{kind}")
+    if file.data.rate_constants is not None and given.rate_constant is None:
+        raise StudyError(f"{where}: units.rate_constant", "required key is missing",
+                         "rate-constant data need the unit of k, e.g. 1/s or L/(mol*s)")
+
+
+def load_study(path: str | Path) -> Study:
+    """Read, validate and resolve a study file. Raises ``StudyError`` with a one-line message on any mistake."""
+    path = Path(path)
+    where = str(path)
+    content = read_yaml(path)
+    if not isinstance(content, dict):
+        raise StudyError(where, "a study file is a mapping of keys (study:, units:, data:, reactions:, ...)")
+    try:
+        file = StudyFile.model_validate(_lists_to_tuples(content))
+    except pydantic.ValidationError as exc:
+        raise _format_validation_error(where, exc) from None
+    _check_units(file, where)
+    if file.data.runs is not None:
+        raise StudyError(f"{where}: data.runs", "concentration-time data are not supported yet",
+                         "fit measured rate constants with data.rate_constants")
+    reference = _parse_reference_temperature(file.reference_temperature, file.units.temperature,
+                                             f"{where}: reference_temperature")
+    k_at = tuple(float(t) for t in units.to_kelvin(file.report.k_at, file.units.temperature,
+                                                     f"{where}: report.k_at")) if file.report.k_at else ()
+    return Study(
+        name=file.study,
+        title=file.title,
+        path=path.resolve(),
+        mode="rate_constants" if file.data.rate_constants is not None else "network",
+        units=file.units,
+        data_files=_resolve_paths(file, path.resolve().parent, where),
+        reactions=_resolve_reactions(file, where),
+        reference_temperature_K=reference,
+        noise=file.noise,
+        sampling=file.sampling,
+        k_at_K=k_at,
+        canonical=file.model_dump(mode="json"),
+    )

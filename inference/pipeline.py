@@ -1,0 +1,208 @@
+"""The steps of a fit, in order: the Python API behind ``arrhenia fit`` (and usable from a notebook).
+
+    >>> from inference import load_study, fit_study
+    >>> result = fit_study(load_study("configs/example_rate_constants.yaml"), out="results/example")
+    >>> result.summary          # pandas DataFrame, see README for the columns
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import platform
+import sys
+import time
+from dataclasses import dataclass
+from importlib import metadata
+from pathlib import Path
+
+import arviz as az
+import numpy as np
+import pandas as pd
+import yaml
+
+from . import __version__, plots
+from .arrhenius import auto_reference_temperature
+from .config import load_study
+from .data import RateConstantData, read_rate_constants
+from .diagnostics import Diagnostics, assess
+from .model import build_rate_constant_model
+from .results import StagedFolder, check_target, sha256_file, sha256_json
+from .sampling import sample_posterior
+from .study import Study
+from .summaries import (
+    classical_table,
+    correlation_table,
+    derived_quantities,
+    rate_constant_fit_checks,
+    summary_table,
+)
+
+PACKAGES = ("arrhenia", "pymc", "pytensor", "arviz", "numpy", "scipy", "pandas", "xarray", "pydantic", "pint",
+            "matplotlib")
+
+
+class Steps:
+    """Prints one line per pipeline step with its wall time, unless quiet."""
+
+    def __init__(self, quiet: bool) -> None:
+        self.quiet = quiet
+        self.started = time.perf_counter()
+        self.last = self.started
+        self.timings: dict[str, float] = {}
+
+    def done(self, step: str, detail: str = "") -> None:
+        now = time.perf_counter()
+        self.timings[step] = round(now - self.last, 3)
+        self.last = now
+        if not self.quiet:
+            print(f"[{now - self.started:7.1f} s] {step}{': ' + detail if detail else ''}", flush=True)
+
+    def say(self, text: str) -> None:
+        if not self.quiet:
+            print(text, flush=True)
+
+
+@dataclass(frozen=True)
+class FitResult:
+    """Everything a fit produced; the same content as its results folder."""
+
+    study: Study
+    results_dir: Path
+    reference_temperature_K: float
+    diagnostics: Diagnostics
+    summary: pd.DataFrame
+    classical: pd.DataFrame
+    correlations: pd.DataFrame
+    fit_checks: pd.DataFrame
+    idata: az.InferenceData
+
+
+def default_results_dir(study: Study) -> Path:
+    """``results/<study>/`` below the current folder."""
+    return Path("results") / study.name
+
+
+def resolved_study_yaml(study: Study, temperature_ref: float, sampling: dict) -> str:
+    """The study as run: defaults filled in, data paths absolute, T_ref and sampling settings fixed."""
+    resolved = json.loads(json.dumps(study.canonical))
+    resolved["data"] = {role: str(path) for role, path in study.data_files}
+    resolved["reference_temperature"] = f"{temperature_ref!r} K"
+    resolved["sampling"] = sampling
+    header = f"# Resolved by arrhenia {__version__} from {study.path}\n"
+    return header + yaml.safe_dump(resolved, sort_keys=False, allow_unicode=True)
+
+
+def _versions() -> dict[str, str]:
+    found = {"python": platform.python_version()}
+    for name in PACKAGES:
+        try:
+            found[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            found[name] = "not installed"
+    return found
+
+
+def fit_study(
+    study: Study | str | Path,
+    *,
+    out: str | Path | None = None,
+    draws: int | None = None,
+    tune: int | None = None,
+    chains: int | None = None,
+    seed: int | None = None,
+    overwrite: bool = False,
+    quiet: bool = False,
+    command_line: str | None = None,
+) -> FitResult:
+    """Fit a study end to end and write its results folder atomically.
+
+    Arguments left as None take the study file's ``sampling`` values. Raises ``StudyError`` for any mistake
+    in the input before anything is sampled or written.
+    """
+    steps = Steps(quiet)
+    if not isinstance(study, Study):
+        study = load_study(study)
+    overrides = {k: v for k, v in {"draws": draws, "tune": tune, "chains": chains, "seed": seed}.items()
+                 if v is not None}
+    sampling = study.sampling.model_validate({**study.sampling.model_dump(), **overrides})
+    target = Path(out) if out is not None else default_results_dir(study)
+    check_target(target, overwrite)
+    data = read_rate_constants(study)
+    temperature_ref = study.reference_temperature_K or auto_reference_temperature(data.temperature_K)
+    steps.done("validated study and data",
+               f"{len(study.reactions)} reaction(s), {data.k.size} rate constants, T_ref = {temperature_ref:.2f} K")
+
+    model = build_rate_constant_model(study, data, temperature_ref)
+    steps.done("built model")
+    idata = sample_posterior(model, sampling, progress=not quiet)
+    steps.done("sampled", f"{sampling.chains} chains x {sampling.draws} draws after {sampling.tune} tuning")
+
+    var_names = ["ln_k_ref", "Ea"] + (["sigma"] if "sigma" in idata.posterior else [])
+    diagnostics = assess(idata, var_names)
+    quantities = derived_quantities(study, idata.posterior, temperature_ref)
+    summary = summary_table(quantities)
+    classical = classical_table(study, data)
+    correlations = correlation_table(study, idata.posterior, temperature_ref)
+    fit_checks = rate_constant_fit_checks(study, data, idata)
+    steps.done("summarised", f"verdict {diagnostics.verdict}")
+
+    result = FitResult(study, target, temperature_ref, diagnostics, summary, classical, correlations, fit_checks,
+                       idata)
+    _write(result, data, sampling.model_dump(), quantities, overwrite, steps, command_line)
+    steps.done("wrote results", str(target))
+    return result
+
+
+def _pair_columns(quantities: dict) -> dict[str, np.ndarray]:
+    """ln k_ref and Ea of every reaction, the parameters the sampler sees (up to an affine map)."""
+    columns = {}
+    for name, (_, draws) in quantities.items():
+        if name.startswith("k_ref["):
+            columns[f"ln {name}"] = np.log(draws.values.ravel())
+        elif name.startswith("Ea["):
+            columns[name] = draws.values.ravel()
+    return columns
+
+
+def _write(result: FitResult, data: RateConstantData, sampling: dict, quantities: dict, overwrite: bool,
+           steps: Steps, command_line: str | None) -> None:
+    study, idata = result.study, result.idata
+    attrs = {
+        "arrhenia_version": __version__,
+        "study": study.name,
+        "reference_temperature_K": result.reference_temperature_K,
+        "units": study.units.model_dump(),
+        "posterior_units": {"ln_k_ref": f"ln({study.units.rate_constant})", "Ea": "J/mol"},
+        "seed": sampling["seed"],
+    }
+    for group in idata.groups():
+        idata[group].attrs["arrhenia"] = json.dumps(attrs, sort_keys=True)
+    coverage = float(result.fit_checks["inside_90"].mean())
+    manifest = {
+        "arrhenia_version": __version__,
+        "study": study.name,
+        "created": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
+        "command_line": command_line or " ".join(sys.argv),
+        "seed": sampling["seed"],
+        "sampling": sampling,
+        "reference_temperature_K": result.reference_temperature_K,
+        "study_file": {"path": str(study.path), "sha256": sha256_file(study.path)},
+        "config_sha256": sha256_json(study.canonical),
+        "data": {role: {"path": str(path), "sha256": sha256_file(path)} for role, path in study.data_files},
+        "versions": _versions(),
+        "timings_s": steps.timings,
+        "predictive_coverage_90": coverage,
+    }
+    with StagedFolder(result.results_dir, overwrite) as folder:
+        folder.write_csv("summary.csv", result.summary)
+        folder.write_csv("classical.csv", result.classical)
+        folder.write_csv("correlations.csv", result.correlations)
+        folder.write_csv("fit_checks.csv", result.fit_checks)
+        folder.write_json("diagnostics.json", {**result.diagnostics.to_dict(), "predictive_coverage_90": coverage})
+        idata.to_netcdf(str(folder.path("posterior.nc")))
+        plots.arrhenius_plot(study, data, idata.posterior, result.reference_temperature_K,
+                             folder.path("figures/arrhenius.png"))
+        plots.pair_plot(_pair_columns(quantities), folder.path("figures/pair.png"), seed=sampling["seed"])
+        folder.write_text("study.yaml", resolved_study_yaml(study, result.reference_temperature_K, sampling))
+        folder.write_json("manifest.json", manifest)

@@ -1,0 +1,65 @@
+"""The resolved study: what a validated study file means, in internal units, immutable.
+
+Temperatures are kelvin and energies J/mol; rate constants, times and concentrations stay in the units the
+study declares (``Study.units``). Nothing here imports PyMC.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Literal
+
+from .schema import Noise, Sampling, Units
+
+Mode = Literal["rate_constants", "network"]
+
+
+@dataclass(frozen=True)
+class ArrheniusPrior:
+    """Priors of one reaction's Arrhenius parameters about the reference temperature.
+
+    ln k_ref ~ Normal(ln_k_ref_mean, ln_k_ref_sd), k_ref in the study's rate-constant unit;
+    Ea ~ Normal(ea_mean, ea_sd) truncated to Ea > 0, in J/mol.
+    """
+
+    ln_k_ref_mean: float
+    ln_k_ref_sd: float
+    ea_mean: float
+    ea_sd: float
+
+
+@dataclass(frozen=True)
+class ReactionSpec:
+    """One reaction of the study."""
+
+    name: str
+    equation: str | None
+    rate_law: str
+    prior: ArrheniusPrior
+
+
+@dataclass(frozen=True)
+class Study:
+    """A validated study. Build it with ``inference.config.load_study``; never mutate it."""
+
+    name: str
+    title: str
+    path: Path
+    mode: Mode
+    units: Units
+    data_files: tuple[tuple[str, Path], ...]
+    reactions: tuple[ReactionSpec, ...]
+    reference_temperature_K: float | None
+    noise: Noise
+    sampling: Sampling
+    k_at_K: tuple[float, ...]
+    canonical: dict
+
+    @property
+    def reaction_names(self) -> tuple[str, ...]:
+        return tuple(r.name for r in self.reactions)
+
+    def data_file(self, role: str) -> Path:
+        """Absolute path of the data file with this role (``rate_constants``, ``runs``, ``measurements``)."""
+        return dict(self.data_files)[role]

@@ -1,0 +1,143 @@
+"""Posterior summaries, derived quantities, the classical fits beside them, and predictive checks.
+
+Every table returned here is a pandas DataFrame whose columns are documented in README ("The results folder").
+Values are in the study's units: energies in ``units.energy``, rate constants and A in ``units.rate_constant``,
+temperatures in ``units.temperature``.
+"""
+
+from __future__ import annotations
+
+import arviz as az
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from . import units
+from .arrhenius import linearised_fit, ln_pre_exponential, ln_rate_constant, two_point_estimate
+from .data import RateConstantData
+from .study import Study
+
+SUMMARY_COLUMNS = ["parameter", "unit", "mean", "sd", "median", "q05", "q95", "ess_bulk", "ess_tail", "r_hat"]
+
+
+def temperature_label(kelvin: float, unit: str) -> str:
+    """A temperature in the study's unit, for names like ``k[step, 80 degC]``."""
+    return f"{float(units.kelvin_to(kelvin, unit)):g} {unit}"
+
+
+def derived_quantities(study: Study, posterior: xr.Dataset, temperature_ref: float) -> dict[str, tuple[str, xr.DataArray]]:
+    """Draws of every reported quantity, by name, with its unit: k_ref, Ea, A, k at named temperatures, sigma."""
+    energy, k_unit = study.units.energy, study.units.rate_constant or ""
+    quantities: dict[str, tuple[str, xr.DataArray]] = {}
+    for name in study.reaction_names:
+        ln_k_ref = posterior["ln_k_ref"].sel(reaction=name, drop=True)
+        ea = posterior["Ea"].sel(reaction=name, drop=True)
+        quantities[f"k_ref[{name}]"] = (k_unit, np.exp(ln_k_ref))
+        quantities[f"Ea[{name}]"] = (energy, units.joule_per_mol_to(ea, energy))
+        quantities[f"A[{name}]"] = (k_unit, np.exp(ln_pre_exponential(ln_k_ref, ea, temperature_ref)))
+        for kelvin in study.k_at_K:
+            label = f"k[{name}, {temperature_label(kelvin, study.units.temperature)}]"
+            quantities[label] = (k_unit, np.exp(ln_rate_constant(kelvin, ln_k_ref, ea, temperature_ref)))
+    if "sigma" in posterior:
+        quantities["sigma"] = ("ln units" if study.mode == "rate_constants" else "", posterior["sigma"])
+    return quantities
+
+
+def summary_table(quantities: dict[str, tuple[str, xr.DataArray]]) -> pd.DataFrame:
+    """One row per quantity: parameter, unit, mean, sd, median, q05, q95, ess_bulk, ess_tail, r_hat."""
+    dataset = xr.Dataset({name: draws for name, (_, draws) in quantities.items()})
+    ess_bulk = az.ess(dataset, method="bulk")
+    ess_tail = az.ess(dataset, method="tail")
+    r_hat = az.rhat(dataset)
+    rows = []
+    for name, (unit, draws) in quantities.items():
+        values = draws.values.ravel()
+        rows.append({
+            "parameter": name,
+            "unit": unit,
+            "mean": values.mean(),
+            "sd": values.std(ddof=1),
+            "median": np.median(values),
+            "q05": np.quantile(values, 0.05),
+            "q95": np.quantile(values, 0.95),
+            "ess_bulk": float(ess_bulk[name]),
+            "ess_tail": float(ess_tail[name]),
+            "r_hat": float(r_hat[name]),
+        })
+    return pd.DataFrame(rows, columns=SUMMARY_COLUMNS)
+
+
+def correlation_table(study: Study, posterior: xr.Dataset, temperature_ref: float) -> pd.DataFrame:
+    """Posterior correlation of ln A with Ea next to that of ln k_ref with Ea, per reaction.
+
+    The first is typically close to 1: that is why Arrhenia samples ln k_ref at T_ref rather than ln A.
+    """
+    rows = []
+    for name in study.reaction_names:
+        ln_k_ref = posterior["ln_k_ref"].sel(reaction=name).values.ravel()
+        ea = posterior["Ea"].sel(reaction=name).values.ravel()
+        ln_a = ln_pre_exponential(ln_k_ref, ea, temperature_ref)
+        rows.append({
+            "reaction": name,
+            "corr_ln_A_Ea": float(np.corrcoef(ln_a, ea)[0, 1]),
+            "corr_ln_k_ref_Ea": float(np.corrcoef(ln_k_ref, ea)[0, 1]),
+        })
+    return pd.DataFrame(rows)
+
+
+def classical_table(study: Study, data: RateConstantData) -> pd.DataFrame:
+    """The linearised least-squares fit of ln k on 1/T and the two-point estimate, per reaction.
+
+    Columns: reaction, method (``linearised`` or ``two_point``), quantity, unit, value, se, ci95_low, ci95_high.
+    """
+    energy, k_unit = study.units.energy, study.units.rate_constant or ""
+
+    def to_energy(value: float) -> float:
+        return float(units.joule_per_mol_to(value, energy))
+
+    rows = []
+    for index, name in enumerate(study.reaction_names):
+        rows_of = data.rows_of(index)
+        temperature, k = data.temperature_K[rows_of], data.k[rows_of]
+        fit = linearised_fit(temperature, k)
+        ea_low, ea_high = fit.ea_ci
+        a_low, a_high = fit.a_ci
+        s_low, s_high = fit.slope_ci
+        i_low, i_high = fit.intercept_ci
+        rows += [
+            (name, "linearised", "slope", "K", fit.slope, fit.se_slope, s_low, s_high),
+            (name, "linearised", "intercept", f"ln({k_unit})", fit.intercept, fit.se_intercept, i_low, i_high),
+            (name, "linearised", "Ea", energy, to_energy(fit.ea), to_energy(fit.se_ea), to_energy(ea_low),
+             to_energy(ea_high)),
+            (name, "linearised", "A", k_unit, fit.a, np.nan, a_low, a_high),
+            (name, "linearised", "r_squared", "", fit.r_squared, np.nan, np.nan, np.nan),
+            (name, "linearised", "points", "", float(fit.n), np.nan, np.nan, np.nan),
+        ]
+        pair = two_point_estimate(temperature, k)
+        rows += [
+            (name, "two_point", "Ea", energy, to_energy(pair.ea), np.nan, np.nan, np.nan),
+            (name, "two_point", "A", k_unit, pair.a, np.nan, np.nan, np.nan),
+        ]
+    return pd.DataFrame(rows, columns=["reaction", "method", "quantity", "unit", "value", "se", "ci95_low",
+                                       "ci95_high"])
+
+
+def rate_constant_fit_checks(study: Study, data: RateConstantData, idata: az.InferenceData) -> pd.DataFrame:
+    """Per measurement: observed k, posterior predictive median and 90 % interval of k, and whether it is inside.
+
+    Columns: measurement, line, reaction, temperature, observed, median, q05, q95, inside_90.
+    """
+    predicted = np.exp(idata.posterior_predictive["observation"].stack(sample=("chain", "draw")).values)
+    q05, median, q95 = np.quantile(predicted, [0.05, 0.5, 0.95], axis=-1)
+    names = np.array(study.reaction_names)
+    return pd.DataFrame({
+        "measurement": np.arange(data.k.size),
+        "line": data.line,
+        "reaction": names[data.reaction_index],
+        "temperature": units.kelvin_to(data.temperature_K, study.units.temperature),
+        "observed": data.k,
+        "median": median,
+        "q05": q05,
+        "q95": q95,
+        "inside_90": (data.k >= q05) & (data.k <= q95),
+    })
