@@ -10,8 +10,8 @@ from typing import Any
 
 __version__ = "0.1.0"
 
-from .config import load_study  # noqa: E402
-from .errors import ExitCode, StudyError  # noqa: E402
+from .config import load_study
+from .errors import ExitCode, StudyError
 
 __all__ = ["ExitCode", "FitResult", "StudyError", "__version__", "fit_study", "load_study"]
 

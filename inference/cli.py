@@ -32,7 +32,9 @@ def _parser() -> argparse.ArgumentParser:
         command.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
     demo = commands.add_parser("demo", help="write the bundled demo study and data, then fit it")
-    demo.add_argument("--out", type=Path, default=Path("arrhenia-demo"), help="folder for the demo (default: %(default)s)")
+    demo.add_argument(
+        "--out", type=Path, default=Path("arrhenia-demo"), help="folder for the demo (default: %(default)s)"
+    )
     fit_options(demo)
 
     check = commands.add_parser("check", help="validate a study file and its data; samples nothing")
@@ -48,9 +50,17 @@ def _parser() -> argparse.ArgumentParser:
 def _fit_and_report(study_path: Path, args: argparse.Namespace, out: Path | None) -> int:
     from . import pipeline, reporting
 
-    result = pipeline.fit_study(study_path, out=out, draws=args.draws, tune=args.tune, chains=args.chains,
-                                seed=args.seed, overwrite=args.overwrite, quiet=args.quiet,
-                                command_line=" ".join(["arrhenia", *sys.argv[1:]]))
+    result = pipeline.fit_study(
+        study_path,
+        out=out,
+        draws=args.draws,
+        tune=args.tune,
+        chains=args.chains,
+        seed=args.seed,
+        overwrite=args.overwrite,
+        quiet=args.quiet,
+        command_line=" ".join(["arrhenia", *sys.argv[1:]]),
+    )
     if not args.quiet:
         print(reporting.fit_report(result))
     return ExitCode.DONE if result.diagnostics.verdict == "pass" else ExitCode.UNTRUSTED
@@ -99,8 +109,11 @@ def main(argv: list[str] | None = None) -> int:
         return ExitCode.TERMINATED
     except Exception:
         traceback.print_exc()
-        print("arrhenia: internal error: this is a fault of Arrhenia, not of your input; please report it "
-              "with the lines above", file=sys.stderr)
+        print(
+            "arrhenia: internal error: this is a fault of Arrhenia, not of your input; please report it "
+            "with the lines above",
+            file=sys.stderr,
+        )
         return ExitCode.FAULT
 
 

@@ -30,8 +30,8 @@ class _NoAliasLoader(yaml.SafeLoader):
         if self.check_event(yaml.AliasEvent):
             event = self.peek_event()
             raise yaml.constructor.ConstructorError(
-                None, None, "anchors and aliases (&name, *name) are not allowed in a study file",
-                event.start_mark)
+                None, None, "anchors and aliases (&name, *name) are not allowed in a study file", event.start_mark
+            )
         return super().compose_node(parent, index)
 
 
@@ -56,7 +56,7 @@ def read_yaml(path: Path) -> Any:
     if not text.strip():
         raise StudyError(where, "is empty")
     try:
-        return yaml.load(text, Loader=_NoAliasLoader)  # noqa: S506 -- a SafeLoader subclass
+        return yaml.load(text, Loader=_NoAliasLoader)
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         line = f"line {mark.line + 1}" if mark is not None else "YAML"
@@ -112,7 +112,8 @@ def _find_model(annotation: Any) -> type[pydantic.BaseModel] | None:
 
 
 def _format_validation_error(where: str, error: pydantic.ValidationError) -> StudyError:
-    errors = error.errors(include_url=False)
+    # A misspelt key is also reported as a missing one; the unknown key is the one to name.
+    errors = sorted(error.errors(include_url=False), key=lambda e: e["type"] != "extra_forbidden")
     first = errors[0]
     # Union members show up in the location as type tags ('float', 'str'); they mean nothing to a user.
     loc = tuple(p for p in first["loc"] if not (isinstance(p, str) and p in {"float", "str", "literal['auto']"}))
@@ -146,8 +147,9 @@ def _parse_reference_temperature(value: float | str, unit: str, where: str) -> f
     try:
         number = float(parts[0])
     except ValueError:
-        raise StudyError(where, f"'{value}' is neither 'auto' nor a temperature",
-                         "write e.g. auto, 55, or '328.15 K'") from None
+        raise StudyError(
+            where, f"'{value}' is neither 'auto' nor a temperature", "write e.g. auto, 55, or '328.15 K'"
+        ) from None
     return float(units.to_kelvin(number, parts[1] if len(parts) > 1 else unit, where)[0])
 
 
@@ -188,8 +190,11 @@ def _check_units(file: StudyFile, where: str) -> None:
         if text is not None:
             units.parse_unit(text, kind, f"{where}: units.{kind}")
     if file.data.rate_constants is not None and given.rate_constant is None:
-        raise StudyError(f"{where}: units.rate_constant", "required key is missing",
-                         "rate-constant data need the unit of k, e.g. 1/s or L/(mol*s)")
+        raise StudyError(
+            f"{where}: units.rate_constant",
+            "required key is missing",
+            "rate-constant data need the unit of k, e.g. 1/s or L/(mol*s)",
+        )
 
 
 def load_study(path: str | Path) -> Study:
@@ -205,12 +210,25 @@ def load_study(path: str | Path) -> Study:
         raise _format_validation_error(where, exc) from None
     _check_units(file, where)
     if file.data.runs is not None:
-        raise StudyError(f"{where}: data.runs", "concentration-time data are not supported yet",
-                         "fit measured rate constants with data.rate_constants")
-    reference = _parse_reference_temperature(file.reference_temperature, file.units.temperature,
-                                             f"{where}: reference_temperature")
-    k_at = tuple(float(t) for t in units.to_kelvin(file.report.k_at, file.units.temperature,
-                                                     f"{where}: report.k_at")) if file.report.k_at else ()
+        raise StudyError(
+            f"{where}: data.runs",
+            "concentration-time data are not supported yet",
+            "fit measured rate constants with data.rate_constants",
+        )
+    if file.data.rate_constants is not None and file.noise.model == "absolute":
+        raise StudyError(
+            f"{where}: noise.model",
+            "'absolute' noise is for concentration data",
+            "rate constants are fitted on ln k: use 'proportional' or 'robust'",
+        )
+    reference = _parse_reference_temperature(
+        file.reference_temperature, file.units.temperature, f"{where}: reference_temperature"
+    )
+    k_at = (
+        tuple(float(t) for t in units.to_kelvin(file.report.k_at, file.units.temperature, f"{where}: report.k_at"))
+        if file.report.k_at
+        else ()
+    )
     return Study(
         name=file.study,
         title=file.title,

@@ -60,8 +60,9 @@ def read_table(path: Path, required: set[str], optional: set[str] = frozenset())
     return frame
 
 
-def numeric_column(frame: pd.DataFrame, column: str, where: str, *, positive: bool = False,
-                   allow_blank: bool = False) -> np.ndarray:
+def numeric_column(
+    frame: pd.DataFrame, column: str, where: str, *, positive: bool = False, allow_blank: bool = False
+) -> np.ndarray:
     """Parse a text column as floats; blank, non-numeric, infinite and (if asked) non-positive cells are errors."""
     text = frame[column]
     values = pd.to_numeric(text.where(text != "", None), errors="coerce").to_numpy(dtype=float)
@@ -113,7 +114,9 @@ def read_rate_constants(study: Study) -> RateConstantData:
     frame = read_table(path, {"temperature", "k"}, {"reaction", "k_sd", "k_rel_sd"})
     temperature_raw = numeric_column(frame, "temperature", where)
     for row, value in enumerate(temperature_raw):
-        units.to_kelvin(value, study.units.temperature, f"{where}: line {frame['line'].iloc[row]}, column 'temperature'")
+        units.to_kelvin(
+            value, study.units.temperature, f"{where}: line {frame['line'].iloc[row]}, column 'temperature'"
+        )
     temperature = units.to_kelvin(temperature_raw, study.units.temperature, where)
     k = numeric_column(frame, "k", where, positive=True)
 
@@ -124,14 +127,20 @@ def read_rate_constants(study: Study) -> RateConstantData:
             if label not in names:
                 close = difflib.get_close_matches(label, names, n=1)
                 hint = f"did you mean '{close[0]}'?" if close else f"the study's reactions: {', '.join(names)}"
-                raise StudyError(f"{where}: line {frame['line'].iloc[row]}, column 'reaction'",
-                                 f"'{label}' is not a reaction of the study", hint)
+                raise StudyError(
+                    f"{where}: line {frame['line'].iloc[row]}, column 'reaction'",
+                    f"'{label}' is not a reaction of the study",
+                    hint,
+                )
             index[row] = names.index(label)
     elif len(names) == 1:
         index = np.zeros(len(frame), dtype=int)
     else:
-        raise StudyError(where, "missing column 'reaction'",
-                         f"the study has {len(names)} reactions, so each row must say which one it measures")
+        raise StudyError(
+            where,
+            "missing column 'reaction'",
+            f"the study has {len(names)} reactions, so each row must say which one it measures",
+        )
 
     if "k_sd" in frame.columns and "k_rel_sd" in frame.columns:
         raise StudyError(where, "give either column 'k_sd' or column 'k_rel_sd', not both")
@@ -147,6 +156,9 @@ def read_rate_constants(study: Study) -> RateConstantData:
         if rows.size == 0:
             raise StudyError(where, f"no rows for reaction '{name}'", "every reaction of the study needs data")
         if np.unique(temperature[rows]).size < 2:
-            raise StudyError(where, f"reaction '{name}' is measured at one temperature only",
-                             "Ea needs rate constants at two or more temperatures")
+            raise StudyError(
+                where,
+                f"reaction '{name}' is measured at one temperature only",
+                "Ea needs rate constants at two or more temperatures",
+            )
     return data

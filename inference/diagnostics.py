@@ -61,19 +61,27 @@ def assess(idata: az.InferenceData, var_names: list[str], max_tree_depth: int = 
 
     advice: list[str] = []
     if not r_hat <= THRESHOLDS["r_hat_max"]:
-        advice.append(f"R-hat is {r_hat:.3f} (> {THRESHOLDS['r_hat_max']}): chains disagree; run more tuning "
-                      "and draws, or check the priors for several separated modes.")
+        advice.append(
+            f"R-hat is {r_hat:.3f} (> {THRESHOLDS['r_hat_max']}): chains disagree; run more tuning "
+            "and draws, or check the priors for several separated modes."
+        )
     if not min(ess_bulk, ess_tail) >= THRESHOLDS["ess_bulk_min"]:
         advice.append(f"effective sample size is {min(ess_bulk, ess_tail):.0f} (< 400): increase --draws.")
     if divergences > 0:
-        advice.append(f"{divergences} divergent transitions: raise sampling.target_accept (e.g. 0.95 or 0.99) "
-                      "or tighten priors that allow implausible values.")
+        advice.append(
+            f"{divergences} divergent transitions: raise sampling.target_accept (e.g. 0.95 or 0.99) "
+            "or tighten priors that allow implausible values."
+        )
     if tree_depth_hits > 0:
-        advice.append(f"{tree_depth_hits} draws hit the maximum tree depth: the posterior is badly scaled or "
-                      "strongly correlated; check the reference temperature and the priors.")
+        advice.append(
+            f"{tree_depth_hits} draws hit the maximum tree depth: the posterior is badly scaled or "
+            "strongly correlated; check the reference temperature and the priors."
+        )
     if not bfmi >= THRESHOLDS["bfmi_min"]:
-        advice.append(f"BFMI is {bfmi:.2f} (< 0.3): the sampler explores the energy poorly; "
-                      "consider tighter priors on the noise scale.")
+        advice.append(
+            f"BFMI is {bfmi:.2f} (< 0.3): the sampler explores the energy poorly; "
+            "consider tighter priors on the noise scale."
+        )
 
     failing = (
         not r_hat <= FAIL_LIMITS["r_hat_max"]
@@ -81,5 +89,4 @@ def assess(idata: az.InferenceData, var_names: list[str], max_tree_depth: int = 
         or divergences > FAIL_LIMITS["divergent_share_max"] * chains * draws
     )
     verdict = "fail" if failing else ("warn" if advice else "pass")
-    return Diagnostics(verdict, r_hat, ess_bulk, ess_tail, divergences, tree_depth_hits, bfmi, draws, chains,
-                       advice)
+    return Diagnostics(verdict, r_hat, ess_bulk, ess_tail, divergences, tree_depth_hits, bfmi, draws, chains, advice)

@@ -41,13 +41,11 @@ def build_rate_constant_model(study: Study, data: RateConstantData, temperature_
         ln_k_ref, ea = _arrhenius_parameters(study)
         idx = data.reaction_index
         predicted = ln_rate_constant(data.temperature_K, ln_k_ref[idx], ea[idx], temperature_ref)
-        if data.ln_k_sd is not None:
-            sigma = data.ln_k_sd
-        else:
-            sigma = pm.HalfNormal("sigma", sigma=study.noise.sigma.scale)
+        sigma = data.ln_k_sd if data.ln_k_sd is not None else pm.HalfNormal("sigma", sigma=study.noise.sigma.scale)
         if study.noise.model == "robust":
-            pm.StudentT("observation", nu=study.noise.nu, mu=predicted, sigma=sigma, observed=data.ln_k,
-                        dims="measurement")
+            pm.StudentT(
+                "observation", nu=study.noise.nu, mu=predicted, sigma=sigma, observed=data.ln_k, dims="measurement"
+            )
         else:
             pm.Normal("observation", mu=predicted, sigma=sigma, observed=data.ln_k, dims="measurement")
     return model

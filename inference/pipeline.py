@@ -1,8 +1,8 @@
 """The steps of a fit, in order: the Python API behind ``arrhenia fit`` (and usable from a notebook).
 
-    >>> from inference import load_study, fit_study
-    >>> result = fit_study(load_study("configs/example_rate_constants.yaml"), out="results/example")
-    >>> result.summary          # pandas DataFrame, see README for the columns
+>>> from inference import load_study, fit_study
+>>> result = fit_study(load_study("configs/example_rate_constants.yaml"), out="results/example")
+>>> result.summary          # pandas DataFrame, see README for the columns
 """
 
 from __future__ import annotations
@@ -34,12 +34,24 @@ from .summaries import (
     classical_table,
     correlation_table,
     derived_quantities,
+    extrapolation_notes,
     rate_constant_fit_checks,
     summary_table,
 )
 
-PACKAGES = ("arrhenia", "pymc", "pytensor", "arviz", "numpy", "scipy", "pandas", "xarray", "pydantic", "pint",
-            "matplotlib")
+PACKAGES = (
+    "arrhenia",
+    "pymc",
+    "pytensor",
+    "arviz",
+    "numpy",
+    "scipy",
+    "pandas",
+    "xarray",
+    "pydantic",
+    "pint",
+    "matplotlib",
+)
 
 
 class Steps:
@@ -75,6 +87,7 @@ class FitResult:
     classical: pd.DataFrame
     correlations: pd.DataFrame
     fit_checks: pd.DataFrame
+    extrapolations: list[str]
     idata: az.InferenceData
 
 
@@ -123,15 +136,18 @@ def fit_study(
     steps = Steps(quiet)
     if not isinstance(study, Study):
         study = load_study(study)
-    overrides = {k: v for k, v in {"draws": draws, "tune": tune, "chains": chains, "seed": seed}.items()
-                 if v is not None}
+    overrides = {
+        k: v for k, v in {"draws": draws, "tune": tune, "chains": chains, "seed": seed}.items() if v is not None
+    }
     sampling = study.sampling.model_validate({**study.sampling.model_dump(), **overrides})
     target = Path(out) if out is not None else default_results_dir(study)
     check_target(target, overwrite)
     data = read_rate_constants(study)
     temperature_ref = study.reference_temperature_K or auto_reference_temperature(data.temperature_K)
-    steps.done("validated study and data",
-               f"{len(study.reactions)} reaction(s), {data.k.size} rate constants, T_ref = {temperature_ref:.2f} K")
+    steps.done(
+        "validated study and data",
+        f"{len(study.reactions)} reaction(s), {data.k.size} rate constants, T_ref = {temperature_ref:.2f} K",
+    )
 
     model = build_rate_constant_model(study, data, temperature_ref)
     steps.done("built model")
@@ -147,8 +163,18 @@ def fit_study(
     fit_checks = rate_constant_fit_checks(study, data, idata)
     steps.done("summarised", f"verdict {diagnostics.verdict}")
 
-    result = FitResult(study, target, temperature_ref, diagnostics, summary, classical, correlations, fit_checks,
-                       idata)
+    result = FitResult(
+        study,
+        target,
+        temperature_ref,
+        diagnostics,
+        summary,
+        classical,
+        correlations,
+        fit_checks,
+        extrapolation_notes(study, data),
+        idata,
+    )
     _write(result, data, sampling.model_dump(), quantities, overwrite, steps, command_line)
     steps.done("wrote results", str(target))
     return result
@@ -157,16 +183,23 @@ def fit_study(
 def _pair_columns(quantities: dict) -> dict[str, np.ndarray]:
     """ln k_ref and Ea of every reaction, the parameters the sampler sees (up to an affine map)."""
     columns = {}
-    for name, (_, draws) in quantities.items():
+    for name, (unit, draws) in quantities.items():
         if name.startswith("k_ref["):
-            columns[f"ln {name}"] = np.log(draws.values.ravel())
+            columns[f"ln {name} ({unit})"] = np.log(draws.values.ravel())
         elif name.startswith("Ea["):
-            columns[name] = draws.values.ravel()
+            columns[f"{name} ({unit})"] = draws.values.ravel()
     return columns
 
 
-def _write(result: FitResult, data: RateConstantData, sampling: dict, quantities: dict, overwrite: bool,
-           steps: Steps, command_line: str | None) -> None:
+def _write(
+    result: FitResult,
+    data: RateConstantData,
+    sampling: dict,
+    quantities: dict,
+    overwrite: bool,
+    steps: Steps,
+    command_line: str | None,
+) -> None:
     study, idata = result.study, result.idata
     attrs = {
         "arrhenia_version": __version__,
@@ -193,6 +226,7 @@ def _write(result: FitResult, data: RateConstantData, sampling: dict, quantities
         "versions": _versions(),
         "timings_s": steps.timings,
         "predictive_coverage_90": coverage,
+        "extrapolations": result.extrapolations,
     }
     with StagedFolder(result.results_dir, overwrite) as folder:
         folder.write_csv("summary.csv", result.summary)
@@ -201,8 +235,9 @@ def _write(result: FitResult, data: RateConstantData, sampling: dict, quantities
         folder.write_csv("fit_checks.csv", result.fit_checks)
         folder.write_json("diagnostics.json", {**result.diagnostics.to_dict(), "predictive_coverage_90": coverage})
         idata.to_netcdf(str(folder.path("posterior.nc")))
-        plots.arrhenius_plot(study, data, idata.posterior, result.reference_temperature_K,
-                             folder.path("figures/arrhenius.png"))
+        plots.arrhenius_plot(
+            study, data, idata.posterior, result.reference_temperature_K, folder.path("figures/arrhenius.png")
+        )
         plots.pair_plot(_pair_columns(quantities), folder.path("figures/pair.png"), seed=sampling["seed"])
         folder.write_text("study.yaml", resolved_study_yaml(study, result.reference_temperature_K, sampling))
         folder.write_json("manifest.json", manifest)

@@ -10,17 +10,18 @@ from pathlib import Path
 import matplotlib
 
 matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import xarray as xr  # noqa: E402
+import matplotlib.pyplot as plt
+import numpy as np
+import xarray as xr
 
-from .arrhenius import linearised_fit, ln_rate_constant  # noqa: E402
-from .data import RateConstantData  # noqa: E402
-from .study import Study  # noqa: E402
+from .arrhenius import linearised_fit, ln_rate_constant
+from .data import RateConstantData
+from .study import Study
 
 
-def arrhenius_plot(study: Study, data: RateConstantData, posterior: xr.Dataset, temperature_ref: float,
-                   path: Path) -> None:
+def arrhenius_plot(
+    study: Study, data: RateConstantData, posterior: xr.Dataset, temperature_ref: float, path: Path
+) -> None:
     """ln k against 1000/T: data, posterior median line with its 90 % band, and the classical OLS line."""
     fig, ax = plt.subplots(figsize=(6.4, 4.6))
     colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
@@ -34,12 +35,19 @@ def arrhenius_plot(study: Study, data: RateConstantData, posterior: xr.Dataset, 
         ea = posterior["Ea"].sel(reaction=name).values.reshape(-1, 1)
         curves = ln_rate_constant(1.0 / inverse[None, :], ln_k_ref, ea, temperature_ref)
         q05, median, q95 = np.quantile(curves, [0.05, 0.5, 0.95], axis=0)
-        ax.fill_between(1000 * inverse, q05, q95, color=colour, alpha=0.25, linewidth=0,
-                        label=f"{name}: 90 % credible band")
+        ax.fill_between(
+            1000 * inverse, q05, q95, color=colour, alpha=0.25, linewidth=0, label=f"{name}: 90 % credible band"
+        )
         ax.plot(1000 * inverse, median, color=colour, label=f"{name}: posterior median")
         fit = linearised_fit(temperature, k)
-        ax.plot(1000 * inverse, fit.intercept + fit.slope * inverse, color=colour, linestyle="--",
-                linewidth=1, label=f"{name}: least squares on ln k")
+        ax.plot(
+            1000 * inverse,
+            fit.intercept + fit.slope * inverse,
+            color="0.15",
+            linestyle="--",
+            linewidth=0.9,
+            label=f"{name}: least squares on ln k",
+        )
         ax.plot(1000 / temperature, np.log(k), "o", color=colour, markersize=4, label=f"{name}: measured")
     ax.set_xlabel("1000 / T  (1/K)")
     ax.set_ylabel(f"ln k  (k in {study.units.rate_constant})")

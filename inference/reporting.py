@@ -37,7 +37,8 @@ def check_report(study: Study) -> str:
         f"study {study.name}" + (f": {study.title}" if study.title else ""),
         f"  data: {data.k.size} measured rate constants from {data.path}",
         f"  temperatures: {low:g} to {high:g} {t_unit} ({np.unique(data.temperature_K).size} distinct)",
-        f"  T_ref = {temperature_ref:.2f} K = {float(units.kelvin_to(temperature_ref, t_unit)):.2f} {t_unit} ({source})",
+        f"  T_ref = {temperature_ref:.2f} K = {float(units.kelvin_to(temperature_ref, t_unit)):.2f} {t_unit}"
+        f" ({source})",
         "  reactions:",
     ]
     for index, reaction in enumerate(study.reactions):
@@ -53,11 +54,15 @@ def check_report(study: Study) -> str:
     if data.ln_k_sd is not None:
         lines.append("  noise: per-point errors stated in the data file (sd of ln k)")
     else:
-        lines.append(f"  noise: {noise.model} on ln k, sigma ~ half-normal(scale {noise.sigma.scale:g})"
-                     + (f", nu = {noise.nu:g}" if noise.model == "robust" else ""))
+        lines.append(
+            f"  noise: {noise.model} on ln k, sigma ~ half-normal(scale {noise.sigma.scale:g})"
+            + (f", nu = {noise.nu:g}" if noise.model == "robust" else "")
+        )
     s = study.sampling
-    lines.append(f"  sampling: {s.chains} chains x {s.draws} draws ({s.tune} tuning), seed {s.seed}, "
-                 f"target_accept {s.target_accept:g}")
+    lines.append(
+        f"  sampling: {s.chains} chains x {s.draws} draws ({s.tune} tuning), seed {s.seed}, "
+        f"target_accept {s.target_accept:g}"
+    )
     lines.append("  the study is valid; nothing was sampled")
     return "\n".join(lines)
 
@@ -76,9 +81,15 @@ def fit_report(result: FitResult) -> str:
     table = result.summary[["parameter", "unit", "median", "q05", "q95", "r_hat"]]
     lines += ["", "posterior (median and 90 % interval):", table.to_string(index=False, float_format="{:.4g}".format)]
     classical = result.classical[result.classical["quantity"].isin(["Ea", "A"])]
-    lines += ["", "classical estimates (95 % confidence intervals):",
-              classical.drop(columns=["se"]).to_string(index=False, float_format="{:.4g}".format)]
-    lines += ["", "posterior correlations (why T_ref matters):",
-              result.correlations.to_string(index=False, float_format="{:.3f}".format)]
-    lines += ["", CAUTION, "", f"results: {result.results_dir}"]
+    lines += [
+        "",
+        "classical estimates (95 % confidence intervals):",
+        classical.drop(columns=["se"]).to_string(index=False, float_format="{:.4g}".format),
+    ]
+    lines += [
+        "",
+        "posterior correlations (why T_ref matters):",
+        result.correlations.to_string(index=False, float_format="{:.3f}".format),
+    ]
+    lines += ["", *result.extrapolations, CAUTION, "", f"results: {result.results_dir}"]
     return "\n".join(lines)

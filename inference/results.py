@@ -41,8 +41,9 @@ def check_target(target: Path, overwrite: bool) -> None:
     if target.exists() and not target.is_dir():
         raise StudyError(str(target), "the results path is a file, not a folder", "choose another --out")
     if target.exists() and not overwrite:
-        raise StudyError(str(target), "results folder already exists",
-                         "pass --overwrite to replace it, or --out to write elsewhere")
+        raise StudyError(
+            str(target), "results folder already exists", "pass --overwrite to replace it, or --out to write elsewhere"
+        )
     parent = target.parent
     if parent.exists() and not parent.is_dir():
         raise StudyError(str(parent), "is a file, so the results folder cannot be made inside it")
@@ -68,8 +69,9 @@ class StagedFolder:
         self.stage.mkdir()
         return self
 
-    def __exit__(self, kind: type[BaseException] | None, error: BaseException | None,
-                 trace: TracebackType | None) -> None:
+    def __exit__(
+        self, kind: type[BaseException] | None, error: BaseException | None, trace: TracebackType | None
+    ) -> None:
         if kind is not None:
             shutil.rmtree(self.stage, ignore_errors=True)
             return

@@ -28,7 +28,6 @@ class LogNormalPrior(Strict):
     factor: Annotated[float, Field(gt=1.0, le=1e12)]
 
 
-
 class PositiveNormalPrior(Strict):
     """Normal prior truncated to positive values, in the study's energy unit."""
 
@@ -36,12 +35,10 @@ class PositiveNormalPrior(Strict):
     sd: PositiveFloat
 
 
-
 class HalfNormalPrior(Strict):
     """Half-normal prior for a scale parameter."""
 
     scale: PositiveFloat
-
 
 
 class Units(Strict):
@@ -93,7 +90,6 @@ class Noise(Strict):
     nu: Annotated[float, Field(gt=1.0, le=1000.0)] = 4.0
 
 
-
 class Sampling(Strict):
     """NUTS settings. One integer seed drives every random number of a run."""
 
@@ -110,7 +106,6 @@ class Report(Strict):
     k_at: tuple[float, ...] = ()
 
 
-
 class StudyFile(Strict):
     """A whole study file as written by the user."""
 
@@ -123,8 +118,6 @@ class StudyFile(Strict):
     noise: Noise = Noise()
     sampling: Sampling = Sampling()
     report: Report = Report()
-
-
 
     @model_validator(mode="after")
     def _unique_reaction_names(self) -> StudyFile:

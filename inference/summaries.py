@@ -25,7 +25,9 @@ def temperature_label(kelvin: float, unit: str) -> str:
     return f"{float(units.kelvin_to(kelvin, unit)):g} {unit}"
 
 
-def derived_quantities(study: Study, posterior: xr.Dataset, temperature_ref: float) -> dict[str, tuple[str, xr.DataArray]]:
+def derived_quantities(
+    study: Study, posterior: xr.Dataset, temperature_ref: float
+) -> dict[str, tuple[str, xr.DataArray]]:
     """Draws of every reported quantity, by name, with its unit: k_ref, Ea, A, k at named temperatures, sigma."""
     energy, k_unit = study.units.energy, study.units.rate_constant or ""
     quantities: dict[str, tuple[str, xr.DataArray]] = {}
@@ -43,6 +45,22 @@ def derived_quantities(study: Study, posterior: xr.Dataset, temperature_ref: flo
     return quantities
 
 
+def extrapolation_notes(study: Study, data: RateConstantData) -> list[str]:
+    """One sentence for every reported temperature outside the measured range, saying how far outside."""
+    low, high = float(data.temperature_K.min()), float(data.temperature_K.max())
+    unit = study.units.temperature
+    notes = []
+    for kelvin in study.k_at_K:
+        if kelvin < low or kelvin > high:
+            edge = low if kelvin < low else high
+            side = "below the lowest" if kelvin < low else "above the highest"
+            notes.append(
+                f"EXTRAPOLATED: k at {temperature_label(kelvin, unit)} is {abs(kelvin - edge):.3g} K {side} "
+                f"measured temperature ({temperature_label(edge, unit)})"
+            )
+    return notes
+
+
 def summary_table(quantities: dict[str, tuple[str, xr.DataArray]]) -> pd.DataFrame:
     """One row per quantity: parameter, unit, mean, sd, median, q05, q95, ess_bulk, ess_tail, r_hat."""
     dataset = xr.Dataset({name: draws for name, (_, draws) in quantities.items()})
@@ -52,18 +70,20 @@ def summary_table(quantities: dict[str, tuple[str, xr.DataArray]]) -> pd.DataFra
     rows = []
     for name, (unit, draws) in quantities.items():
         values = draws.values.ravel()
-        rows.append({
-            "parameter": name,
-            "unit": unit,
-            "mean": values.mean(),
-            "sd": values.std(ddof=1),
-            "median": np.median(values),
-            "q05": np.quantile(values, 0.05),
-            "q95": np.quantile(values, 0.95),
-            "ess_bulk": float(ess_bulk[name]),
-            "ess_tail": float(ess_tail[name]),
-            "r_hat": float(r_hat[name]),
-        })
+        rows.append(
+            {
+                "parameter": name,
+                "unit": unit,
+                "mean": values.mean(),
+                "sd": values.std(ddof=1),
+                "median": np.median(values),
+                "q05": np.quantile(values, 0.05),
+                "q95": np.quantile(values, 0.95),
+                "ess_bulk": float(ess_bulk[name]),
+                "ess_tail": float(ess_tail[name]),
+                "r_hat": float(r_hat[name]),
+            }
+        )
     return pd.DataFrame(rows, columns=SUMMARY_COLUMNS)
 
 
@@ -77,11 +97,13 @@ def correlation_table(study: Study, posterior: xr.Dataset, temperature_ref: floa
         ln_k_ref = posterior["ln_k_ref"].sel(reaction=name).values.ravel()
         ea = posterior["Ea"].sel(reaction=name).values.ravel()
         ln_a = ln_pre_exponential(ln_k_ref, ea, temperature_ref)
-        rows.append({
-            "reaction": name,
-            "corr_ln_A_Ea": float(np.corrcoef(ln_a, ea)[0, 1]),
-            "corr_ln_k_ref_Ea": float(np.corrcoef(ln_k_ref, ea)[0, 1]),
-        })
+        rows.append(
+            {
+                "reaction": name,
+                "corr_ln_A_Ea": float(np.corrcoef(ln_a, ea)[0, 1]),
+                "corr_ln_k_ref_Ea": float(np.corrcoef(ln_k_ref, ea)[0, 1]),
+            }
+        )
     return pd.DataFrame(rows)
 
 
@@ -107,8 +129,16 @@ def classical_table(study: Study, data: RateConstantData) -> pd.DataFrame:
         rows += [
             (name, "linearised", "slope", "K", fit.slope, fit.se_slope, s_low, s_high),
             (name, "linearised", "intercept", f"ln({k_unit})", fit.intercept, fit.se_intercept, i_low, i_high),
-            (name, "linearised", "Ea", energy, to_energy(fit.ea), to_energy(fit.se_ea), to_energy(ea_low),
-             to_energy(ea_high)),
+            (
+                name,
+                "linearised",
+                "Ea",
+                energy,
+                to_energy(fit.ea),
+                to_energy(fit.se_ea),
+                to_energy(ea_low),
+                to_energy(ea_high),
+            ),
             (name, "linearised", "A", k_unit, fit.a, np.nan, a_low, a_high),
             (name, "linearised", "r_squared", "", fit.r_squared, np.nan, np.nan, np.nan),
             (name, "linearised", "points", "", float(fit.n), np.nan, np.nan, np.nan),
@@ -118,8 +148,9 @@ def classical_table(study: Study, data: RateConstantData) -> pd.DataFrame:
             (name, "two_point", "Ea", energy, to_energy(pair.ea), np.nan, np.nan, np.nan),
             (name, "two_point", "A", k_unit, pair.a, np.nan, np.nan, np.nan),
         ]
-    return pd.DataFrame(rows, columns=["reaction", "method", "quantity", "unit", "value", "se", "ci95_low",
-                                       "ci95_high"])
+    return pd.DataFrame(
+        rows, columns=["reaction", "method", "quantity", "unit", "value", "se", "ci95_low", "ci95_high"]
+    )
 
 
 def rate_constant_fit_checks(study: Study, data: RateConstantData, idata: az.InferenceData) -> pd.DataFrame:
@@ -130,14 +161,16 @@ def rate_constant_fit_checks(study: Study, data: RateConstantData, idata: az.Inf
     predicted = np.exp(idata.posterior_predictive["observation"].stack(sample=("chain", "draw")).values)
     q05, median, q95 = np.quantile(predicted, [0.05, 0.5, 0.95], axis=-1)
     names = np.array(study.reaction_names)
-    return pd.DataFrame({
-        "measurement": np.arange(data.k.size),
-        "line": data.line,
-        "reaction": names[data.reaction_index],
-        "temperature": units.kelvin_to(data.temperature_K, study.units.temperature),
-        "observed": data.k,
-        "median": median,
-        "q05": q05,
-        "q95": q95,
-        "inside_90": (data.k >= q05) & (data.k <= q95),
-    })
+    return pd.DataFrame(
+        {
+            "measurement": np.arange(data.k.size),
+            "line": data.line,
+            "reaction": names[data.reaction_index],
+            "temperature": units.kelvin_to(data.temperature_K, study.units.temperature),
+            "observed": data.k,
+            "median": median,
+            "q05": q05,
+            "q95": q95,
+            "inside_90": (data.k >= q05) & (data.k <= q95),
+        }
+    )

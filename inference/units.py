@@ -37,7 +37,6 @@ _EXAMPLES = {
 def registry() -> pint.UnitRegistry:
     """The one pint registry of the process (non-multiplicative temperatures handled by offset units)."""
     ureg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
-    ureg.define("molar = mol / L = M")
     return ureg
 
 
@@ -81,8 +80,11 @@ def check_kelvin(kelvin: np.ndarray, unit: str, where: str) -> None:
     if np.any(~np.isfinite(kelvin)):
         raise StudyError(where, "a temperature is missing or not a number")
     if np.any(kelvin <= 0.0):
-        raise StudyError(where, f"temperature {kelvin.min():.4g} K is at or below absolute zero",
-                         f"check the temperature unit (stated: {unit})")
+        raise StudyError(
+            where,
+            f"temperature {kelvin.min():.4g} K is at or below absolute zero",
+            f"check the temperature unit (stated: {unit})",
+        )
     if np.any(kelvin < low) or np.any(kelvin > high):
         bad = kelvin[(kelvin < low) | (kelvin > high)][0]
         raise StudyError(
