@@ -12,8 +12,9 @@ import yaml
 
 from . import units
 from .errors import StudyError
-from .schema import StudyFile
-from .study import ArrheniusPrior, ReactionSpec, Study
+from .network import Equation, EquationError, Network, build_network, parse_equation
+from .schema import OrderPrior, Reaction, StudyFile
+from .study import ArrheniusPrior, EquilibriumPrior, FittedOrder, ReactionSpec, Study
 
 #: A study file is a few kilobytes; anything much larger is not one.
 MAX_STUDY_BYTES = 1_000_000
@@ -165,20 +166,132 @@ def _resolve_paths(file: StudyFile, base: Path, where: str) -> tuple[tuple[str, 
     return tuple(resolved)
 
 
-def _resolve_reactions(file: StudyFile, where: str) -> tuple[ReactionSpec, ...]:
+def _order_unit(concentration: str, time: str, order: float) -> str:
+    """Unit of a rate constant of overall ``order``: concentration^(1 - order) / time."""
+    power = 1.0 - order
+    if power == 0:
+        return f"1/{time}"
+    return f"({concentration})^{power:g}/{time}" if power != 1 else f"{concentration}/{time}"
+
+
+def _concentration_power(concentration: str, power: float) -> str:
+    return "" if power == 0 else (concentration if power == 1 else f"({concentration})^{power:g}")
+
+
+def _arrhenius_prior(reaction: Reaction, energy_unit: str, key: str) -> ArrheniusPrior:
+    return ArrheniusPrior(
+        ln_k_ref_mean=math.log(reaction.k_ref.median),
+        ln_k_ref_sd=math.log(reaction.k_ref.factor) / Z95,
+        ea_mean=float(units.energy_to_joule_per_mol(reaction.Ea.mean, energy_unit, f"{key}.Ea")),
+        ea_sd=float(units.energy_to_joule_per_mol(reaction.Ea.sd, energy_unit, f"{key}.Ea")),
+    )
+
+
+def _resolve_rate_constant_reactions(file: StudyFile, where: str) -> tuple[ReactionSpec, ...]:
+    if file.species or file.initial_uncertainty:
+        key = "species" if file.species else "initial_uncertainty"
+        raise StudyError(f"{where}: {key}", "is for concentration data (data.runs), not for rate constants")
     specs = []
     for index, reaction in enumerate(file.reactions):
         key = f"{where}: reactions[{index}]"
-        ea_mean = float(units.energy_to_joule_per_mol(reaction.Ea.mean, file.units.energy, f"{key}.Ea"))
-        ea_sd = float(units.energy_to_joule_per_mol(reaction.Ea.sd, file.units.energy, f"{key}.Ea"))
-        prior = ArrheniusPrior(
-            ln_k_ref_mean=math.log(reaction.k_ref.median),
-            ln_k_ref_sd=math.log(reaction.k_ref.factor) / Z95,
-            ea_mean=ea_mean,
-            ea_sd=ea_sd,
+        for extra in ("K_ref", "dH", "orders"):
+            if getattr(reaction, extra) is not None:
+                raise StudyError(f"{key}.{extra}", "is for reaction networks fitted to concentration data")
+        prior = _arrhenius_prior(reaction, file.units.energy, key)
+        specs.append(
+            ReactionSpec(reaction.name, reaction.equation, reaction.rate_law, prior, file.units.rate_constant or "")
         )
-        specs.append(ReactionSpec(reaction.name, reaction.equation, reaction.rate_law, prior))
     return tuple(specs)
+
+
+def _parse_network_equation(reaction: Reaction, species: tuple[str, ...], key: str) -> Equation:
+    if reaction.equation is None:
+        raise StudyError(f"{key}.equation", "required key is missing", "write e.g. 'A + B -> C'")
+    try:
+        equation = parse_equation(reaction.equation)
+    except EquationError as exc:
+        raise StudyError(f"{key}.equation", f"'{reaction.equation}': {exc}") from None
+    for name in equation.species:
+        if name not in species:
+            close = difflib.get_close_matches(name, species, n=1)
+            hint = f"did you mean '{close[0]}'?" if close else "add it to the study's species list"
+            raise StudyError(f"{key}.equation", f"'{name}' is not in species ({', '.join(species)})", hint)
+    return equation
+
+
+def _resolve_network(file: StudyFile, where: str) -> tuple[tuple[ReactionSpec, ...], Network, tuple[str, ...]]:
+    species = file.species
+    if not species:
+        raise StudyError(f"{where}: species", "required key is missing", "list every species, e.g. [A, B, C]")
+    conc, time, energy = file.units.concentration, file.units.time, file.units.energy
+    specs, equations, order_maps, notes = [], [], [], []
+    for index, reaction in enumerate(file.reactions):
+        key = f"{where}: reactions[{index}]"
+        equation = _parse_network_equation(reaction, species, key)
+        equations.append(equation)
+        reactant_orders = dict(equation.reactants)
+        fitted_orders = []
+        if reaction.rate_law == "mass_action" and reaction.orders is not None:
+            raise StudyError(
+                f"{key}.orders",
+                "mass_action takes its orders from the equation",
+                "use rate_law: power_law to give or fit orders",
+            )
+        for name, order in (reaction.orders or {}).items():
+            if name not in reactant_orders:
+                raise StudyError(f"{key}.orders.{name}", f"'{name}' is not a reactant of '{reaction.equation}'")
+            if isinstance(order, OrderPrior):
+                fitted_orders.append(FittedOrder(name, order.lower, order.upper))
+                reactant_orders[name] = 0.5 * (order.lower + order.upper)
+            else:
+                reactant_orders[name] = float(order)
+        if equation.reversible != (reaction.K_ref is not None) or equation.reversible != (reaction.dH is not None):
+            missing = "K_ref" if reaction.K_ref is None else "dH"
+            if equation.reversible:
+                raise StudyError(
+                    f"{key}.{missing}",
+                    "required key is missing",
+                    "a reversible step needs K_ref (equilibrium constant at T_ref) and dH",
+                )
+            raise StudyError(
+                f"{key}.{'dH' if reaction.dH is not None else 'K_ref'}", "is only for reversible steps ('<=>')"
+            )
+        equilibrium, eq_unit = None, ""
+        if reaction.K_ref is not None and reaction.dH is not None:
+            equilibrium = EquilibriumPrior(
+                ln_eq_ref_mean=math.log(reaction.K_ref.median),
+                ln_eq_ref_sd=math.log(reaction.K_ref.factor) / Z95,
+                dh_mean=float(units.energy_to_joule_per_mol(reaction.dH.mean, energy, f"{key}.dH")),
+                dh_sd=float(units.energy_to_joule_per_mol(reaction.dH.sd, energy, f"{key}.dH")),
+            )
+            delta_n = sum(c for _, c in equation.products) - sum(c for _, c in equation.reactants)
+            eq_unit = _concentration_power(conc, delta_n)
+        order_maps.append(reactant_orders)
+        overall = sum(reactant_orders.values())
+        k_unit = _order_unit(conc, time, overall) if not fitted_orders else f"({conc})^(1-n)/{time}"
+        specs.append(
+            ReactionSpec(
+                reaction.name,
+                reaction.equation,
+                reaction.rate_law,
+                _arrhenius_prior(reaction, energy, key),
+                k_unit,
+                equilibrium,
+                eq_unit,
+                tuple(fitted_orders),
+            )
+        )
+    network = build_network(species, tuple(r.name for r in file.reactions), tuple(equations), tuple(order_maps))
+    for name in species:
+        if (
+            not network.stoichiometry[:, species.index(name)].any()
+            and not network.forward_orders[:, species.index(name)].any()
+        ):
+            notes.append(f"species '{name}' takes part in no reaction")
+    for name in file.initial_uncertainty:
+        if name not in species:
+            raise StudyError(f"{where}: initial_uncertainty.{name}", f"'{name}' is not a species of the study")
+    return tuple(specs), network, tuple(notes)
 
 
 def _check_units(file: StudyFile, where: str) -> None:
@@ -195,6 +308,14 @@ def _check_units(file: StudyFile, where: str) -> None:
             "required key is missing",
             "rate-constant data need the unit of k, e.g. 1/s or L/(mol*s)",
         )
+    if file.data.runs is not None:
+        for kind in ("time", "concentration"):
+            if getattr(given, kind) is None:
+                raise StudyError(
+                    f"{where}: units.{kind}",
+                    "required key is missing",
+                    f"concentration-time data need units.{kind}, e.g. {units.EXAMPLES[kind]}",
+                )
 
 
 def load_study(path: str | Path) -> Study:
@@ -209,12 +330,6 @@ def load_study(path: str | Path) -> Study:
     except pydantic.ValidationError as exc:
         raise _format_validation_error(where, exc) from None
     _check_units(file, where)
-    if file.data.runs is not None:
-        raise StudyError(
-            f"{where}: data.runs",
-            "concentration-time data are not supported yet",
-            "fit measured rate constants with data.rate_constants",
-        )
     if file.data.rate_constants is not None and file.noise.model == "absolute":
         raise StudyError(
             f"{where}: noise.model",
@@ -224,6 +339,11 @@ def load_study(path: str | Path) -> Study:
     reference = _parse_reference_temperature(
         file.reference_temperature, file.units.temperature, f"{where}: reference_temperature"
     )
+    network, notes = None, ()
+    if file.data.rate_constants is not None:
+        reactions = _resolve_rate_constant_reactions(file, where)
+    else:
+        reactions, network, notes = _resolve_network(file, where)
     k_at = (
         tuple(float(t) for t in units.to_kelvin(file.report.k_at, file.units.temperature, f"{where}: report.k_at"))
         if file.report.k_at
@@ -236,10 +356,14 @@ def load_study(path: str | Path) -> Study:
         mode="rate_constants" if file.data.rate_constants is not None else "network",
         units=file.units,
         data_files=_resolve_paths(file, path.resolve().parent, where),
-        reactions=_resolve_reactions(file, where),
+        reactions=reactions,
         reference_temperature_K=reference,
         noise=file.noise,
         sampling=file.sampling,
         k_at_K=k_at,
         canonical=file.model_dump(mode="json"),
+        species=file.species,
+        network=network,
+        initial_uncertainty=tuple(file.initial_uncertainty.items()),
+        warnings=notes,
     )

@@ -162,3 +162,185 @@ def read_rate_constants(study: Study) -> RateConstantData:
                 "Ea needs rate constants at two or more temperatures",
             )
     return data
+
+
+@dataclass(frozen=True)
+class Observations:
+    """Concentration-time data of isothermal batch runs.
+
+    Runs (R): ``run_ids``, ``temperature_K`` (kelvin), ``initial`` (R, N) in the study's concentration unit,
+    ``times[r]`` the sorted distinct sampling times of run r (study time unit).
+    Measurements (M), one per observed value: ``run_index``, ``time_index`` (into ``times[run]``),
+    ``species_index`` (into ``Study.species``), ``value`` (concentration unit) and ``line`` (file line).
+    """
+
+    run_ids: tuple[str, ...]
+    temperature_K: np.ndarray
+    initial: np.ndarray
+    times: tuple[np.ndarray, ...]
+    run_index: np.ndarray
+    time_index: np.ndarray
+    species_index: np.ndarray
+    value: np.ndarray
+    line: np.ndarray
+    runs_path: Path
+    measurements_path: Path
+
+    @property
+    def observed_species(self) -> np.ndarray:
+        return np.unique(self.species_index)
+
+    @property
+    def time(self) -> np.ndarray:
+        return np.array([self.times[r][i] for r, i in zip(self.run_index, self.time_index, strict=True)])
+
+
+def _run_label(frame: pd.DataFrame, where: str) -> list[str]:
+    labels = list(frame["run"])
+    for row, label in enumerate(labels):
+        if label == "":
+            raise StudyError(f"{where}: line {frame['line'].iloc[row]}, column 'run'", "cell is blank")
+    return labels
+
+
+def read_runs(study: Study) -> tuple[tuple[str, ...], np.ndarray, np.ndarray, Path]:
+    """Runs table: ``run``, ``temperature`` and the initial concentration of every species (one column each)."""
+    path = study.data_file("runs")
+    where = str(path)
+    species = study.species
+    frame = read_table(path, {"run", "temperature", *species})
+    labels = _run_label(frame, where)
+    seen: dict[str, int] = {}
+    for row, label in enumerate(labels):
+        if label in seen:
+            raise StudyError(
+                f"{where}: line {frame['line'].iloc[row]}, column 'run'",
+                f"run '{label}' appears twice (first on line {seen[label]})",
+            )
+        seen[label] = int(frame["line"].iloc[row])
+    raw = numeric_column(frame, "temperature", where)
+    for row, value in enumerate(raw):
+        units.to_kelvin(
+            value, study.units.temperature, f"{where}: line {frame['line'].iloc[row]}, column 'temperature'"
+        )
+    temperature = units.to_kelvin(raw, study.units.temperature, where)
+    initial = np.column_stack([numeric_column(frame, name, where) for name in species])
+    bad = np.argwhere(initial < 0)
+    if bad.size:
+        row, col = bad[0]
+        raise StudyError(
+            f"{where}: line {frame['line'].iloc[row]}, column '{species[col]}'",
+            "an initial concentration cannot be negative",
+        )
+    if np.any(initial.sum(axis=1) <= 0):
+        row = int(np.flatnonzero(initial.sum(axis=1) <= 0)[0])
+        raise StudyError(f"{where}: line {frame['line'].iloc[row]}", "every initial concentration is zero")
+    return tuple(labels), temperature, initial, path
+
+
+def read_observations(study: Study) -> Observations:
+    """Read runs and measurements (long layout ``run, time, species, value`` or wide ``run, time, <species>``)."""
+    run_ids, temperature, initial, runs_path = read_runs(study)
+    path = study.data_file("measurements")
+    where = str(path)
+    species = study.species
+    with_header = read_table(path, {"run", "time"}, {"species", "value", *species})
+    columns = set(with_header.columns)
+    long_layout = "species" in columns or "value" in columns
+    if long_layout:
+        for needed in ("species", "value"):
+            if needed not in columns:
+                raise StudyError(
+                    where, f"missing column '{needed}'", "the long layout has columns run, time, species, value"
+                )
+        extra = sorted(columns & set(species))
+        if extra:
+            raise StudyError(
+                where,
+                f"column '{extra[0]}' mixes the wide layout into the long one",
+                "use either run, time, species, value or run, time and one column per species",
+            )
+    labels = _run_label(with_header, where)
+    time = numeric_column(with_header, "time", where)
+    lines = with_header["line"].to_numpy()
+    for row, label in enumerate(labels):
+        if label not in run_ids:
+            close = difflib.get_close_matches(label, run_ids, n=1)
+            hint = f"did you mean '{close[0]}'?" if close else f"the runs file has: {', '.join(run_ids[:8])}"
+            raise StudyError(
+                f"{where}: line {lines[row]}, column 'run'", f"run '{label}' is not in {runs_path.name}", hint
+            )
+        if time[row] < 0:
+            raise StudyError(f"{where}: line {lines[row]}, column 'time'", "time cannot be negative")
+
+    records: list[tuple[int, float, int, float, int]] = []
+    if long_layout:
+        values = numeric_column(with_header, "value", where)
+        for row, name in enumerate(with_header["species"]):
+            if name not in species:
+                close = difflib.get_close_matches(name, species, n=1)
+                hint = f"did you mean '{close[0]}'?" if close else f"the study's species: {', '.join(species)}"
+                raise StudyError(
+                    f"{where}: line {lines[row]}, column 'species'", f"'{name}' is not a species of the study", hint
+                )
+            records.append((run_ids.index(labels[row]), time[row], species.index(name), values[row], lines[row]))
+    else:
+        measured = [name for name in species if name in columns]
+        if not measured:
+            raise StudyError(where, "no species column", f"add columns named after species: {', '.join(species)}")
+        for name in measured:
+            values = numeric_column(with_header, name, where, allow_blank=True)
+            for row in range(len(with_header)):
+                if with_header[name].iloc[row] != "":
+                    records.append(
+                        (run_ids.index(labels[row]), time[row], species.index(name), values[row], lines[row])
+                    )
+    if not records:
+        raise StudyError(where, "has no measured values")
+    _check_record_order(records, run_ids, species, where)
+    positive_noise = study.noise.model in ("proportional", "robust")
+    for _, _, index, value, line in records:
+        if positive_noise and value <= 0:
+            column = "value" if long_layout else species[index]
+            raise StudyError(
+                f"{where}: line {line}, column '{column}'",
+                f"{value:g} is not positive, but '{study.noise.model}' noise works on the log of values",
+                "use noise.model: absolute, or leave the cell blank",
+            )
+    records.sort(key=lambda r: (r[0], r[1], r[2]))
+    run_index = np.array([r[0] for r in records], dtype=int)
+    measured_runs = set(run_index.tolist())
+    for r, label in enumerate(run_ids):
+        if r not in measured_runs:
+            raise StudyError(f"{runs_path}", f"run '{label}' has no measurements in {path.name}")
+    times = tuple(np.unique([rec[1] for rec in records if rec[0] == r]) for r in range(len(run_ids)))
+    time_index = np.array([int(np.searchsorted(times[rec[0]], rec[1])) for rec in records], dtype=int)
+    return Observations(
+        run_ids=run_ids,
+        temperature_K=temperature,
+        initial=initial,
+        times=times,
+        run_index=run_index,
+        time_index=time_index,
+        species_index=np.array([r[2] for r in records], dtype=int),
+        value=np.array([r[3] for r in records]),
+        line=np.array([r[4] for r in records], dtype=int),
+        runs_path=runs_path,
+        measurements_path=path,
+    )
+
+
+def _check_record_order(records: list, run_ids: tuple[str, ...], species: tuple[str, ...], where: str) -> None:
+    """Within each run and species, times must rise from row to row; a repeated time is a duplicate."""
+    last: dict[tuple[int, int], float] = {}
+    for run, time, index, _, line in records:
+        key = (run, index)
+        if key in last and time <= last[key]:
+            problem = "repeats" if time == last[key] else "goes back from"
+            raise StudyError(
+                f"{where}: line {line}, column 'time'",
+                f"time {time:g} {problem} the previous time {last[key]:g} of run '{run_ids[run]}', "
+                f"species '{species[index]}'",
+                "sort each run's rows by time; remove duplicates",
+            )
+        last[key] = time

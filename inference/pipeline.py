@@ -24,20 +24,12 @@ import yaml
 from . import __version__, plots
 from .arrhenius import auto_reference_temperature
 from .config import load_study
-from .data import RateConstantData, read_rate_constants
 from .diagnostics import Diagnostics, assess
-from .model import build_rate_constant_model
+from .problems import Problem, open_problem
 from .results import StagedFolder, check_target, sha256_file, sha256_json
 from .sampling import sample_posterior
 from .study import Study
-from .summaries import (
-    classical_table,
-    correlation_table,
-    derived_quantities,
-    extrapolation_notes,
-    rate_constant_fit_checks,
-    summary_table,
-)
+from .summaries import correlation_table, derived_quantities, extrapolation_notes, summary_table
 
 PACKAGES = (
     "arrhenia",
@@ -77,14 +69,15 @@ class Steps:
 
 @dataclass(frozen=True)
 class FitResult:
-    """Everything a fit produced; the same content as its results folder."""
+    """Everything a fit produced; the same content as its results folder. ``tables`` holds the extra tables
+    of the study's kind by file name (``classical.csv`` for rate constants)."""
 
     study: Study
     results_dir: Path
     reference_temperature_K: float
     diagnostics: Diagnostics
     summary: pd.DataFrame
-    classical: pd.DataFrame
+    tables: dict[str, pd.DataFrame]
     correlations: pd.DataFrame
     fit_checks: pd.DataFrame
     extrapolations: list[str]
@@ -142,58 +135,51 @@ def fit_study(
     sampling = study.sampling.model_validate({**study.sampling.model_dump(), **overrides})
     target = Path(out) if out is not None else default_results_dir(study)
     check_target(target, overwrite)
-    data = read_rate_constants(study)
-    temperature_ref = study.reference_temperature_K or auto_reference_temperature(data.temperature_K)
-    steps.done(
-        "validated study and data",
-        f"{len(study.reactions)} reaction(s), {data.k.size} rate constants, T_ref = {temperature_ref:.2f} K",
-    )
+    problem = open_problem(study)
+    temperature_ref = study.reference_temperature_K or auto_reference_temperature(problem.temperatures_K)
+    steps.done("validated study and data", f"{problem.summary_line()}, T_ref = {temperature_ref:.2f} K")
+    for note in study.warnings:
+        steps.say(f"warning: {note}")
 
-    model = build_rate_constant_model(study, data, temperature_ref)
+    model = problem.build_model(temperature_ref)
     steps.done("built model")
     idata = sample_posterior(model, sampling, progress=not quiet)
     steps.done("sampled", f"{sampling.chains} chains x {sampling.draws} draws after {sampling.tune} tuning")
 
-    var_names = ["ln_k_ref", "Ea"] + (["sigma"] if "sigma" in idata.posterior else [])
-    diagnostics = assess(idata, var_names)
+    diagnostics = assess(idata, problem.kinetic_var_names(idata))
     quantities = derived_quantities(study, idata.posterior, temperature_ref)
-    summary = summary_table(quantities)
-    classical = classical_table(study, data)
-    correlations = correlation_table(study, idata.posterior, temperature_ref)
-    fit_checks = rate_constant_fit_checks(study, data, idata)
-    steps.done("summarised", f"verdict {diagnostics.verdict}")
-
     result = FitResult(
-        study,
-        target,
-        temperature_ref,
-        diagnostics,
-        summary,
-        classical,
-        correlations,
-        fit_checks,
-        extrapolation_notes(study, data),
-        idata,
+        study=study,
+        results_dir=target,
+        reference_temperature_K=temperature_ref,
+        diagnostics=diagnostics,
+        summary=summary_table(quantities),
+        tables=problem.extra_tables(),
+        correlations=correlation_table(study, idata.posterior, temperature_ref),
+        fit_checks=problem.fit_checks(idata),
+        extrapolations=extrapolation_notes(study, problem.temperatures_K),
+        idata=idata,
     )
-    _write(result, data, sampling.model_dump(), quantities, overwrite, steps, command_line)
+    steps.done("summarised", f"verdict {diagnostics.verdict}")
+    _write(result, problem, sampling.model_dump(), quantities, overwrite, steps, command_line)
     steps.done("wrote results", str(target))
     return result
 
 
 def _pair_columns(quantities: dict) -> dict[str, np.ndarray]:
-    """ln k_ref and Ea of every reaction, the parameters the sampler sees (up to an affine map)."""
+    """ln k_ref and Ea of every reaction (the parameters the sampler sees, up to an affine map), and dH."""
     columns = {}
     for name, (unit, draws) in quantities.items():
         if name.startswith("k_ref["):
             columns[f"ln {name} ({unit})"] = np.log(draws.values.ravel())
-        elif name.startswith("Ea["):
-            columns[f"{name} ({unit})"] = draws.values.ravel()
+        elif name.startswith(("Ea[", "dH[", "order[")):
+            columns[f"{name} ({unit})" if unit else name] = draws.values.ravel()
     return columns
 
 
 def _write(
     result: FitResult,
-    data: RateConstantData,
+    problem: Problem,
     sampling: dict,
     quantities: dict,
     overwrite: bool,
@@ -206,7 +192,11 @@ def _write(
         "study": study.name,
         "reference_temperature_K": result.reference_temperature_K,
         "units": study.units.model_dump(),
-        "posterior_units": {"ln_k_ref": f"ln({study.units.rate_constant})", "Ea": "J/mol"},
+        "posterior_units": {
+            "ln_k_ref": {s.name: f"ln({s.k_unit})" for s in study.reactions},
+            "Ea": "J/mol",
+            "dH": "J/mol",
+        },
         "seed": sampling["seed"],
     }
     for group in idata.groups():
@@ -227,17 +217,17 @@ def _write(
         "timings_s": steps.timings,
         "predictive_coverage_90": coverage,
         "extrapolations": result.extrapolations,
+        "warnings": list(study.warnings),
     }
     with StagedFolder(result.results_dir, overwrite) as folder:
         folder.write_csv("summary.csv", result.summary)
-        folder.write_csv("classical.csv", result.classical)
+        for name, table in result.tables.items():
+            folder.write_csv(name, table)
         folder.write_csv("correlations.csv", result.correlations)
         folder.write_csv("fit_checks.csv", result.fit_checks)
         folder.write_json("diagnostics.json", {**result.diagnostics.to_dict(), "predictive_coverage_90": coverage})
         idata.to_netcdf(str(folder.path("posterior.nc")))
-        plots.arrhenius_plot(
-            study, data, idata.posterior, result.reference_temperature_K, folder.path("figures/arrhenius.png")
-        )
+        problem.figures(folder, idata, result.reference_temperature_K, result.fit_checks)
         plots.pair_plot(_pair_columns(quantities), folder.path("figures/pair.png"), seed=sampling["seed"])
         folder.write_text("study.yaml", resolved_study_yaml(study, result.reference_temperature_K, sampling))
         folder.write_json("manifest.json", manifest)

@@ -1,4 +1,5 @@
-"""Figures written to ``figures/``: the Arrhenius plot and the pair plot of the kinetic parameters.
+"""Figures written to ``figures/``: the Arrhenius plot, fits of every run, and the pair plot of the kinetic
+parameters.
 
 Matplotlib with the non-interactive Agg backend, so figures are made on machines without a screen.
 """
@@ -14,23 +15,29 @@ import matplotlib.pyplot as plt
 import numpy as np
 import xarray as xr
 
+from . import units
 from .arrhenius import linearised_fit, ln_rate_constant
-from .data import RateConstantData
+from .data import Observations, RateConstantData
 from .study import Study
 
 
 def arrhenius_plot(
-    study: Study, data: RateConstantData, posterior: xr.Dataset, temperature_ref: float, path: Path
+    study: Study,
+    posterior: xr.Dataset,
+    temperature_ref: float,
+    measured_K: np.ndarray,
+    path: Path,
+    data: RateConstantData | None = None,
 ) -> None:
-    """ln k against 1000/T: data, posterior median line with its 90 % band, and the classical OLS line."""
+    """ln k against 1000/T per reaction: posterior median line with its 90 % band over the measured range
+    (plus 5 % each side); with rate-constant data also the measured points and the classical OLS line."""
     fig, ax = plt.subplots(figsize=(6.4, 4.6))
     colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
-    for index, name in enumerate(study.reaction_names):
-        colour = colours[index % len(colours)]
-        rows = data.rows_of(index)
-        temperature, k = data.temperature_K[rows], data.k[rows]
-        span = 1.0 / temperature.min() - 1.0 / temperature.max()
-        inverse = np.linspace(1.0 / temperature.max() - 0.05 * span, 1.0 / temperature.min() + 0.05 * span, 80)
+    low, high = float(np.min(measured_K)), float(np.max(measured_K))
+    span = 1.0 / low - 1.0 / high
+    inverse = np.linspace(1.0 / high - 0.05 * span, 1.0 / low + 0.05 * span, 80)
+    for index, spec in enumerate(study.reactions):
+        name, colour = spec.name, colours[index % len(colours)]
         ln_k_ref = posterior["ln_k_ref"].sel(reaction=name).values.reshape(-1, 1)
         ea = posterior["Ea"].sel(reaction=name).values.reshape(-1, 1)
         curves = ln_rate_constant(1.0 / inverse[None, :], ln_k_ref, ea, temperature_ref)
@@ -38,23 +45,81 @@ def arrhenius_plot(
         ax.fill_between(
             1000 * inverse, q05, q95, color=colour, alpha=0.25, linewidth=0, label=f"{name}: 90 % credible band"
         )
-        ax.plot(1000 * inverse, median, color=colour, label=f"{name}: posterior median")
-        fit = linearised_fit(temperature, k)
-        ax.plot(
-            1000 * inverse,
-            fit.intercept + fit.slope * inverse,
-            color="0.15",
-            linestyle="--",
-            linewidth=0.9,
-            label=f"{name}: least squares on ln k",
-        )
-        ax.plot(1000 / temperature, np.log(k), "o", color=colour, markersize=4, label=f"{name}: measured")
-    ax.set_xlabel("1000 / T  (1/K)")
-    ax.set_ylabel(f"ln k  (k in {study.units.rate_constant})")
+        ax.plot(1000 * inverse, median, color=colour, label=f"{name}: posterior median ({spec.k_unit})")
+        if data is not None:
+            rows = data.rows_of(index)
+            temperature, k = data.temperature_K[rows], data.k[rows]
+            fit = linearised_fit(temperature, k)
+            ax.plot(
+                1000 * inverse,
+                fit.intercept + fit.slope * inverse,
+                color="0.15",
+                linestyle="--",
+                linewidth=0.9,
+                label=f"{name}: least squares on ln k",
+            )
+            ax.plot(1000 / temperature, np.log(k), "o", color=colour, markersize=4, label=f"{name}: measured")
+    if data is None:
+        for kelvin in np.unique(measured_K):
+            ax.axvline(1000 / kelvin, color="0.8", linewidth=0.8, zorder=0)
+    ax.set_xlabel("1000 / T  (1/K)" + ("" if data is not None else "; grey lines: run temperatures"))
+    ax.set_ylabel("ln k")
     ax.set_title(f"Arrhenius plot: {study.name}")
     ax.legend(fontsize=7, frameon=False)
     fig.tight_layout()
     fig.savefig(path, dpi=120)
+    plt.close(fig)
+
+
+def run_fit_plot(
+    study: Study, obs: Observations, run: int, times: np.ndarray, curves: np.ndarray, checks, path: Path
+) -> None:
+    """One run: observed points with their 90 % predictive intervals, and every species' posterior median
+    profile with its 90 % credible band (``curves`` is draws x times x species); unobserved species dashed."""
+    fig, ax = plt.subplots(figsize=(6.4, 4.2))
+    colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    observed = set(obs.species_index[obs.run_index == run].tolist())
+    q05, median, q95 = np.nanquantile(curves, [0.05, 0.5, 0.95], axis=0)
+    for i, species in enumerate(study.species):
+        colour = colours[i % len(colours)]
+        style = "-" if i in observed else "--"
+        ax.fill_between(times, q05[:, i], q95[:, i], color=colour, alpha=0.2, linewidth=0)
+        ax.plot(times, median[:, i], style, color=colour, label=species + ("" if i in observed else " (not measured)"))
+        rows = (obs.run_index == run) & (obs.species_index == i)
+        if rows.any():
+            table = checks[rows]
+            ax.errorbar(
+                table["time"],
+                table["observed"],
+                yerr=[
+                    np.clip(table["observed"] - table["q05"], 0, None),
+                    np.clip(table["q95"] - table["observed"], 0, None),
+                ],
+                fmt="o",
+                color=colour,
+                markersize=4,
+                elinewidth=0.6,
+                capsize=0,
+                alpha=0.9,
+            )
+    kelvin = obs.temperature_K[run]
+    unit = study.units.temperature
+    ax.set_title(f"run {obs.run_ids[run]} at {float(units.kelvin_to(kelvin, unit)):g} {unit}")
+    ax.set_xlabel(f"time ({study.units.time})")
+    ax.set_ylabel(f"concentration ({study.units.concentration})")
+    ax.legend(fontsize=7, frameon=False)
+    ax.text(
+        0.99,
+        0.01,
+        "bands: 90 % credible; bars: 90 % predictive",
+        transform=ax.transAxes,
+        ha="right",
+        va="bottom",
+        fontsize=6,
+        color="0.4",
+    )
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
     plt.close(fig)
 
 

@@ -71,22 +71,56 @@ class DataFiles(Strict):
         return self
 
 
+class NormalPrior(Strict):
+    """Normal prior for a quantity of either sign (a reaction enthalpy), in the study's energy unit."""
+
+    mean: float
+    sd: PositiveFloat
+
+
+class OrderPrior(Strict):
+    """Uniform prior of a fitted reaction order between ``lower`` and ``upper``."""
+
+    lower: Annotated[float, Field(ge=0.0, le=10.0)] = 0.0
+    upper: Annotated[float, Field(gt=0.0, le=10.0)] = 3.0
+
+    @model_validator(mode="after")
+    def _ordered(self) -> OrderPrior:
+        if not self.lower < self.upper:
+            raise ValueError("'lower' must be below 'upper'")
+        return self
+
+
+Order = Annotated[float, Field(ge=0.0, le=10.0)] | OrderPrior
+
+
 class Reaction(Strict):
-    """One reaction: its name, optional equation, rate law and the priors of its Arrhenius parameters."""
+    """One reaction: name, equation, rate law and the priors of its parameters.
+
+    ``k_ref`` is k at T_ref in the units its order implies (concentration^(1-order) / time). Reversible
+    steps (``<=>``) also take ``K_ref`` (equilibrium constant K_c at T_ref, concentration^(sum of
+    stoichiometric coefficients)) and ``dH`` (reaction enthalpy for van 't Hoff, energy unit). ``power_law``
+    takes ``orders``: per reactant a fixed number or ``{lower, upper}`` to fit it.
+    """
 
     name: Name
     equation: str | None = None
-    rate_law: Literal["mass_action"] = "mass_action"
+    rate_law: Literal["mass_action", "power_law"] = "mass_action"
     k_ref: LogNormalPrior
     Ea: PositiveNormalPrior
+    K_ref: LogNormalPrior | None = None
+    dH: NormalPrior | None = None
+    orders: dict[str, Order] | None = None
 
 
 class Noise(Strict):
     """Measurement noise. ``proportional``: normal on the log of the value (lognormal); ``absolute``: normal
-    on the value; ``robust``: Student-t on the log of the value with ``nu`` degrees of freedom."""
+    on the value (``sigma.scale`` in concentration units); ``robust``: Student-t on the log of the value with
+    ``nu`` degrees of freedom. ``per_species``: one sigma per observed species instead of one shared."""
 
     model: Literal["proportional", "absolute", "robust"] = "proportional"
     sigma: HalfNormalPrior = HalfNormalPrior(scale=0.2)
+    per_species: bool = False
     nu: Annotated[float, Field(gt=1.0, le=1000.0)] = 4.0
 
 
@@ -113,17 +147,22 @@ class StudyFile(Strict):
     title: str = ""
     units: Units
     data: DataFiles
+    species: tuple[Annotated[str, Field(pattern=r"^[A-Za-z][A-Za-z0-9_]*$", max_length=32)], ...] = ()
     reactions: Annotated[tuple[Reaction, ...], Field(min_length=1)]
+    initial_uncertainty: dict[str, Annotated[float, Field(gt=0.0, le=2.0)]] = Field(default_factory=dict)
     reference_temperature: Literal["auto"] | float | str = "auto"
     noise: Noise = Noise()
     sampling: Sampling = Sampling()
     report: Report = Report()
 
     @model_validator(mode="after")
-    def _unique_reaction_names(self) -> StudyFile:
+    def _unique_names(self) -> StudyFile:
         seen: set[str] = set()
         for index, reaction in enumerate(self.reactions):
             if reaction.name in seen:
                 raise ValueError(f"reactions[{index}].name: '{reaction.name}' is used twice")
             seen.add(reaction.name)
+        if len(set(self.species)) != len(self.species):
+            twice = next(name for name in self.species if self.species.count(name) > 1)
+            raise ValueError(f"species: '{twice}' is listed twice")
         return self

@@ -10,6 +10,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Literal
 
+from .network import Network
 from .schema import Noise, Sampling, Units
 
 Mode = Literal["rate_constants", "network"]
@@ -30,13 +31,40 @@ class ArrheniusPrior:
 
 
 @dataclass(frozen=True)
+class EquilibriumPrior:
+    """Priors of a reversible step's equilibrium constant about T_ref (van 't Hoff).
+
+    ln K_ref ~ Normal(ln_eq_ref_mean, ln_eq_ref_sd), K_c in concentration^(delta n);
+    dH ~ Normal(dh_mean, dh_sd), reaction enthalpy in J/mol.
+    """
+
+    ln_eq_ref_mean: float
+    ln_eq_ref_sd: float
+    dh_mean: float
+    dh_sd: float
+
+
+@dataclass(frozen=True)
+class FittedOrder:
+    """A forward order given a uniform prior on [lower, upper]."""
+
+    species: str
+    lower: float
+    upper: float
+
+
+@dataclass(frozen=True)
 class ReactionSpec:
-    """One reaction of the study."""
+    """One reaction of the study; ``k_unit`` is the unit of its k_ref and A."""
 
     name: str
     equation: str | None
     rate_law: str
     prior: ArrheniusPrior
+    k_unit: str
+    equilibrium: EquilibriumPrior | None = None
+    eq_unit: str = ""
+    fitted_orders: tuple[FittedOrder, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -55,6 +83,10 @@ class Study:
     sampling: Sampling
     k_at_K: tuple[float, ...]
     canonical: dict
+    species: tuple[str, ...] = ()
+    network: Network | None = None
+    initial_uncertainty: tuple[tuple[str, float], ...] = ()
+    warnings: tuple[str, ...] = ()
 
     @property
     def reaction_names(self) -> tuple[str, ...]:

@@ -14,7 +14,7 @@ import xarray as xr
 
 from . import units
 from .arrhenius import linearised_fit, ln_pre_exponential, ln_rate_constant, two_point_estimate
-from .data import RateConstantData
+from .data import Observations, RateConstantData
 from .study import Study
 
 SUMMARY_COLUMNS = ["parameter", "unit", "mean", "sd", "median", "q05", "q95", "ess_bulk", "ess_tail", "r_hat"]
@@ -28,26 +28,51 @@ def temperature_label(kelvin: float, unit: str) -> str:
 def derived_quantities(
     study: Study, posterior: xr.Dataset, temperature_ref: float
 ) -> dict[str, tuple[str, xr.DataArray]]:
-    """Draws of every reported quantity, by name, with its unit: k_ref, Ea, A, k at named temperatures, sigma."""
-    energy, k_unit = study.units.energy, study.units.rate_constant or ""
+    """Draws of every reported quantity, by name, with its unit.
+
+    Per reaction: k_ref, Ea, A and k at the study's ``report.k_at`` temperatures; per reversible step K_ref
+    (K_c at T_ref) and dH; fitted orders; uncertain initial concentrations; the noise scale(s).
+    """
+    energy = study.units.energy
     quantities: dict[str, tuple[str, xr.DataArray]] = {}
-    for name in study.reaction_names:
+    for spec in study.reactions:
+        name = spec.name
         ln_k_ref = posterior["ln_k_ref"].sel(reaction=name, drop=True)
         ea = posterior["Ea"].sel(reaction=name, drop=True)
-        quantities[f"k_ref[{name}]"] = (k_unit, np.exp(ln_k_ref))
+        quantities[f"k_ref[{name}]"] = (spec.k_unit, np.exp(ln_k_ref))
         quantities[f"Ea[{name}]"] = (energy, units.joule_per_mol_to(ea, energy))
-        quantities[f"A[{name}]"] = (k_unit, np.exp(ln_pre_exponential(ln_k_ref, ea, temperature_ref)))
+        quantities[f"A[{name}]"] = (spec.k_unit, np.exp(ln_pre_exponential(ln_k_ref, ea, temperature_ref)))
         for kelvin in study.k_at_K:
             label = f"k[{name}, {temperature_label(kelvin, study.units.temperature)}]"
-            quantities[label] = (k_unit, np.exp(ln_rate_constant(kelvin, ln_k_ref, ea, temperature_ref)))
+            quantities[label] = (spec.k_unit, np.exp(ln_rate_constant(kelvin, ln_k_ref, ea, temperature_ref)))
+        if spec.equilibrium is not None:
+            quantities[f"K_ref[{name}]"] = (spec.eq_unit, np.exp(posterior["ln_K_ref"].sel(reversible=name, drop=True)))
+            quantities[f"dH[{name}]"] = (
+                energy,
+                units.joule_per_mol_to(posterior["dH"].sel(reversible=name, drop=True), energy),
+            )
+        for fitted in spec.fitted_orders:
+            label = f"{name}:{fitted.species}"
+            quantities[f"order[{label}]"] = ("", posterior["order"].sel(fitted_order=label, drop=True))
+    if "initial" in posterior:
+        for run in posterior["initial"].coords["run"].values:
+            for species in posterior["initial"].coords["uncertain_species"].values:
+                draws = posterior["initial"].sel(run=run, uncertain_species=species, drop=True)
+                quantities[f"initial[{run}, {species}]"] = (study.units.concentration or "", draws)
     if "sigma" in posterior:
-        quantities["sigma"] = ("ln units" if study.mode == "rate_constants" else "", posterior["sigma"])
+        unit = study.units.concentration if study.noise.model == "absolute" else "log units"
+        sigma = posterior["sigma"]
+        if "observed_species" in sigma.dims:
+            for species in sigma.coords["observed_species"].values:
+                quantities[f"sigma[{species}]"] = (unit or "", sigma.sel(observed_species=species, drop=True))
+        else:
+            quantities["sigma"] = (unit or "", sigma)
     return quantities
 
 
-def extrapolation_notes(study: Study, data: RateConstantData) -> list[str]:
+def extrapolation_notes(study: Study, measured_K: np.ndarray) -> list[str]:
     """One sentence for every reported temperature outside the measured range, saying how far outside."""
-    low, high = float(data.temperature_K.min()), float(data.temperature_K.max())
+    low, high = float(np.min(measured_K)), float(np.max(measured_K))
     unit = study.units.temperature
     notes = []
     for kelvin in study.k_at_K:
@@ -153,24 +178,45 @@ def classical_table(study: Study, data: RateConstantData) -> pd.DataFrame:
     )
 
 
-def rate_constant_fit_checks(study: Study, data: RateConstantData, idata: az.InferenceData) -> pd.DataFrame:
-    """Per measurement: observed k, posterior predictive median and 90 % interval of k, and whether it is inside.
-
-    Columns: measurement, line, reaction, temperature, observed, median, q05, q95, inside_90.
-    """
-    predicted = np.exp(idata.posterior_predictive["observation"].stack(sample=("chain", "draw")).values)
+def predictive_intervals(observed: np.ndarray, idata: az.InferenceData) -> pd.DataFrame:
+    """Observed value, posterior predictive median and 90 % interval, and whether the value lies inside."""
+    predicted = idata.posterior_predictive["observation"].stack(sample=("chain", "draw")).values
     q05, median, q95 = np.quantile(predicted, [0.05, 0.5, 0.95], axis=-1)
-    names = np.array(study.reaction_names)
     return pd.DataFrame(
+        {
+            "observed": observed,
+            "median": median,
+            "q05": q05,
+            "q95": q95,
+            "inside_90": (observed >= q05) & (observed <= q95),
+        }
+    )
+
+
+def rate_constant_fit_checks(study: Study, data: RateConstantData, idata: az.InferenceData) -> pd.DataFrame:
+    """Columns: measurement, line, reaction, temperature, observed, median, q05, q95, inside_90 (k in its unit)."""
+    names = np.array(study.reaction_names)
+    labels = pd.DataFrame(
         {
             "measurement": np.arange(data.k.size),
             "line": data.line,
             "reaction": names[data.reaction_index],
             "temperature": units.kelvin_to(data.temperature_K, study.units.temperature),
-            "observed": data.k,
-            "median": median,
-            "q05": q05,
-            "q95": q95,
-            "inside_90": (data.k >= q05) & (data.k <= q95),
         }
     )
+    return pd.concat([labels, predictive_intervals(data.k, idata)], axis=1)
+
+
+def network_fit_checks(study: Study, obs: Observations, idata: az.InferenceData) -> pd.DataFrame:
+    """Columns: measurement, line, run, temperature, time, species, observed, median, q05, q95, inside_90."""
+    labels = pd.DataFrame(
+        {
+            "measurement": np.arange(obs.value.size),
+            "line": obs.line,
+            "run": np.array(obs.run_ids)[obs.run_index],
+            "temperature": units.kelvin_to(obs.temperature_K[obs.run_index], study.units.temperature),
+            "time": obs.time,
+            "species": np.array(study.species)[obs.species_index],
+        }
+    )
+    return pd.concat([labels, predictive_intervals(obs.value, idata)], axis=1)

@@ -24,7 +24,7 @@ _DIMENSIONS = {
     "energy": "[mass] * [length] ** 2 / [time] ** 2 / [substance]",
 }
 
-_EXAMPLES = {
+EXAMPLES = {
     "temperature": "K, degC, degF or degR",
     "time": "s, min or h",
     "concentration": "mol/L, mmol/L or mol/m^3",
@@ -49,7 +49,7 @@ def parse_unit(text: str, kind: str, where: str) -> pint.Unit:
     try:
         unit = ureg.Unit(text.strip())
     except Exception:
-        raise StudyError(where, f"'{text}' is not a unit I know", f"use e.g. {_EXAMPLES[kind]}") from None
+        raise StudyError(where, f"'{text}' is not a unit I know", f"use e.g. {EXAMPLES[kind]}") from None
     if kind == "rate_constant":
         # k of any reaction order: concentration^(1-n) / time, so it must at least carry 1/time.
         dims = dict(unit.dimensionality)
@@ -60,7 +60,7 @@ def parse_unit(text: str, kind: str, where: str) -> pint.Unit:
         raise StudyError(
             where,
             f"'{text}' is not a {kind.replace('_', ' ')} unit (its dimension is {unit.dimensionality})",
-            f"use e.g. {_EXAMPLES[kind]}",
+            f"use e.g. {EXAMPLES[kind]}",
         )
     return unit
 

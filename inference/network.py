@@ -1,0 +1,128 @@
+"""Reaction networks: parse chemical equations, and build stoichiometry and order matrices.
+
+Pure Python and numpy. An equation is ``A + B -> C`` (irreversible), ``2 A <=> D`` (reversible); coefficients
+are positive numbers before a species name. Species names start with a letter and may contain letters,
+digits and underscores.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+
+import numpy as np
+
+_TERM = re.compile(r"^\s*(?:(\d+(?:\.\d+)?)\s*\*?\s*)?([A-Za-z][A-Za-z0-9_]*)\s*$")
+ARROWS = ("<=>", "->")
+
+
+class EquationError(ValueError):
+    """An equation that does not parse; the message says what is wrong (without location)."""
+
+
+@dataclass(frozen=True)
+class Equation:
+    """A parsed equation: coefficients of reactants and products, and whether it is reversible."""
+
+    reactants: tuple[tuple[str, float], ...]
+    products: tuple[tuple[str, float], ...]
+    reversible: bool
+
+    @property
+    def species(self) -> tuple[str, ...]:
+        seen: dict[str, None] = {}
+        for name, _ in self.reactants + self.products:
+            seen[name] = None
+        return tuple(seen)
+
+
+def _side(text: str, side: str) -> tuple[tuple[str, float], ...]:
+    if not text.strip():
+        return ()
+    terms: dict[str, float] = {}
+    for part in text.split("+"):
+        match = _TERM.match(part)
+        if match is None:
+            raise EquationError(f"cannot read '{part.strip()}' on the {side} side (write e.g. '2 A' or 'B')")
+        coefficient = float(match.group(1)) if match.group(1) else 1.0
+        if coefficient <= 0:
+            raise EquationError(f"coefficient of '{match.group(2)}' must be positive")
+        terms[match.group(2)] = terms.get(match.group(2), 0.0) + coefficient
+    return tuple(terms.items())
+
+
+def parse_equation(text: str) -> Equation:
+    """Parse ``text``; raises ``EquationError`` for a missing arrow, an unreadable term or no reactants."""
+    arrows = [a for a in ARROWS if a in text]
+    if not arrows:
+        raise EquationError("no arrow: use '->' for an irreversible step or '<=>' for a reversible one")
+    arrow = arrows[0]
+    if text.count(arrow) != 1 or (arrow == "<=>" and "->" in text.replace("<=>", "")):
+        raise EquationError("an equation has exactly one arrow")
+    left, right = text.split(arrow)
+    reactants, products = _side(left, "left"), _side(right, "right")
+    if not reactants:
+        raise EquationError("no reactants on the left of the arrow")
+    if arrow == "<=>" and not products:
+        raise EquationError("a reversible reaction needs products")
+    return Equation(reactants, products, arrow == "<=>")
+
+
+@dataclass(frozen=True)
+class Network:
+    """Matrices of a network of R reactions in N species (rows: reactions, columns: species).
+
+    stoichiometry[j, i]: net moles of species i made per unit extent of reaction j (negative if consumed);
+    forward_orders[j, i]: order of the forward rate in species i (mass action: reactant coefficients);
+    reverse_orders[j, i]: order of the reverse rate (mass action: product coefficients);
+    reversible[j]: whether reaction j has a reverse rate k_j / K_j.
+    """
+
+    species: tuple[str, ...]
+    reactions: tuple[str, ...]
+    stoichiometry: np.ndarray
+    forward_orders: np.ndarray
+    reverse_orders: np.ndarray
+    reversible: np.ndarray
+
+    @property
+    def overall_forward_order(self) -> np.ndarray:
+        return self.forward_orders.sum(axis=1)
+
+    @property
+    def reaction_count_change(self) -> np.ndarray:
+        """Delta n of each reaction (sum of stoichiometric coefficients): the concentration power of K_c."""
+        return self.stoichiometry.sum(axis=1)
+
+
+def build_network(
+    species: tuple[str, ...],
+    reactions: tuple[str, ...],
+    equations: tuple[Equation, ...],
+    orders: tuple[dict[str, float], ...] | None = None,
+) -> Network:
+    """Matrices from parsed equations; every species named must be in ``species`` (checked by the caller).
+
+    ``orders`` optionally gives each reaction's forward orders by species (power laws); by default they are
+    the reactants' stoichiometric coefficients (mass action).
+    """
+    index = {name: i for i, name in enumerate(species)}
+    shape = (len(equations), len(species))
+    stoichiometry, forward, reverse = np.zeros(shape), np.zeros(shape), np.zeros(shape)
+    for j, equation in enumerate(equations):
+        for name, coefficient in equation.reactants:
+            stoichiometry[j, index[name]] -= coefficient
+            forward[j, index[name]] = coefficient
+        for name, coefficient in equation.products:
+            stoichiometry[j, index[name]] += coefficient
+            reverse[j, index[name]] = coefficient
+    if orders is not None:
+        forward[:] = 0.0
+        for j, by_species in enumerate(orders):
+            for name, order in by_species.items():
+                forward[j, index[name]] = order
+    reversible = np.array([e.reversible for e in equations], dtype=bool)
+    reverse[~reversible] = 0.0
+    for matrix in (stoichiometry, forward, reverse, reversible):
+        matrix.setflags(write=False)
+    return Network(species, reactions, stoichiometry, forward, reverse, reversible)

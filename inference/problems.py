@@ -1,0 +1,285 @@
+"""The two kinds of study, behind one small interface the pipeline drives.
+
+``RateConstantProblem``: measured rate constants, the Arrhenius fit alone. ``NetworkProblem``: a reaction
+network fitted to concentration-time data from batch runs. Each reads and checks its data, builds its model
+(importing PyMC only then), and makes its own tables and figures. Nothing here writes files except through
+the ``StagedFolder`` it is handed.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Protocol
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from . import closed_form, plots, units
+from .arrhenius import ln_rate_constant
+from .data import Observations, RateConstantData, read_observations, read_rate_constants
+from .solution import NetworkSolver, SolverFailure
+from .study import Study
+from .summaries import classical_table, network_fit_checks, rate_constant_fit_checks
+
+if TYPE_CHECKING:
+    import arviz as az
+    import pymc as pm
+
+    from .results import StagedFolder
+
+#: Posterior draws used for the profile bands of the run figures.
+PROFILE_DRAWS = 200
+PROFILE_POINTS = 121
+
+
+class Problem(Protocol):
+    study: Study
+
+    @property
+    def temperatures_K(self) -> np.ndarray: ...
+
+    def summary_line(self) -> str: ...
+
+    def check_lines(self) -> list[str]: ...
+
+    def build_model(self, temperature_ref: float) -> pm.Model: ...
+
+    def kinetic_var_names(self, idata: az.InferenceData) -> list[str]: ...
+
+    def fit_checks(self, idata: az.InferenceData) -> pd.DataFrame: ...
+
+    def extra_tables(self) -> dict[str, pd.DataFrame]: ...
+
+    def figures(
+        self, folder: StagedFolder, idata: az.InferenceData, temperature_ref: float, fit_checks: pd.DataFrame
+    ) -> None: ...
+
+
+def open_problem(study: Study) -> Problem:
+    """Read and check the study's data and return the problem that fits it."""
+    if study.mode == "rate_constants":
+        return RateConstantProblem(study, read_rate_constants(study))
+    return NetworkProblem(study, read_observations(study))
+
+
+def _prior_lines(study: Study) -> list[str]:
+    energy = study.units.energy
+    lines = []
+    for spec in study.reactions:
+        p = spec.prior
+        line = (
+            f"    {spec.name}: {spec.equation + ', ' if spec.equation else ''}{spec.rate_law}; k_ref ~ lognormal("
+            f"median {math.exp(p.ln_k_ref_mean):.4g} {spec.k_unit}, x/÷ {math.exp(p.ln_k_ref_sd * 1.959964):.3g}"
+            f" at 95 %); Ea ~ normal({units.joule_per_mol_to(p.ea_mean, energy):.4g}, sd "
+            f"{units.joule_per_mol_to(p.ea_sd, energy):.4g} {energy}) truncated > 0"
+        )
+        if spec.equilibrium is not None:
+            q = spec.equilibrium
+            line += (
+                f"; K_ref ~ lognormal(median {math.exp(q.ln_eq_ref_mean):.4g} {spec.eq_unit}); dH ~ normal("
+                f"{units.joule_per_mol_to(q.dh_mean, energy):.4g}, sd {units.joule_per_mol_to(q.dh_sd, energy):.4g}"
+                f" {energy})"
+            )
+        for fitted in spec.fitted_orders:
+            line += f"; order in {fitted.species} ~ uniform({fitted.lower:g}, {fitted.upper:g})"
+        lines.append(line)
+    return lines
+
+
+def _temperature_lines(study: Study, measured_K: np.ndarray) -> list[str]:
+    from .arrhenius import auto_reference_temperature
+
+    unit = study.units.temperature
+    low, high = units.kelvin_to([np.min(measured_K), np.max(measured_K)], unit)
+    reference = study.reference_temperature_K or auto_reference_temperature(measured_K)
+    source = "auto, 1/mean(1/T)" if study.reference_temperature_K is None else "from the study file"
+    return [
+        f"  temperatures: {low:g} to {high:g} {unit} ({np.unique(measured_K).size} distinct)",
+        f"  T_ref = {reference:.2f} K = {float(units.kelvin_to(reference, unit)):.2f} {unit} ({source})",
+    ]
+
+
+def _noise_line(study: Study) -> str:
+    noise = study.noise
+    scope = "one per observed species" if noise.per_species else "shared"
+    return f"  noise: {noise.model}, sigma ~ half-normal(scale {noise.sigma.scale:g}), {scope}" + (
+        f", nu = {noise.nu:g}" if noise.model == "robust" else ""
+    )
+
+
+@dataclass(frozen=True)
+class RateConstantProblem:
+    study: Study
+    data: RateConstantData
+
+    @property
+    def temperatures_K(self) -> np.ndarray:
+        return self.data.temperature_K
+
+    def summary_line(self) -> str:
+        return f"{len(self.study.reactions)} reaction(s), {self.data.k.size} measured rate constants"
+
+    def check_lines(self) -> list[str]:
+        lines = [f"  data: {self.data.k.size} measured rate constants from {self.data.path}"]
+        lines += _temperature_lines(self.study, self.temperatures_K)
+        lines += ["  reactions:", *_prior_lines(self.study)]
+        if self.data.ln_k_sd is not None:
+            lines.append("  noise: per-point errors stated in the data file (sd of ln k)")
+        else:
+            lines.append(_noise_line(self.study))
+        return lines
+
+    def build_model(self, temperature_ref: float) -> pm.Model:
+        from .model import build_rate_constant_model
+
+        return build_rate_constant_model(self.study, self.data, temperature_ref)
+
+    def kinetic_var_names(self, idata: az.InferenceData) -> list[str]:
+        return [n for n in ("ln_k_ref", "Ea", "sigma") if n in idata.posterior]
+
+    def fit_checks(self, idata: az.InferenceData) -> pd.DataFrame:
+        return rate_constant_fit_checks(self.study, self.data, idata)
+
+    def extra_tables(self) -> dict[str, pd.DataFrame]:
+        return {"classical.csv": classical_table(self.study, self.data)}
+
+    def figures(
+        self, folder: StagedFolder, idata: az.InferenceData, temperature_ref: float, fit_checks: pd.DataFrame
+    ) -> None:
+        plots.arrhenius_plot(
+            self.study,
+            idata.posterior,
+            temperature_ref,
+            self.temperatures_K,
+            folder.path("figures/arrhenius.png"),
+            data=self.data,
+        )
+
+
+@dataclass(frozen=True)
+class NetworkProblem:
+    study: Study
+    obs: Observations
+
+    @property
+    def temperatures_K(self) -> np.ndarray:
+        return self.obs.temperature_K
+
+    def summary_line(self) -> str:
+        return (
+            f"{len(self.study.reactions)} reaction(s) in {len(self.study.species)} species, "
+            f"{len(self.obs.run_ids)} runs, {self.obs.value.size} measurements"
+        )
+
+    def check_lines(self) -> list[str]:
+        study, obs = self.study, self.obs
+        observed = [study.species[i] for i in obs.observed_species]
+        hidden = [s for s in study.species if s not in observed]
+        kind = closed_form.closed_form_kind(study.network)
+        lines = [
+            f"  species: {', '.join(study.species)} (measured: {', '.join(observed)}"
+            + (f"; not measured: {', '.join(hidden)})" if hidden else ")"),
+            f"  data: {len(obs.run_ids)} runs from {obs.runs_path}, {obs.value.size} measurements from "
+            f"{obs.measurements_path}",
+        ]
+        lines += _temperature_lines(study, self.temperatures_K)
+        lines += ["  reactions:", *_prior_lines(study)]
+        if study.initial_uncertainty:
+            lines.append(
+                "  uncertain initial concentrations: "
+                + ", ".join(f"{name} (±{share:.0%} lognormal)" for name, share in study.initial_uncertainty)
+            )
+        lines.append(_noise_line(study))
+        lines.append(
+            "  profiles: "
+            + (
+                f"closed form ({kind})"
+                if kind and not study.initial_uncertainty
+                else "ODE solver (LSODA) with forward sensitivities"
+            )
+        )
+        return lines
+
+    def build_model(self, temperature_ref: float) -> pm.Model:
+        from .model import build_network_model
+
+        return build_network_model(self.study, self.obs, temperature_ref)
+
+    def kinetic_var_names(self, idata: az.InferenceData) -> list[str]:
+        names = ("ln_k_ref", "Ea", "ln_K_ref", "dH", "order", "initial", "sigma")
+        return [n for n in names if n in idata.posterior]
+
+    def fit_checks(self, idata: az.InferenceData) -> pd.DataFrame:
+        return network_fit_checks(self.study, self.obs, idata)
+
+    def extra_tables(self) -> dict[str, pd.DataFrame]:
+        return {}
+
+    def profiles(
+        self, posterior: xr.Dataset, temperature_ref: float, times: list[np.ndarray], n_draws: int = PROFILE_DRAWS
+    ) -> list[np.ndarray]:
+        """Concentration profiles of every run for ``n_draws`` evenly spread posterior draws:
+        a list over runs of arrays (draws, times, species); NaN where the solver failed for a draw."""
+        study, obs = self.study, self.obs
+        stacked = posterior.stack(sample=("chain", "draw"))
+        total = stacked.sizes["sample"]
+        picks = np.unique(np.linspace(0, total - 1, min(n_draws, total)).astype(int))
+        network = study.network
+        temperature = obs.temperature_K[:, None]
+        kind = closed_form.closed_form_kind(network)
+        use_closed = kind is not None and not study.initial_uncertainty
+        solver = None
+        if not use_closed:
+            solver = NetworkSolver(network, times)
+        reversible = [r.name for r in study.reactions if r.equilibrium is not None]
+        fitted = [
+            (j, study.species.index(f.species), f"{r.name}:{f.species}")
+            for j, r in enumerate(study.reactions)
+            for f in r.fitted_orders
+        ]
+        out = [np.full((picks.size, t.size, len(study.species)), np.nan) for t in times]
+        for d, pick in enumerate(picks):
+            draw = stacked.isel(sample=pick)
+            ln_k = ln_rate_constant(
+                temperature, draw["ln_k_ref"].values[None, :], draw["Ea"].values[None, :], temperature_ref
+            )
+            initial = obs.initial.copy()
+            if "initial" in draw:
+                for g, (name, _) in enumerate(study.initial_uncertainty):
+                    initial[:, study.species.index(name)] = draw["initial"].values[:, g]
+            if use_closed:
+                for r, t in enumerate(times):
+                    out[r][d] = closed_form.concentrations(kind, network, initial[r], math.exp(ln_k[r, 0]), t[:, None])
+                continue
+            ln_eq = np.zeros((len(obs.run_ids), 0))
+            if reversible:
+                ln_eq = ln_rate_constant(
+                    temperature, draw["ln_K_ref"].values[None, :], draw["dH"].values[None, :], temperature_ref
+                )
+            orders = np.array(network.forward_orders)
+            for j, i, label in fitted:
+                orders[j, i] = float(draw["order"].sel(fitted_order=label))
+            try:
+                solution = solver.solve(ln_k, ln_eq, orders, initial, sensitivities=False)
+            except SolverFailure:
+                continue
+            for r in range(len(times)):
+                out[r][d] = solution.concentrations[r]
+        return out
+
+    def figures(
+        self, folder: StagedFolder, idata: az.InferenceData, temperature_ref: float, fit_checks: pd.DataFrame
+    ) -> None:
+        obs = self.obs
+        plots.arrhenius_plot(
+            self.study, idata.posterior, temperature_ref, self.temperatures_K, folder.path("figures/arrhenius.png")
+        )
+        times = [np.linspace(0.0, float(t.max()), PROFILE_POINTS) for t in obs.times]
+        curves = self.profiles(idata.posterior, temperature_ref, times)
+        for r, run in enumerate(obs.run_ids):
+            safe = "".join(ch if ch.isalnum() or ch in "-_." else "_" for ch in run)
+            plots.run_fit_plot(
+                self.study, obs, r, times[r], curves[r], fit_checks, folder.path(f"figures/run_{safe}.png")
+            )
