@@ -1,8 +1,13 @@
-"""The bundled demo: an invented scenario, simulated from stated true parameters with a fixed seed.
+"""The bundled demo: invented scenarios, simulated from stated true parameters with fixed seeds.
 
-Scenario (invented for Arrhenia, no real compound): the first-order thermal ring closure of a substrate we
-call "Z-17" in an inert solvent, its rate constant measured in triplicate at six temperatures from 40 to 90 degC.
-The measured values scatter about the true Arrhenius line with 8 % lognormal error.
+Network scenario (invented for Arrhenia; no real compounds): an amine B couples with a chloro compound A to
+the product C (A + B -> C, second order), and C slowly degrades to D (C -> D, first order). Five isothermal
+batch runs from 40 to 80 degC with different initial A and B; A, C and D are sampled by HPLC with 4 %
+lognormal error, B is not measured. Profiles are integrated with ``scipy.integrate.solve_ivp`` (Radau,
+rtol 1e-10), independently of Arrhenia's own solver.
+
+Rate-constant scenario (invented): the first-order ring closure of a substrate "Z-17", k measured in
+triplicate at six temperatures from 40 to 90 degC with 8 % lognormal scatter.
 
 ``data_demo/generate.py`` calls ``write_demo`` to regenerate the committed copy in ``data_demo/``;
 ``arrhenia demo`` calls it to write the same files wherever the user asks.
@@ -13,11 +18,28 @@ from __future__ import annotations
 from pathlib import Path
 
 import numpy as np
+from scipy.integrate import solve_ivp
 
 from .arrhenius import ln_rate_constant
 
-SEED = 20261201
-TRUE_EA_J_PER_MOL = 78_000.0  # 78 kJ/mol
+NETWORK_SEED = 20261202
+T_REF_K = 333.15  # 60 degC, where the true k values below are stated
+TRUE_NETWORK = {  # reaction: (k at 60 degC, Ea in J/mol)
+    "coupling": (0.080, 62_000.0),  # L/(mol min)
+    "degradation": (0.0040, 88_000.0),  # 1/min
+}
+NETWORK_NOISE = 0.04
+RUNS = (  # run id, degC, A0, B0 (mol/L)
+    ("R40", 40.0, 0.50, 0.75),
+    ("R50", 50.0, 0.50, 0.60),
+    ("R60", 60.0, 0.40, 0.80),
+    ("R70", 70.0, 0.60, 0.70),
+    ("R80", 80.0, 0.50, 0.65),
+)
+SAMPLES_PER_RUN = 12
+
+RATE_SEED = 20261201
+TRUE_EA_J_PER_MOL = 78_000.0  # ring closure: 78 kJ/mol
 TRUE_T_REF_K = 338.15  # 65 degC
 TRUE_K_REF_PER_MIN = 0.012  # k at 65 degC, 1/min
 RELATIVE_NOISE = 0.08
@@ -25,17 +47,46 @@ TEMPERATURES_DEGC = (40.0, 50.0, 60.0, 70.0, 80.0, 90.0)
 REPLICATES = 3
 
 STUDY_FILE = "study.yaml"
+RUNS_FILE = "runs.csv"
+MEASUREMENTS_FILE = "measurements.csv"
+RATE_STUDY_FILE = "rate_constants.yaml"
 RATE_CONSTANTS_FILE = "rate_constants.csv"
 
 STUDY_TEXT = """\
-# Demo study of Arrhenia: an invented first-order ring closure of "Z-17", measured at six temperatures.
+# Demo study of Arrhenia: an invented coupling A + B -> C with consecutive degradation C -> D.
+# Data simulated by inference/demo.py (seed 20261202). True values at 60 degC:
+#   coupling    k = 0.080 L/(mol min), Ea = 62 kJ/mol;  degradation k = 0.0040 1/min, Ea = 88 kJ/mol.
+study: demo-coupling
+title: Coupling of A and B with degradation of the product (invented demo data)
+units: {time: min, temperature: degC, concentration: mol/L, energy: kJ/mol}
+data:
+  runs: runs.csv                  # run, temperature, initial A, B, C, D
+  measurements: measurements.csv  # wide layout: run, time, A, C, D (B is not measured)
+species: [A, B, C, D]
+reactions:
+  - name: coupling
+    equation: A + B -> C
+    rate_law: mass_action
+    k_ref: {median: 0.05, factor: 20}     # L/(mol min) at T_ref
+    Ea: {mean: 70, sd: 30}                # kJ/mol
+  - name: degradation
+    equation: C -> D
+    rate_law: mass_action
+    k_ref: {median: 0.005, factor: 20}    # 1/min at T_ref
+    Ea: {mean: 80, sd: 30}
+reference_temperature: auto
+noise: {model: proportional, sigma: {scale: 0.2}}
+sampling: {draws: 500, tune: 500, chains: 4, seed: 1, target_accept: 0.9}
+report:
+  k_at: [25, 60]                          # degC; 25 degC lies outside the data and is flagged
+"""
+
+RATE_STUDY_TEXT = """\
+# Rate-constant example of Arrhenia: an invented first-order ring closure of "Z-17".
 # Data simulated by inference/demo.py (seed 20261201; true Ea = 78 kJ/mol, k(65 degC) = 0.012 1/min).
 study: demo-ring-closure
 title: Ring closure of Z-17 (invented demo data)
-units:
-  temperature: degC
-  energy: kJ/mol
-  rate_constant: 1/min
+units: {temperature: degC, energy: kJ/mol, rate_constant: 1/min}
 data:
   rate_constants: rate_constants.csv
 reactions:
@@ -50,7 +101,7 @@ report:
 """
 
 
-def simulate_rate_constants(seed: int = SEED) -> list[tuple[float, float]]:
+def simulate_rate_constants(seed: int = RATE_SEED) -> list[tuple[float, float]]:
     """(temperature in degC, k in 1/min) for every replicate, from the true parameters and the seed."""
     rng = np.random.default_rng(seed)
     rows = []
@@ -61,11 +112,48 @@ def simulate_rate_constants(seed: int = SEED) -> list[tuple[float, float]]:
     return rows
 
 
+def true_rate_constants(celsius: float) -> tuple[float, float]:
+    """(k_coupling, k_degradation) of the demo at a temperature in degC, from the true parameters."""
+    kelvin = celsius + 273.15
+    return tuple(float(np.exp(ln_rate_constant(kelvin, np.log(k), ea, T_REF_K))) for k, ea in TRUE_NETWORK.values())
+
+
+def _profile(k1: float, k2: float, a0: float, b0: float, times: np.ndarray) -> np.ndarray:
+    def rates(t, c):
+        r1, r2 = k1 * c[0] * c[1], k2 * c[2]
+        return [-r1, -r1, r1 - r2, r2]
+
+    solution = solve_ivp(rates, (0.0, float(times[-1])), [a0, b0, 0.0, 0.0], t_eval=times, method="Radau",
+                         rtol=1e-10, atol=1e-13)
+    return solution.y.T
+
+
+def simulate_network(seed: int = NETWORK_SEED) -> tuple[list[str], list[str]]:
+    """Lines of runs.csv and measurements.csv (wide layout; B not measured)."""
+    rng = np.random.default_rng(seed)
+    runs = ["run,temperature,A,B,C,D"]
+    measurements = ["run,time,A,C,D"]
+    for run, celsius, a0, b0 in RUNS:
+        runs.append(f"{run},{celsius:g},{a0:g},{b0:g},0,0")
+        k1, k2 = true_rate_constants(celsius)
+        # Sample until about 90 % of A is gone (second order with B in excess), spaced to see the start.
+        t90 = np.log((b0 - 0.1 * a0) / (0.1 * b0)) / (k1 * (b0 - a0))
+        times = np.round(t90 * np.geomspace(0.03, 1.3, SAMPLES_PER_RUN), 2)
+        profile = _profile(k1, k2, a0, b0, times)
+        for t, (a, _, c, d) in zip(times, profile, strict=True):
+            noisy = np.array([a, c, d]) * np.exp(NETWORK_NOISE * rng.standard_normal(3))
+            measurements.append(f"{run},{t:g}," + ",".join(f"{v:.5g}" for v in noisy))
+    return runs, measurements
+
+
 def write_demo(folder: Path) -> Path:
-    """Write the demo study file and its data into ``folder``; returns the study file's path."""
+    """Write both demo studies and their data into ``folder``; returns the network study's path."""
     folder.mkdir(parents=True, exist_ok=True)
+    runs, measurements = simulate_network()
+    (folder / RUNS_FILE).write_text("\n".join(runs) + "\n")
+    (folder / MEASUREMENTS_FILE).write_text("\n".join(measurements) + "\n")
+    (folder / STUDY_FILE).write_text(STUDY_TEXT)
     lines = ["temperature,k"] + [f"{t:g},{k:.6g}" for t, k in simulate_rate_constants()]
     (folder / RATE_CONSTANTS_FILE).write_text("\n".join(lines) + "\n")
-    study = folder / STUDY_FILE
-    study.write_text(STUDY_TEXT)
-    return study
+    (folder / RATE_STUDY_FILE).write_text(RATE_STUDY_TEXT)
+    return folder / STUDY_FILE

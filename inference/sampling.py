@@ -7,9 +7,16 @@ import os
 import warnings
 
 import arviz as az
+import numpy as np
 import pymc as pm
+from pymc.blocking import DictToArrayBijection, RaveledVars
+from pymc.step_methods.hmc.quadpotential import QuadPotentialDiagAdapt
+from scipy.optimize import minimize
 
 from .schema import Sampling
+
+#: Weight, in draws, of the Laplace variances in the first window of mass-matrix adaptation.
+LAPLACE_WEIGHT = 10
 
 
 def quiet_backend_logs() -> None:
@@ -30,6 +37,47 @@ def chains_in_parallel(chains: int) -> int:
     return max(1, min(chains, os.cpu_count() or 1))
 
 
+def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], QuadPotentialDiagAdapt] | None:
+    """Starting points and an initial mass matrix from the posterior mode and its curvature.
+
+    Priors are standardised, but posteriors are often hundreds of times narrower than priors; NUTS would spend
+    most of its tuning shrinking its step to that scale. So the mode is found with BFGS (exact gradients) and
+    its inverse-Hessian approximation seeds the diagonal mass matrix; each chain starts from the mode moved by
+    one approximate posterior sd in a random direction (seeded), so chains still start apart.
+    Returns None when the optimiser fails, and PyMC's default initialisation is used instead.
+    """
+    start = model.initial_point(random_seed=settings.seed)
+    names = [v.name for v in model.value_vars]
+    mapped = DictToArrayBijection.map({name: start[name] for name in names})
+    logp = model.compile_logp()
+    dlogp = model.compile_dlogp()
+
+    def point(x: np.ndarray) -> dict:
+        return DictToArrayBijection.rmap(RaveledVars(x, mapped.point_map_info))
+
+    def objective(x: np.ndarray) -> tuple[float, np.ndarray]:
+        value = float(logp(point(x)))
+        if not np.isfinite(value):
+            return 1e300, np.zeros_like(x)
+        return -value, -np.asarray(dlogp(point(x)), dtype=float)
+
+    with np.errstate(all="ignore"):
+        found = minimize(objective, mapped.data, jac=True, method="BFGS", options={"maxiter": 400, "gtol": 1e-6})
+    if not np.all(np.isfinite(found.x)) or found.fun >= 1e300:
+        return None
+    variance = np.clip(np.diag(np.atleast_2d(found.hess_inv)), 1e-10, 10.0)
+    rng = np.random.default_rng(settings.seed)
+    starts = []
+    for _ in range(settings.chains):
+        for shrink in (1.0, 0.3, 0.1, 0.0):
+            x = found.x + shrink * np.sqrt(variance) * rng.standard_normal(found.x.size)
+            if np.isfinite(float(logp(point(x)))):
+                break
+        starts.append(point(x))
+    potential = QuadPotentialDiagAdapt(found.x.size, found.x, variance, LAPLACE_WEIGHT)
+    return starts, potential
+
+
 def sample_posterior(model: pm.Model, settings: Sampling, *, progress: bool) -> az.InferenceData:
     """Run NUTS and add the pointwise log-likelihood and the posterior predictive of the observations.
 
@@ -38,16 +86,21 @@ def sample_posterior(model: pm.Model, settings: Sampling, *, progress: bool) -> 
     """
     quiet_backend_logs()
     with model:
+        laplace = laplace_start(model, settings)
+        extra: dict = {"target_accept": settings.target_accept}
+        if laplace is not None:
+            starts, potential = laplace
+            extra = {"initvals": starts, "step": pm.NUTS(potential=potential, target_accept=settings.target_accept)}
         idata = pm.sample(
             draws=settings.draws,
             tune=settings.tune,
             chains=settings.chains,
             cores=chains_in_parallel(settings.chains),
             random_seed=settings.seed,
-            target_accept=settings.target_accept,
             progressbar=progress,
             compute_convergence_checks=False,
             idata_kwargs={"log_likelihood": True},
+            **extra,
         )
         pm.sample_posterior_predictive(
             idata, extend_inferencedata=True, random_seed=settings.seed + 1, progressbar=False

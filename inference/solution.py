@@ -1,19 +1,18 @@
 """Concentration profiles of batch runs with exact parameter sensitivities.
 
-``NetworkSolver`` integrates every run of a study in one call of LSODA (``scipy.integrate.odeint``, which
-switches between non-stiff Adams and stiff BDF formulas), with forward sensitivity equations solved alongside
-the concentrations and numba-compiled right-hand side and Jacobian from ``kinetics``. No PyMC here.
+``NetworkSolver`` integrates every run of a study with the compiled Radau IIA integrator of ``integrator``
+(each run with its own step sizes), returning the concentrations and their sensitivities to ln k, ln K,
+fitted orders and uncertain initial concentrations. No PyMC here.
 """
 
 from __future__ import annotations
 
-import warnings
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.integrate import odeint
 
 from . import kinetics
+from .integrator import DONE, integrate_run
 from .network import Network
 
 
@@ -25,9 +24,9 @@ class SolverFailure(RuntimeError):
 class SolverSettings:
     """Tolerances of the integration: relative, and absolute as a share of the largest initial concentration."""
 
-    rtol: float = 1e-7
-    atol_share: float = 1e-10
-    max_steps: int = 50_000
+    rtol: float = 1e-6
+    atol_share: float = 1e-9
+    max_steps: int = 20_000
 
 
 @dataclass(frozen=True)
@@ -76,9 +75,8 @@ class NetworkSolver:
         self.param_reaction = np.array(reaction, dtype=np.int64)
         self.param_species = np.array(species, dtype=np.int64)
         self.times = [np.asarray(t, dtype=float) for t in times]
-        grid = np.unique(np.concatenate([[0.0], *self.times]))
-        self.grid = grid
-        self.positions = [np.searchsorted(grid, t) for t in self.times]
+        #: Accepted and rejected steps of the last ``solve``, and runs that went to the implicit method.
+        self.stats = np.zeros(3, dtype=np.int64)
 
     @property
     def n_params(self) -> int:
@@ -107,63 +105,30 @@ class NetworkSolver:
         net = self.network
         n_runs, n_species = initial.shape
         n_params = self.n_params if sensitivities else 0
-        k_runs = np.exp(np.asarray(ln_k, dtype=float))
-        inv_eq = np.zeros_like(k_runs)
-        if self.reversible_index.size:
-            inv_eq[:, self.reversible_index] = np.exp(-np.asarray(ln_eq, dtype=float))
+        with np.errstate(over="ignore"):
+            k_runs = np.exp(np.asarray(ln_k, dtype=float))
+            inv_eq = np.zeros_like(k_runs)
+            if self.reversible_index.size:
+                inv_eq[:, self.reversible_index] = np.exp(-np.asarray(ln_eq, dtype=float))
         if not (np.all(np.isfinite(k_runs)) and np.all(np.isfinite(inv_eq))):
             raise SolverFailure("rate or equilibrium constant overflows")
         kinds = self.kinds if sensitivities else self.kinds[:0]
-        block = n_species * (1 + n_params)
-        y0 = np.zeros(n_runs * block)
-        for r in range(n_runs):
-            y0[r * block : r * block + n_species] = initial[r]
-            for p in range(n_params):
-                if kinds[p] == kinetics.INITIAL:
-                    y0[r * block + n_species * (1 + p) + self.param_species[p]] = 1.0
         orders = np.ascontiguousarray(forward_orders, dtype=float)
-        arguments = (
-            k_runs,
-            inv_eq,
-            net.stoichiometry,
-            orders,
-            net.reverse_orders,
-            net.reversible,
-            kinds,
-            self.param_reaction[:n_params],
-            self.param_species[:n_params],
-        )
-
-        def rhs(y: np.ndarray, t: float) -> np.ndarray:
-            return kinetics.network_rhs(y, *arguments)
-
-        def jacobian(y: np.ndarray, t: float) -> np.ndarray:
-            return kinetics.network_banded_jacobian(
-                y, k_runs, inv_eq, net.stoichiometry, orders, net.reverse_orders, net.reversible, n_params
-            )
-
         scale = float(np.max(initial)) if np.max(initial) > 0 else 1.0
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            states, info = odeint(
-                rhs,
-                y0,
-                self.grid,
-                Dfun=jacobian,
-                ml=n_species - 1,
-                mu=n_species - 1,
-                rtol=self.settings.rtol,
-                atol=self.settings.atol_share * scale,
-                mxstep=self.settings.max_steps,
-                full_output=True,
-                printmessg=False,
-            )
-        if info["message"] != "Integration successful." or not np.all(np.isfinite(states)):
-            raise SolverFailure(str(info["message"]))
+        rtol, atol = self.settings.rtol, self.settings.atol_share * scale
         concentrations, sens = [], [] if sensitivities else None
+        self.stats[:] = 0
         for r in range(n_runs):
-            rows = states[self.positions[r], r * block : (r + 1) * block]
-            concentrations.append(rows[:, :n_species])
+            times = self.times[r]
+            out_c = np.empty((times.size, n_species))
+            out_s = np.empty((times.size, n_species, n_params))
+            status = integrate_run(np.ascontiguousarray(initial[r], dtype=float), times, k_runs[r], inv_eq[r],
+                                   net.stoichiometry, orders, net.reverse_orders, net.reversible, kinds,
+                                   self.param_reaction[:n_params], self.param_species[:n_params], rtol, atol,
+                                   self.settings.max_steps, out_c, out_s, self.stats)
+            if status != DONE or not np.all(np.isfinite(out_c)):
+                raise SolverFailure(f"the integration of run {r} did not reach t = {times[-1]:g}")
+            concentrations.append(out_c)
             if sens is not None:
-                sens.append(rows[:, n_species:].reshape(len(rows), n_params, n_species).transpose(0, 2, 1))
+                sens.append(out_s)
         return Solution(concentrations, sens)
