@@ -123,8 +123,9 @@ def _profile(k1: float, k2: float, a0: float, b0: float, times: np.ndarray) -> n
         r1, r2 = k1 * c[0] * c[1], k2 * c[2]
         return [-r1, -r1, r1 - r2, r2]
 
-    solution = solve_ivp(rates, (0.0, float(times[-1])), [a0, b0, 0.0, 0.0], t_eval=times, method="Radau",
-                         rtol=1e-10, atol=1e-13)
+    solution = solve_ivp(
+        rates, (0.0, float(times[-1])), [a0, b0, 0.0, 0.0], t_eval=times, method="Radau", rtol=1e-10, atol=1e-13
+    )
     return solution.y.T
 
 

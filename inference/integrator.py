@@ -27,11 +27,13 @@ from .kinetics import INITIAL, LN_EQ, LN_K, ORDER, _rates_and_jacobian
 _S6 = math.sqrt(6.0)
 #: Radau IIA(5) nodes and coefficient matrix (Hairer and Wanner, table IV.5.6).
 C = np.array([(4.0 - _S6) / 10.0, (4.0 + _S6) / 10.0, 1.0])
-A = np.array([
-    [(88.0 - 7.0 * _S6) / 360.0, (296.0 - 169.0 * _S6) / 1800.0, (-2.0 + 3.0 * _S6) / 225.0],
-    [(296.0 + 169.0 * _S6) / 1800.0, (88.0 + 7.0 * _S6) / 360.0, (-2.0 - 3.0 * _S6) / 225.0],
-    [(16.0 - _S6) / 36.0, (16.0 + _S6) / 36.0, 1.0 / 9.0],
-])
+A = np.array(
+    [
+        [(88.0 - 7.0 * _S6) / 360.0, (296.0 - 169.0 * _S6) / 1800.0, (-2.0 + 3.0 * _S6) / 225.0],
+        [(296.0 + 169.0 * _S6) / 1800.0, (88.0 + 7.0 * _S6) / 360.0, (-2.0 - 3.0 * _S6) / 225.0],
+        [(16.0 - _S6) / 36.0, (16.0 + _S6) / 36.0, 1.0 / 9.0],
+    ]
+)
 #: Real eigenvalue of inv(A) and the error-estimate weights (Hairer and Wanner, sec. IV.8, eq. 8.20).
 MU_REAL = 3.0 + 3.0 ** (2.0 / 3.0) - 3.0 ** (1.0 / 3.0)
 E = np.array([-13.0 - 7.0 * _S6, -13.0 + 7.0 * _S6, -1.0]) / 3.0
@@ -86,8 +88,9 @@ def _lu_solve(lu, pivots, b):
 
 
 @numba.njit(cache=True)
-def _evaluate(y, k, inv_eq, stoichiometry, forward, reverse, reversible, f, jac, rate, forward_rate, reverse_rate,
-              dr_dc, c):
+def _evaluate(
+    y, k, inv_eq, stoichiometry, forward, reverse, reversible, f, jac, rate, forward_rate, reverse_rate, dr_dc, c
+):
     """f = dc/dt and jac = d f / d c at concentrations y (negative values read as zero)."""
     n_reactions, n_species = forward.shape
     for i in range(n_species):
@@ -115,8 +118,25 @@ def _rms(values, scale):
 
 
 @numba.njit(cache=True)
-def radau_run(y0, times, k, inv_eq, stoichiometry, forward, reverse, reversible, kinds, param_reaction,
-                  param_species, rtol, atol, max_steps, out_c, out_s, stats):
+def radau_run(
+    y0,
+    times,
+    k,
+    inv_eq,
+    stoichiometry,
+    forward,
+    reverse,
+    reversible,
+    kinds,
+    param_reaction,
+    param_species,
+    rtol,
+    atol,
+    max_steps,
+    out_c,
+    out_s,
+    stats,
+):
     """Integrate one run from t = 0 to every time in ``times`` (ascending, >= 0).
 
     Fills ``out_c`` (times, N) and, if ``kinds`` is not empty, ``out_s`` (times, N, P) with d c / d parameter.
@@ -167,8 +187,22 @@ def radau_run(y0, times, k, inv_eq, stoichiometry, forward, reverse, reversible,
     if out_index == times.shape[0]:
         return DONE
 
-    _evaluate(y, k, inv_eq, stoichiometry, forward, reverse, reversible, f0, jac0, rate[0], forward_rate[0],
-              reverse_rate[0], dr_dc, c[0])
+    _evaluate(
+        y,
+        k,
+        inv_eq,
+        stoichiometry,
+        forward,
+        reverse,
+        reversible,
+        f0,
+        jac0,
+        rate[0],
+        forward_rate[0],
+        reverse_rate[0],
+        dr_dc,
+        c[0],
+    )
     for i in range(n):
         scale[i] = atol + rtol * abs(y[i])
     d0 = _rms(y, scale)
@@ -190,14 +224,30 @@ def radau_run(y0, times, k, inv_eq, stoichiometry, forward, reverse, reversible,
             landing = True
         if not (h > 1e-14 * max(target, 1.0)):
             return FAILED
-        _evaluate(y, k, inv_eq, stoichiometry, forward, reverse, reversible, f0, jac0, rate[0], forward_rate[0],
-                  reverse_rate[0], dr_dc, c[0])
+        _evaluate(
+            y,
+            k,
+            inv_eq,
+            stoichiometry,
+            forward,
+            reverse,
+            reversible,
+            f0,
+            jac0,
+            rate[0],
+            forward_rate[0],
+            reverse_rate[0],
+            dr_dc,
+            c[0],
+        )
         # Simplified Newton on Z = h (A x I) F(y + Z), matrix I - h A x J(y).
         for bi in range(3):
             for bj in range(3):
                 for i in range(n):
                     for m in range(n):
-                        newton[bi * n + i, bj * n + m] = (1.0 if (bi == bj and i == m) else 0.0) - h * a[bi, bj] * jac0[i, m]
+                        newton[bi * n + i, bj * n + m] = (1.0 if (bi == bj and i == m) else 0.0) - h * a[bi, bj] * jac0[
+                            i, m
+                        ]
         if not _lu_factor(newton, newton_piv):
             h *= 0.5
             continue
@@ -216,8 +266,22 @@ def radau_run(y0, times, k, inv_eq, stoichiometry, forward, reverse, reversible,
             for bi in range(3):
                 for i in range(n):
                     stage[i] = y[i] + z[bi, i]
-                _evaluate(stage, k, inv_eq, stoichiometry, forward, reverse, reversible, fz[bi], jz[bi], rate[bi],
-                          forward_rate[bi], reverse_rate[bi], dr_dc, c[bi])
+                _evaluate(
+                    stage,
+                    k,
+                    inv_eq,
+                    stoichiometry,
+                    forward,
+                    reverse,
+                    reversible,
+                    fz[bi],
+                    jz[bi],
+                    rate[bi],
+                    forward_rate[bi],
+                    reverse_rate[bi],
+                    dr_dc,
+                    c[bi],
+                )
                 for i in range(n):
                     if not math.isfinite(fz[bi, i]):
                         finite = False
@@ -283,14 +347,29 @@ def radau_run(y0, times, k, inv_eq, stoichiometry, forward, reverse, reversible,
             for bi in range(3):
                 for i in range(n):
                     stage[i] = y[i] + z[bi, i]
-                _evaluate(stage, k, inv_eq, stoichiometry, forward, reverse, reversible, fz[bi], jz[bi], rate[bi],
-                          forward_rate[bi], reverse_rate[bi], dr_dc, c[bi])
+                _evaluate(
+                    stage,
+                    k,
+                    inv_eq,
+                    stoichiometry,
+                    forward,
+                    reverse,
+                    reversible,
+                    fz[bi],
+                    jz[bi],
+                    rate[bi],
+                    forward_rate[bi],
+                    reverse_rate[bi],
+                    dr_dc,
+                    c[bi],
+                )
             for bi in range(3):
                 for bj in range(3):
                     for i in range(n):
                         for m in range(n):
-                            newton[bi * n + i, bj * n + m] = ((1.0 if (bi == bj and i == m) else 0.0)
-                                                              - h * a[bi, bj] * jz[bj, i, m])
+                            newton[bi * n + i, bj * n + m] = (1.0 if (bi == bj and i == m) else 0.0) - h * a[
+                                bi, bj
+                            ] * jz[bj, i, m]
             if not _lu_factor(newton, newton_piv):
                 return FAILED
             for p in range(n_params):
@@ -349,37 +428,73 @@ def radau_run(y0, times, k, inv_eq, stoichiometry, forward, reverse, reversible,
 #: Dormand-Prince 5(4): nodes, stage coefficients, 5th-order weights, and 5th minus 4th order weights
 #: (the last weight belongs to f at the new point).
 DP_C = np.array([0.0, 1 / 5, 3 / 10, 4 / 5, 8 / 9, 1.0])
-DP_A = np.array([
-    [0.0, 0.0, 0.0, 0.0, 0.0],
-    [1 / 5, 0.0, 0.0, 0.0, 0.0],
-    [3 / 40, 9 / 40, 0.0, 0.0, 0.0],
-    [44 / 45, -56 / 15, 32 / 9, 0.0, 0.0],
-    [19372 / 6561, -25360 / 2187, 64448 / 6561, -212 / 729, 0.0],
-    [9017 / 3168, -355 / 33, 46732 / 5247, 49 / 176, -5103 / 18656],
-])
+DP_A = np.array(
+    [
+        [0.0, 0.0, 0.0, 0.0, 0.0],
+        [1 / 5, 0.0, 0.0, 0.0, 0.0],
+        [3 / 40, 9 / 40, 0.0, 0.0, 0.0],
+        [44 / 45, -56 / 15, 32 / 9, 0.0, 0.0],
+        [19372 / 6561, -25360 / 2187, 64448 / 6561, -212 / 729, 0.0],
+        [9017 / 3168, -355 / 33, 46732 / 5247, 49 / 176, -5103 / 18656],
+    ]
+)
 DP_B = np.array([35 / 384, 0.0, 500 / 1113, 125 / 192, -2187 / 6784, 11 / 84])
 DP_E = np.array([-71 / 57600, 0.0, 71 / 16695, -71 / 1920, 17253 / 339200, -22 / 525, 1 / 40])
 #: Coefficients of the quartic continuous extension (Shampine, Math. Comp. 46 (1986) 135; as in scipy's RK45):
 #: u(t + x h) = u + h sum_q K_q (P[q, 0] x + P[q, 1] x^2 + P[q, 2] x^3 + P[q, 3] x^4).
-DP_P = np.array([
-    [1.0, -8048581381 / 2820520608, 8663915743 / 2820520608, -12715105075 / 11282082432],
-    [0.0, 0.0, 0.0, 0.0],
-    [0.0, 131558114200 / 32700410799, -68118460800 / 10900136933, 87487479700 / 32700410799],
-    [0.0, -1754552775 / 470086768, 14199869525 / 1410260304, -10690763975 / 1880347072],
-    [0.0, 127303824393 / 49829197408, -318862633887 / 49829197408, 701980252875 / 199316789632],
-    [0.0, -282668133 / 205662961, 2019193451 / 616988883, -1453857185 / 822651844],
-    [0.0, 40617522 / 29380423, -110615467 / 29380423, 69997945 / 29380423],
-])
+DP_P = np.array(
+    [
+        [1.0, -8048581381 / 2820520608, 8663915743 / 2820520608, -12715105075 / 11282082432],
+        [0.0, 0.0, 0.0, 0.0],
+        [0.0, 131558114200 / 32700410799, -68118460800 / 10900136933, 87487479700 / 32700410799],
+        [0.0, -1754552775 / 470086768, 14199869525 / 1410260304, -10690763975 / 1880347072],
+        [0.0, 127303824393 / 49829197408, -318862633887 / 49829197408, 701980252875 / 199316789632],
+        [0.0, -282668133 / 205662961, 2019193451 / 616988883, -1453857185 / 822651844],
+        [0.0, 40617522 / 29380423, -110615467 / 29380423, 69997945 / 29380423],
+    ]
+)
 #: Steps of the explicit pair before a run counts as stiff and goes to the implicit method.
 EXPLICIT_BUDGET = 1500
 
 
 @numba.njit(cache=True)
-def _augmented_rhs(u, n, k, inv_eq, stoichiometry, forward, reverse, reversible, kinds, param_reaction,
-                   param_species, out, jac, rate, forward_rate, reverse_rate, dr_dc, c):
+def _augmented_rhs(
+    u,
+    n,
+    k,
+    inv_eq,
+    stoichiometry,
+    forward,
+    reverse,
+    reversible,
+    kinds,
+    param_reaction,
+    param_species,
+    out,
+    jac,
+    rate,
+    forward_rate,
+    reverse_rate,
+    dr_dc,
+    c,
+):
     """d/dt of [c, s_1, ..., s_P]: f(c) and J(c) s_p + d f / d theta_p."""
-    _evaluate(u[:n], k, inv_eq, stoichiometry, forward, reverse, reversible, out[:n], jac, rate, forward_rate,
-              reverse_rate, dr_dc, c)
+    _evaluate(
+        u[:n],
+        k,
+        inv_eq,
+        stoichiometry,
+        forward,
+        reverse,
+        reversible,
+        out[:n],
+        jac,
+        rate,
+        forward_rate,
+        reverse_rate,
+        dr_dc,
+        c,
+    )
     for p in range(kinds.shape[0]):
         offset = n * (1 + p)
         kind = kinds[p]
@@ -402,8 +517,25 @@ def _augmented_rhs(u, n, k, inv_eq, stoichiometry, forward, reverse, reversible,
 
 
 @numba.njit(cache=True)
-def dopri_run(y0, times, k, inv_eq, stoichiometry, forward, reverse, reversible, kinds, param_reaction,
-              param_species, rtol, atol, max_steps, out_c, out_s, stats):
+def dopri_run(
+    y0,
+    times,
+    k,
+    inv_eq,
+    stoichiometry,
+    forward,
+    reverse,
+    reversible,
+    kinds,
+    param_reaction,
+    param_species,
+    rtol,
+    atol,
+    max_steps,
+    out_c,
+    out_s,
+    stats,
+):
     """Like ``radau_run`` with the explicit Dormand-Prince pair; FAILED once ``max_steps`` are used."""
     n_reactions, n = forward.shape
     n_params = kinds.shape[0]
@@ -431,8 +563,26 @@ def dopri_run(y0, times, k, inv_eq, stoichiometry, forward, reverse, reversible,
         out_index += 1
     if out_index == times.shape[0]:
         return DONE
-    _augmented_rhs(u, n, k, inv_eq, stoichiometry, forward, reverse, reversible, kinds, param_reaction,
-                   param_species, stages[0], jac, rate, forward_rate, reverse_rate, dr_dc, c)
+    _augmented_rhs(
+        u,
+        n,
+        k,
+        inv_eq,
+        stoichiometry,
+        forward,
+        reverse,
+        reversible,
+        kinds,
+        param_reaction,
+        param_species,
+        stages[0],
+        jac,
+        rate,
+        forward_rate,
+        reverse_rate,
+        dr_dc,
+        c,
+    )
     # Initial step (Hairer, Norsett and Wanner, "Solving Ordinary Differential Equations I", sec. II.4).
     d0 = 0.0
     d1 = 0.0
@@ -446,8 +596,26 @@ def dopri_run(y0, times, k, inv_eq, stoichiometry, forward, reverse, reversible,
     h = min(h, times[-1])
     for i in range(size):
         trial[i] = u[i] + h * stages[0, i]
-    _augmented_rhs(trial, n, k, inv_eq, stoichiometry, forward, reverse, reversible, kinds, param_reaction,
-                   param_species, stages[1], jac, rate, forward_rate, reverse_rate, dr_dc, c)
+    _augmented_rhs(
+        trial,
+        n,
+        k,
+        inv_eq,
+        stoichiometry,
+        forward,
+        reverse,
+        reversible,
+        kinds,
+        param_reaction,
+        param_species,
+        stages[1],
+        jac,
+        rate,
+        forward_rate,
+        reverse_rate,
+        dr_dc,
+        c,
+    )
     d2 = 0.0
     for i in range(size):
         scale = atol + rtol * abs(u[i])
@@ -473,16 +641,51 @@ def dopri_run(y0, times, k, inv_eq, stoichiometry, forward, reverse, reversible,
                 for q in range(st):
                     total += DP_A[st, q] * stages[q, i]
                 trial[i] = u[i] + h * total
-            _augmented_rhs(trial, n, k, inv_eq, stoichiometry, forward, reverse, reversible, kinds,
-                           param_reaction, param_species, stages[st], jac, rate, forward_rate, reverse_rate,
-                           dr_dc, c)
+            _augmented_rhs(
+                trial,
+                n,
+                k,
+                inv_eq,
+                stoichiometry,
+                forward,
+                reverse,
+                reversible,
+                kinds,
+                param_reaction,
+                param_species,
+                stages[st],
+                jac,
+                rate,
+                forward_rate,
+                reverse_rate,
+                dr_dc,
+                c,
+            )
         for i in range(size):
             total = 0.0
             for q in range(6):
                 total += DP_B[q] * stages[q, i]
             new[i] = u[i] + h * total
-        _augmented_rhs(new, n, k, inv_eq, stoichiometry, forward, reverse, reversible, kinds, param_reaction,
-                       param_species, stages[6], jac, rate, forward_rate, reverse_rate, dr_dc, c)
+        _augmented_rhs(
+            new,
+            n,
+            k,
+            inv_eq,
+            stoichiometry,
+            forward,
+            reverse,
+            reversible,
+            kinds,
+            param_reaction,
+            param_species,
+            stages[6],
+            jac,
+            rate,
+            forward_rate,
+            reverse_rate,
+            dr_dc,
+            c,
+        )
         error = 0.0
         finite = True
         for i in range(size):
@@ -528,13 +731,134 @@ def dopri_run(y0, times, k, inv_eq, stoichiometry, forward, reverse, reversible,
 
 
 @numba.njit(cache=True)
-def integrate_run(y0, times, k, inv_eq, stoichiometry, forward, reverse, reversible, kinds, param_reaction,
-                  param_species, rtol, atol, max_steps, out_c, out_s, stats):
+def integrate_run(
+    y0,
+    times,
+    k,
+    inv_eq,
+    stoichiometry,
+    forward,
+    reverse,
+    reversible,
+    kinds,
+    param_reaction,
+    param_species,
+    rtol,
+    atol,
+    max_steps,
+    out_c,
+    out_s,
+    stats,
+):
     """Dormand-Prince first; if the run proves stiff (or the explicit pair fails), Radau IIA."""
-    status = dopri_run(y0, times, k, inv_eq, stoichiometry, forward, reverse, reversible, kinds, param_reaction,
-                       param_species, rtol, atol, min(EXPLICIT_BUDGET, max_steps), out_c, out_s, stats)
+    status = dopri_run(
+        y0,
+        times,
+        k,
+        inv_eq,
+        stoichiometry,
+        forward,
+        reverse,
+        reversible,
+        kinds,
+        param_reaction,
+        param_species,
+        rtol,
+        atol,
+        min(EXPLICIT_BUDGET, max_steps),
+        out_c,
+        out_s,
+        stats,
+    )
     if status == DONE:
         return DONE
     stats[2] += 1
-    return radau_run(y0, times, k, inv_eq, stoichiometry, forward, reverse, reversible, kinds, param_reaction,
-                     param_species, rtol, atol, max_steps, out_c, out_s, stats)
+    return radau_run(
+        y0,
+        times,
+        k,
+        inv_eq,
+        stoichiometry,
+        forward,
+        reverse,
+        reversible,
+        kinds,
+        param_reaction,
+        param_species,
+        rtol,
+        atol,
+        max_steps,
+        out_c,
+        out_s,
+        stats,
+    )
+
+
+@numba.njit(cache=True)
+def predict_measurements(
+    initial,
+    all_times,
+    time_offsets,
+    k_runs,
+    inv_eq_runs,
+    stoichiometry,
+    forward,
+    reverse,
+    reversible,
+    kinds,
+    param_reaction,
+    param_species,
+    rtol,
+    atol,
+    max_steps,
+    run_index,
+    time_index,
+    species_index,
+    columns,
+    prediction,
+    jacobian,
+    stats,
+):
+    """Integrate every run and gather the predictions (M,) and their Jacobian (M, inputs) at the measurements.
+
+    Run r's times are ``all_times[time_offsets[r]:time_offsets[r + 1]]``; measurement m reads run
+    ``run_index[m]`` at its time ``time_index[m]`` and species ``species_index[m]``; ``columns[r, p]`` is the
+    input column of run r's sensitivity parameter p. Returns the index of the first failing run, or -1.
+    """
+    n_runs, n = initial.shape
+    n_params = kinds.shape[0]
+    jacobian[:, :] = 0.0
+    for r in range(n_runs):
+        times = all_times[time_offsets[r] : time_offsets[r + 1]]
+        out_c = np.empty((times.shape[0], n))
+        out_s = np.empty((times.shape[0], n, n_params))
+        status = integrate_run(
+            initial[r].copy(),
+            times,
+            k_runs[r],
+            inv_eq_runs[r],
+            stoichiometry,
+            forward,
+            reverse,
+            reversible,
+            kinds,
+            param_reaction,
+            param_species,
+            rtol,
+            atol,
+            max_steps,
+            out_c,
+            out_s,
+            stats,
+        )
+        if status != DONE:
+            return r
+        for m in range(run_index.shape[0]):
+            if run_index[m] != r:
+                continue
+            t = time_index[m]
+            i = species_index[m]
+            prediction[m] = out_c[t, i]
+            for p in range(n_params):
+                jacobian[m, columns[r, p]] += out_s[t, i, p]
+    return -1

@@ -14,7 +14,6 @@ dc/dt = stoichiometry^T r. Negative concentrations (solver overshoot) are read a
 from __future__ import annotations
 
 import numba
-import numpy as np
 
 LN_K, LN_EQ, ORDER, INITIAL = 0, 1, 2, 3
 

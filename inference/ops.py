@@ -13,7 +13,7 @@ from pytensor.graph.basic import Apply
 from pytensor.graph.op import Op
 
 from .data import Observations
-from .solution import NetworkSolver, SolverFailure
+from .solution import MeasurementSolver, NetworkSolver, SolverFailure
 
 
 class NetworkPrediction(Op):
@@ -33,8 +33,15 @@ class NetworkPrediction(Op):
         n_orders, n_initial = len(solver.free_orders), len(solver.free_initial)
         self.shapes = ((n_runs, n_reactions), (n_runs, n_rev), (n_orders,), (n_runs, n_initial))
         self.sizes = [int(np.prod(s)) for s in self.shapes]
-        self._columns = self._jacobian_columns(n_runs, n_reactions, n_rev, n_orders, n_initial)
-        self._rows = [np.flatnonzero(observations.run_index == r) for r in range(n_runs)]
+        columns = self._jacobian_columns(n_runs, n_reactions, n_rev, n_orders, n_initial)
+        self.measurements = MeasurementSolver(
+            solver,
+            observations.run_index,
+            observations.time_index,
+            observations.species_index,
+            columns,
+            sum(self.sizes),
+        )
 
     def __hash__(self) -> int:
         return id(self)
@@ -78,19 +85,13 @@ class NetworkPrediction(Op):
         obs = self.observations
         n_total = sum(self.sizes)
         try:
-            solution = self.solver.solve(ln_k, ln_eq, self.full_orders(free_orders), self.full_initial(free_initial))
+            prediction, jacobian = self.measurements.solve(
+                ln_k, ln_eq, self.full_orders(free_orders), self.full_initial(free_initial)
+            )
         except SolverFailure:
             self.failures += 1
-            outputs[0][0] = np.full(obs.value.size, np.nan)
-            outputs[1][0] = np.zeros((obs.value.size, n_total))
-            return
-        prediction = np.empty(obs.value.size)
-        jacobian = np.zeros((obs.value.size, n_total))
-        for r, rows in enumerate(self._rows):
-            t, i = obs.time_index[rows], obs.species_index[rows]
-            prediction[rows] = solution.concentrations[r][t, i]
-            # Within one run every sensitivity parameter maps to a distinct input column.
-            jacobian[np.ix_(rows, self._columns[r])] = solution.sensitivities[r][t, i]
+            prediction = np.full(obs.value.size, np.nan)
+            jacobian = np.zeros((obs.value.size, n_total))
         outputs[0][0] = prediction
         outputs[1][0] = jacobian
 

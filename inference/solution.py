@@ -12,7 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import kinetics
-from .integrator import DONE, integrate_run
+from .integrator import DONE, integrate_run, predict_measurements
 from .network import Network
 
 
@@ -91,6 +91,21 @@ class NetworkSolver:
         names += [f"c0[{net.species[i]}]" for i in self.free_initial]
         return names
 
+    def rate_arrays(self, ln_k: np.ndarray, ln_eq: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """k (runs, reactions) and 1/K (runs, reactions; zero for irreversible steps); SolverFailure on overflow."""
+        with np.errstate(over="ignore"):
+            k_runs = np.exp(np.asarray(ln_k, dtype=float))
+            inv_eq = np.zeros_like(k_runs)
+            if self.reversible_index.size:
+                inv_eq[:, self.reversible_index] = np.exp(-np.asarray(ln_eq, dtype=float))
+        if not (np.all(np.isfinite(k_runs)) and np.all(np.isfinite(inv_eq))):
+            raise SolverFailure("a rate or equilibrium constant overflows")
+        return k_runs, inv_eq
+
+    def tolerances(self, initial: np.ndarray) -> tuple[float, float]:
+        scale = float(np.max(initial)) if np.max(initial) > 0 else 1.0
+        return self.settings.rtol, self.settings.atol_share * scale
+
     def solve(
         self,
         ln_k: np.ndarray,
@@ -105,30 +120,102 @@ class NetworkSolver:
         net = self.network
         n_runs, n_species = initial.shape
         n_params = self.n_params if sensitivities else 0
-        with np.errstate(over="ignore"):
-            k_runs = np.exp(np.asarray(ln_k, dtype=float))
-            inv_eq = np.zeros_like(k_runs)
-            if self.reversible_index.size:
-                inv_eq[:, self.reversible_index] = np.exp(-np.asarray(ln_eq, dtype=float))
-        if not (np.all(np.isfinite(k_runs)) and np.all(np.isfinite(inv_eq))):
-            raise SolverFailure("rate or equilibrium constant overflows")
+        k_runs, inv_eq = self.rate_arrays(ln_k, ln_eq)
         kinds = self.kinds if sensitivities else self.kinds[:0]
         orders = np.ascontiguousarray(forward_orders, dtype=float)
-        scale = float(np.max(initial)) if np.max(initial) > 0 else 1.0
-        rtol, atol = self.settings.rtol, self.settings.atol_share * scale
+        rtol, atol = self.tolerances(initial)
         concentrations, sens = [], [] if sensitivities else None
         self.stats[:] = 0
         for r in range(n_runs):
             times = self.times[r]
             out_c = np.empty((times.size, n_species))
             out_s = np.empty((times.size, n_species, n_params))
-            status = integrate_run(np.ascontiguousarray(initial[r], dtype=float), times, k_runs[r], inv_eq[r],
-                                   net.stoichiometry, orders, net.reverse_orders, net.reversible, kinds,
-                                   self.param_reaction[:n_params], self.param_species[:n_params], rtol, atol,
-                                   self.settings.max_steps, out_c, out_s, self.stats)
+            status = integrate_run(
+                np.ascontiguousarray(initial[r], dtype=float),
+                times,
+                k_runs[r],
+                inv_eq[r],
+                net.stoichiometry,
+                orders,
+                net.reverse_orders,
+                net.reversible,
+                kinds,
+                self.param_reaction[:n_params],
+                self.param_species[:n_params],
+                rtol,
+                atol,
+                self.settings.max_steps,
+                out_c,
+                out_s,
+                self.stats,
+            )
             if status != DONE or not np.all(np.isfinite(out_c)):
                 raise SolverFailure(f"the integration of run {r} did not reach t = {times[-1]:g}")
             concentrations.append(out_c)
             if sens is not None:
                 sens.append(out_s)
         return Solution(concentrations, sens)
+
+
+class MeasurementSolver:
+    """Predictions at a fixed set of measurements and their Jacobian, computed in one compiled call.
+
+    ``columns[r, p]`` maps sensitivity parameter p of run r to a column of the Jacobian (see ``ops``).
+    """
+
+    def __init__(
+        self,
+        solver: NetworkSolver,
+        run_index: np.ndarray,
+        time_index: np.ndarray,
+        species_index: np.ndarray,
+        columns: np.ndarray,
+        n_inputs: int,
+    ) -> None:
+        self.solver = solver
+        self.all_times = np.concatenate(solver.times)
+        self.time_offsets = np.concatenate([[0], np.cumsum([t.size for t in solver.times])]).astype(np.int64)
+        self.run_index = np.asarray(run_index, dtype=np.int64)
+        self.time_index = np.asarray(time_index, dtype=np.int64)
+        self.species_index = np.asarray(species_index, dtype=np.int64)
+        self.columns = np.ascontiguousarray(columns, dtype=np.int64)
+        self.n_inputs = n_inputs
+
+    def solve(
+        self, ln_k: np.ndarray, ln_eq: np.ndarray, forward_orders: np.ndarray, initial: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray]:
+        """(prediction (M,), jacobian (M, inputs)); raises ``SolverFailure``."""
+        solver = self.solver
+        net = solver.network
+        k_runs, inv_eq = solver.rate_arrays(ln_k, ln_eq)
+        rtol, atol = solver.tolerances(initial)
+        prediction = np.empty(self.run_index.size)
+        jacobian = np.empty((self.run_index.size, self.n_inputs))
+        solver.stats[:] = 0
+        failed = predict_measurements(
+            np.ascontiguousarray(initial, dtype=float),
+            self.all_times,
+            self.time_offsets,
+            k_runs,
+            inv_eq,
+            net.stoichiometry,
+            np.ascontiguousarray(forward_orders, dtype=float),
+            net.reverse_orders,
+            net.reversible,
+            solver.kinds,
+            solver.param_reaction,
+            solver.param_species,
+            rtol,
+            atol,
+            solver.settings.max_steps,
+            self.run_index,
+            self.time_index,
+            self.species_index,
+            self.columns,
+            prediction,
+            jacobian,
+            solver.stats,
+        )
+        if failed >= 0:
+            raise SolverFailure(f"the integration of run {failed} did not reach its last time")
+        return prediction, jacobian
