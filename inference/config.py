@@ -112,12 +112,23 @@ def _find_model(annotation: Any) -> type[pydantic.BaseModel] | None:
     return None
 
 
+def _is_union_tag(part: object) -> bool:
+    """Pydantic names the member of a union in an error's location ('float', 'OrderPrior', ...); not a key."""
+    if not isinstance(part, str):
+        return False
+    models = {cls.__name__ for cls in pydantic.BaseModel.__subclasses__()} | {
+        cls.__name__ for base in pydantic.BaseModel.__subclasses__() for cls in base.__subclasses__()
+    }
+    return part in models or part in {"float", "str", "int", "bool"} or "-" in part or "[" in part
+
+
 def _format_validation_error(where: str, error: pydantic.ValidationError) -> StudyError:
-    # A misspelt key is also reported as a missing one; the unknown key is the one to name.
-    errors = sorted(error.errors(include_url=False), key=lambda e: e["type"] != "extra_forbidden")
+    # A misspelt key is also reported as a missing one, so the unknown key comes first; then errors a
+    # validator wrote (they explain themselves), then the rest.
+    rank = {"extra_forbidden": 0, "value_error": 1}
+    errors = sorted(error.errors(include_url=False), key=lambda e: rank.get(e["type"], 2))
     first = errors[0]
-    # Union members show up in the location as type tags ('float', 'str'); they mean nothing to a user.
-    loc = tuple(p for p in first["loc"] if not (isinstance(p, str) and p in {"float", "str", "literal['auto']"}))
+    loc = tuple(part for part in first["loc"] if not _is_union_tag(part))
     path = _key_path(loc)
     more = f" (and {len(errors) - 1} more problem{'s' if len(errors) > 2 else ''})" if len(errors) > 1 else ""
     kind = first["type"]

@@ -251,7 +251,7 @@ class NetworkProblem:
                     initial[:, study.species.index(name)] = draw["initial"].values[:, g]
             if use_closed:
                 for r, t in enumerate(times):
-                    out[r][d] = closed_form.concentrations(kind, network, initial[r], math.exp(ln_k[r, 0]), t[:, None])
+                    out[r][d] = closed_form.concentrations(kind, network, initial[r], math.exp(ln_k[r, 0]), t)
                 continue
             ln_eq = np.zeros((len(obs.run_ids), 0))
             if reversible:

@@ -183,3 +183,176 @@ def test_unreadable_study_file(make_study, run_cli, monkeypatch):
     code, _, stderr = run_cli("check", path)
     assert code == 2
     assert "study.yaml: cannot be read (permission denied)" in stderr
+
+
+NETWORK_STUDY = """\
+study: net
+units: {time: min, temperature: degC, concentration: mol/L, energy: kJ/mol}
+data: {runs: runs.csv, measurements: measurements.csv}
+species: [A, B, C]
+reactions:
+  - name: step
+    equation: A + B -> C
+    k_ref: {median: 0.1, factor: 10}
+    Ea: {mean: 60, sd: 20}
+"""
+RUNS = "run,temperature,A,B,C\nr1,50,1.0,1.2,0\nr2,60,0.8,1.0,0\n"
+MEASUREMENTS = "run,time,A,C\nr1,1,0.9,0.1\nr1,3,0.7,0.3\nr2,1,0.6,0.2\nr2,2,0.5,0.3\n"
+
+
+def net_replace(old: str, new: str) -> str:
+    return replace(old, new, NETWORK_STUDY)
+
+
+# (id, study, runs, measurements, expected fragments)
+NETWORK_CASES = [
+    (
+        "unknown-species",
+        net_replace("A + B -> C", "A + D -> C"),
+        RUNS,
+        MEASUREMENTS,
+        ["study.yaml: reactions[0].equation", "'D' is not in species"],
+    ),
+    ("misspelt-species", net_replace("A + B -> C", "A + BB -> C"), RUNS, MEASUREMENTS, ["did you mean 'B'"]),
+    ("no-reactants", net_replace("A + B -> C", "-> C"), RUNS, MEASUREMENTS, ["no reactants"]),
+    ("no-arrow", net_replace("A + B -> C", "A + B = C"), RUNS, MEASUREMENTS, ["reactions[0].equation", "no arrow"]),
+    (
+        "missing-equation",
+        net_replace("    equation: A + B -> C\n", ""),
+        RUNS,
+        MEASUREMENTS,
+        ["reactions[0].equation", "required"],
+    ),
+    (
+        "reversible-without-K",
+        net_replace("A + B -> C", "A + B <=> C"),
+        RUNS,
+        MEASUREMENTS,
+        ["reactions[0].K_ref", "reversible"],
+    ),
+    (
+        "K-on-irreversible",
+        NETWORK_STUDY + "    K_ref: {median: 1, factor: 10}\n    dH: {mean: 0, sd: 10}\n",
+        RUNS,
+        MEASUREMENTS,
+        ["reactions[0]", "only for reversible"],
+    ),
+    (
+        "orders-on-mass-action",
+        NETWORK_STUDY + "    orders: {A: 1}\n",
+        RUNS,
+        MEASUREMENTS,
+        ["reactions[0].orders", "power_law"],
+    ),
+    (
+        "order-of-non-reactant",
+        NETWORK_STUDY + "    rate_law: power_law\n    orders: {C: 1}\n",
+        RUNS,
+        MEASUREMENTS,
+        ["reactions[0].orders.C", "not a reactant"],
+    ),
+    (
+        "order-bounds-reversed",
+        NETWORK_STUDY + "    rate_law: power_law\n    orders: {A: {lower: 2, upper: 1}}\n",
+        RUNS,
+        MEASUREMENTS,
+        ["'lower' must be below 'upper'"],
+    ),
+    (
+        "unknown-rate-law",
+        net_replace("equation: A + B -> C", "equation: A + B -> C\n    rate_law: magic"),
+        RUNS,
+        MEASUREMENTS,
+        ["reactions[0].rate_law"],
+    ),
+    ("species-twice", net_replace("[A, B, C]", "[A, B, C, A]"), RUNS, MEASUREMENTS, ["'A' is listed twice"]),
+    ("missing-time-unit", net_replace("time: min, ", ""), RUNS, MEASUREMENTS, ["units.time", "required"]),
+    (
+        "uncertain-unknown-species",
+        NETWORK_STUDY + "initial_uncertainty: {Z: 0.1}\n",
+        RUNS,
+        MEASUREMENTS,
+        ["initial_uncertainty.Z"],
+    ),
+    ("duplicate-run", NETWORK_STUDY, RUNS + "r1,70,1,1,0\n", MEASUREMENTS, ["runs.csv: line 4", "appears twice"]),
+    (
+        "missing-initial-column",
+        NETWORK_STUDY,
+        "run,temperature,A,B\nr1,50,1,1\n",
+        MEASUREMENTS,
+        ["runs.csv", "missing column 'C'"],
+    ),
+    (
+        "negative-initial",
+        NETWORK_STUDY,
+        RUNS.replace("1.2", "-1.2"),
+        MEASUREMENTS,
+        ["runs.csv: line 2, column 'B'", "negative"],
+    ),
+    (
+        "unknown-run",
+        NETWORK_STUDY,
+        RUNS,
+        MEASUREMENTS + "r9,1,0.5,0.5\n",
+        ["measurements.csv: line 6, column 'run'", "'r9'"],
+    ),
+    (
+        "unknown-species-long",
+        NETWORK_STUDY,
+        RUNS,
+        "run,time,species,value\nr1,1,A,0.9\nr1,1,Q,0.1\n",
+        ["measurements.csv: line 3, column 'species'", "'Q'"],
+    ),
+    (
+        "negative-time",
+        NETWORK_STUDY,
+        RUNS,
+        MEASUREMENTS.replace("r1,3,", "r1,-3,"),
+        ["measurements.csv: line 3, column 'time'", "negative"],
+    ),
+    (
+        "times-out-of-order",
+        NETWORK_STUDY,
+        RUNS,
+        "run,time,A\nr1,3,0.7\nr1,1,0.9\nr2,1,0.6\n",
+        ["measurements.csv: line 3, column 'time'", "goes back"],
+    ),
+    ("duplicate-time", NETWORK_STUDY, RUNS, "run,time,A\nr1,1,0.7\nr1,1,0.9\nr2,1,0.6\n", ["repeats"]),
+    (
+        "zero-with-proportional-noise",
+        NETWORK_STUDY,
+        RUNS,
+        MEASUREMENTS.replace("0.9,0.1", "0.9,0"),
+        ["measurements.csv: line 2, column 'C'", "not positive", "absolute"],
+    ),
+    ("mixed-layouts", NETWORK_STUDY, RUNS, "run,time,species,value,A\nr1,1,A,0.9,1\n", ["mixes the wide layout"]),
+    ("run-without-measurements", NETWORK_STUDY, RUNS + "r3,70,1,1,0\n", MEASUREMENTS, ["run 'r3' has no measurements"]),
+]
+
+
+@pytest.mark.parametrize(
+    ("study", "runs", "measurements", "expected"), [c[1:] for c in NETWORK_CASES], ids=[c[0] for c in NETWORK_CASES]
+)
+def test_network_mistake_gives_one_clear_line(run_cli, tmp_path, study, runs, measurements, expected):
+    (tmp_path / "runs.csv").write_text(runs)
+    (tmp_path / "measurements.csv").write_text(measurements)
+    path = tmp_path / "study.yaml"
+    path.write_text(study)
+    out = tmp_path / "results"
+    code, _, stderr = run_cli("fit", path, "--out", out)
+    assert code == 2, stderr
+    lines = stderr.strip().splitlines()
+    assert len(lines) == 1, stderr
+    for fragment in expected:
+        assert fragment in lines[0], lines[0]
+    assert not out.exists()
+
+
+def test_species_in_no_reaction_is_a_warning(run_cli, tmp_path):
+    (tmp_path / "runs.csv").write_text("run,temperature,A,B,C,S\nr1,50,1.0,1.2,0,5\nr2,60,0.8,1.0,0,5\n")
+    (tmp_path / "measurements.csv").write_text(MEASUREMENTS)
+    path = tmp_path / "study.yaml"
+    path.write_text(NETWORK_STUDY.replace("[A, B, C]", "[A, B, C, S]"))
+    code, out, _ = run_cli("check", path)
+    assert code == 0
+    assert "warning: species 'S' takes part in no reaction" in out

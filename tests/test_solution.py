@@ -1,0 +1,163 @@
+"""The solution layer against closed forms, scipy's solvers and finite differences."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy.integrate import solve_ivp
+
+from inference import closed_form
+from inference.network import EquationError, build_network, parse_equation
+from inference.solution import NetworkSolver, SolverSettings
+
+
+def network(species, *equations, orders=None):
+    parsed = tuple(parse_equation(e) for e in equations)
+    return build_network(tuple(species), tuple(f"r{j}" for j in range(len(parsed))), parsed, orders)
+
+
+def solve(net, times, k, initial, ln_eq=None, orders=None, **kwargs):
+    solver = NetworkSolver(net, [np.asarray(times, dtype=float)], **kwargs)
+    ln_eq = np.zeros((1, 0)) if ln_eq is None else np.atleast_2d(ln_eq)
+    result = solver.solve(
+        np.log(np.atleast_2d(k)), ln_eq, net.forward_orders if orders is None else orders, np.atleast_2d(initial)
+    )
+    return solver, result
+
+
+def test_first_order_decay_matches_exponential():
+    # c_A = c_A0 exp(-k t) (Levenspiel, Chemical Reaction Engineering, 3rd ed., ch. 3, eq. 3.12; from memory).
+    net = network("AB", "A -> B")
+    times = np.linspace(0.0, 10.0, 11)
+    _, result = solve(net, times, [0.3], [2.0, 0.0])
+    exact = 2.0 * np.exp(-0.3 * times)
+    np.testing.assert_allclose(result.concentrations[0][:, 0], exact, rtol=1e-6)
+    np.testing.assert_allclose(result.concentrations[0][:, 1], 2.0 - exact, rtol=1e-6, atol=1e-9)
+    np.testing.assert_allclose(
+        closed_form.concentrations("first", net, np.array([2.0, 0.0]), 0.3, times)[:, 0], exact, rtol=1e-13
+    )
+
+
+def test_second_order_unequal_initial_concentrations():
+    # A + B -> products, c_A0 != c_B0: ln[(c_B c_A0) / (c_A c_B0)] = (c_B0 - c_A0) k t (Levenspiel, ch. 3,
+    # eq. 3.16; from memory). Checked in that implicit form, so it is independent of the closed form we use.
+    net = network("ABC", "A + B -> C")
+    k, a0, b0 = 0.7, 1.0, 1.6
+    times = np.linspace(0.5, 8.0, 16)
+    _, result = solve(net, times, [k], [a0, b0, 0.0])
+    a, b = result.concentrations[0][:, 0], result.concentrations[0][:, 1]
+    np.testing.assert_allclose(np.log((b * a0) / (a * b0)), (b0 - a0) * k * times, rtol=1e-5)
+    exact = closed_form.concentrations("second_pair", net, np.array([a0, b0, 0.0]), k, times)
+    np.testing.assert_allclose(np.log((exact[:, 1] * a0) / (exact[:, 0] * b0)), (b0 - a0) * k * times, rtol=1e-12)
+    # The solver's default tolerances: rtol 1e-6, atol 1e-9 of the largest initial concentration.
+    np.testing.assert_allclose(result.concentrations[0], exact, rtol=5e-6, atol=2e-9)
+
+
+def test_second_order_equal_initial_concentrations():
+    # 1/c_A - 1/c_A0 = k t for A + B with c_A0 = c_B0 (Levenspiel, ch. 3, eq. 3.14; from memory).
+    net = network("ABC", "A + B -> C")
+    times = np.linspace(0.0, 5.0, 6)
+    exact = closed_form.concentrations("second_pair", net, np.array([0.5, 0.5, 0.0]), 2.0, times)
+    np.testing.assert_allclose(1 / exact[:, 0] - 1 / 0.5, 2.0 * times, rtol=1e-8, atol=1e-12)
+    same = network("AB", "2 A -> B")
+    # 2 A -> B with rate k c_A^2 and d c_A/dt = -2 k c_A^2: 1/c_A - 1/c_A0 = 2 k t (same reference).
+    solver_values = solve(same, times, [2.0], [0.5, 0.0])[1].concentrations[0][:, 0]
+    np.testing.assert_allclose(1 / solver_values - 1 / 0.5, 4.0 * times, rtol=1e-5, atol=1e-9)
+
+
+def test_consecutive_first_order_and_time_of_maximum():
+    # A -> B -> C: c_B = c_A0 k1 / (k2 - k1) (exp(-k1 t) - exp(-k2 t)), maximal at t_max = ln(k2/k1)/(k2 - k1)
+    # (Levenspiel, ch. 3, eqs. 3.49 and 3.52; from memory).
+    net = network("ABC", "A -> B", "B -> C")
+    k1, k2 = 0.4, 0.1
+    t_max = np.log(k2 / k1) / (k2 - k1)
+    times = np.sort(np.concatenate([np.linspace(0.2, 30.0, 40), [t_max]]))
+    _, result = solve(net, times, [k1, k2], [1.0, 0.0, 0.0])
+    b = result.concentrations[0][:, 1]
+    exact = k1 / (k2 - k1) * (np.exp(-k1 * times) - np.exp(-k2 * times))
+    np.testing.assert_allclose(b, exact, rtol=1e-6)
+    assert times[np.argmax(b)] == pytest.approx(t_max)
+    c_max = (k1 / k2) ** (k2 / (k2 - k1))  # c_B,max / c_A0 (same reference, eq. 3.53)
+    assert b.max() == pytest.approx(c_max, rel=1e-6)
+
+
+def robertson(t, y):
+    a, b, c = y
+    return [-0.04 * a + 1e4 * b * c, 0.04 * a - 1e4 * b * c - 3e7 * b * b, 3e7 * b * b]
+
+
+@pytest.mark.parametrize("tight", [False, True])
+def test_stiff_robertson_network_matches_scipy_radau(tight):
+    # Robertson's reactions (Robertson 1966; the standard stiff test in Hairer and Wanner, "Solving ODEs II",
+    # sec. IV.1): rate constants span eleven orders of magnitude. Reference: scipy solve_ivp, Radau, rtol 1e-10.
+    net = network("ABC", "A -> B", "2 B -> B + C", "B + C -> A + C")
+    times = np.array([1e-3, 1e-2, 0.1, 1.0, 10.0, 40.0, 400.0])
+    settings = SolverSettings(rtol=1e-10, atol_share=1e-14) if tight else SolverSettings()
+    solver, result = solve(net, times, [0.04, 3e7, 1e4], [1.0, 0.0, 0.0], settings=settings)
+    tolerance = 1e-8 if tight else 1e-5
+    reference = solve_ivp(
+        robertson, (0.0, 400.0), [1.0, 0.0, 0.0], method="Radau", t_eval=times, rtol=1e-10, atol=1e-14
+    ).y.T
+    np.testing.assert_allclose(result.concentrations[0][:, [0, 2]], reference[:, [0, 2]], rtol=tolerance, atol=1e-9)
+    # B stays near 1e-5 and is where stiffness bites; compare relative to its own size.
+    np.testing.assert_allclose(result.concentrations[0][:, 1], reference[:, 1], rtol=10 * tolerance)
+    assert solver.stats[2] == 1  # the explicit pair gave up and the implicit method finished the run
+
+
+def test_reversible_step_reaches_the_equilibrium_constant():
+    # A <=> B with K = k_f / k_r: at equilibrium c_B / c_A = K (definition of K_c; common practice).
+    net = network("AB", "A <=> B")
+    _, result = solve(net, [200.0], [0.2], [1.0, 0.0], ln_eq=[[np.log(3.0)]])
+    a, b = result.concentrations[0][0]
+    assert b / a == pytest.approx(3.0, rel=1e-6)
+
+
+def central_difference(function, x, step=1e-6):
+    grads = []
+    for i in range(x.size):
+        up, down = x.copy(), x.copy()
+        up[i] += step
+        down[i] -= step
+        grads.append((function(up) - function(down)) / (2 * step))
+    return np.stack(grads, axis=-1)
+
+
+def test_sensitivities_match_finite_differences():
+    # Every kind of sensitivity parameter at once: ln k, ln K, a fitted order, an uncertain initial value.
+    net = network("ABCD", "A + B <=> C", "C -> D")
+    times = np.array([0.5, 2.0, 5.0, 12.0])
+    solver = NetworkSolver(net, [times], free_orders=((0, 1),), free_initial=(0,))
+    base = np.array([np.log(0.8), np.log(0.05), np.log(4.0), 1.3, 1.1])  # ln k1, ln k2, ln K1, order, A0
+
+    def run(x, sensitivities=False):
+        orders = np.array(net.forward_orders)
+        orders[0, 1] = x[3]
+        return solver.solve(
+            x[None, :2], x[None, 2:3], orders, np.array([[x[4], 0.9, 0.0, 0.0]]), sensitivities=sensitivities
+        )
+
+    exact = run(base, sensitivities=True).sensitivities[0]
+    numeric = central_difference(lambda x: run(x).concentrations[0], base)
+    np.testing.assert_allclose(exact, numeric, rtol=2e-4, atol=2e-6)
+
+
+@pytest.mark.parametrize(
+    ("text", "fragment"),
+    [
+        ("A + B", "no arrow"),
+        ("-> B", "no reactants"),
+        ("A -> B -> C", "one arrow"),
+        ("A + 3 -> B", "cannot read"),
+        ("A <=>", "needs products"),
+    ],
+)
+def test_equations_that_do_not_parse(text, fragment):
+    with pytest.raises(EquationError, match=fragment):
+        parse_equation(text)
+
+
+def test_equation_coefficients_and_catalysts():
+    eq = parse_equation("2 A + B -> B + C")
+    net = build_network(("A", "B", "C"), ("r",), (eq,))
+    np.testing.assert_array_equal(net.stoichiometry[0], [-2.0, 0.0, 1.0])
+    np.testing.assert_array_equal(net.forward_orders[0], [2.0, 1.0, 0.0])
