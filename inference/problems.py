@@ -18,6 +18,7 @@ import xarray as xr
 
 from . import closed_form, plots, units
 from .arrhenius import ln_rate_constant
+from .config import Z95
 from .data import Observations, RateConstantData, read_observations, read_rate_constants
 from .solution import NetworkSolver, SolverFailure
 from .study import Study
@@ -71,7 +72,7 @@ def _prior_lines(study: Study) -> list[str]:
         p = spec.prior
         line = (
             f"    {spec.name}: {spec.equation + ', ' if spec.equation else ''}{spec.rate_law}; k_ref ~ lognormal("
-            f"median {math.exp(p.ln_k_ref_mean):.4g} {spec.k_unit}, x/÷ {math.exp(p.ln_k_ref_sd * 1.959964):.3g}"
+            f"median {math.exp(p.ln_k_ref_mean):.4g} {spec.k_unit}, x/÷ {math.exp(p.ln_k_ref_sd * Z95):.3g}"
             f" at 95 %); Ea ~ normal({units.joule_per_mol_to(p.ea_mean, energy):.4g}, sd "
             f"{units.joule_per_mol_to(p.ea_sd, energy):.4g} {energy}) truncated > 0"
         )

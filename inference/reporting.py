@@ -4,7 +4,6 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING
 
-from . import units
 from .study import Study
 
 if TYPE_CHECKING:
@@ -15,10 +14,6 @@ CAUTION = (
     "Extrapolating beyond the measured temperatures widens every uncertainty; an exothermic scale-up needs "
     "calorimetry and a process-safety review under local codes and licensed practice."
 )
-
-
-def _energy(value_j_per_mol: float, unit: str) -> str:
-    return f"{float(units.joule_per_mol_to(value_j_per_mol, unit)):.4g} {unit}"
 
 
 def check_report(study: Study) -> str:

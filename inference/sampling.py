@@ -102,6 +102,10 @@ def sample_posterior(model: pm.Model, settings: Sampling, *, progress: bool) -> 
             idata_kwargs={"log_likelihood": True},
             **extra,
         )
+        got = idata.posterior.sizes
+        if got.get("chain", 0) < settings.chains or got.get("draw", 0) < settings.draws:
+            # PyMC answers Ctrl-C by returning the draws made so far; a partial posterior is never a result.
+            raise KeyboardInterrupt("sampling was interrupted")
         pm.sample_posterior_predictive(
             idata, extend_inferencedata=True, random_seed=settings.seed + 1, progressbar=False
         )
