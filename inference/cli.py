@@ -40,6 +40,13 @@ def _parser() -> argparse.ArgumentParser:
     check = commands.add_parser("check", help="validate a study file and its data; samples nothing")
     check.add_argument("study", type=Path)
 
+    compare = commands.add_parser("compare", help="compare candidate studies fitted to the same data")
+    compare.add_argument("candidates", type=Path, nargs="+", help="study files or saved results folders")
+    compare.add_argument("--out", type=Path, help="comparison folder (default: results/comparison)")
+    compare.add_argument("--root", type=Path, default=Path("results"),
+                         help="where candidate study files are fitted, one folder each (default: %(default)s)")
+    fit_options(compare)
+
     fit = commands.add_parser("fit", help="fit a study and write its results folder")
     fit.add_argument("study", type=Path)
     fit.add_argument("--out", type=Path, help="results folder (default: results/<study>)")
@@ -66,18 +73,33 @@ def _fit_and_report(study_path: Path, args: argparse.Namespace, out: Path | None
     return ExitCode.DONE if result.diagnostics.verdict == "pass" else ExitCode.UNTRUSTED
 
 
+def _compare_and_report(candidates: list[Path], args: argparse.Namespace, out: Path | None, root: Path) -> int:
+    from . import pipeline, reporting
+
+    result = pipeline.compare_studies(candidates, out=out, root=root, overwrite=args.overwrite, quiet=args.quiet,
+                                      draws=args.draws, tune=args.tune, chains=args.chains, seed=args.seed,
+                                      command_line=" ".join(["arrhenia", *sys.argv[1:]]))
+    if not args.quiet:
+        print(reporting.comparison_report(result))
+    trusted = all(verdict == "pass" for verdict in result.verdicts.values())
+    return ExitCode.DONE if trusted else ExitCode.UNTRUSTED
+
+
 def _run(args: argparse.Namespace) -> int:
+    from .config import load_study
+
     if args.command == "check":
         from . import reporting
-        from .config import load_study
 
         study = load_study(args.study)
         print(reporting.check_report(study))
         return ExitCode.DONE
     if args.command == "fit":
         return _fit_and_report(args.study, args, args.out)
+    if args.command == "compare":
+        return _compare_and_report(args.candidates, args, args.out, args.root)
     if args.command == "demo":
-        from .demo import write_demo
+        from .demo import ALTERNATIVE_STUDY_FILE, write_demo
         from .results import check_target
 
         out: Path = args.out
@@ -87,8 +109,13 @@ def _run(args: argparse.Namespace) -> int:
         check_target(results, args.overwrite)
         study_path = write_demo(out)
         if not args.quiet:
-            print(f"wrote the demo study {study_path} and its data")
-        return _fit_and_report(study_path, args, results)
+            print(f"wrote the demo studies into {out}; fitting {study_path.name}")
+        fitted = _fit_and_report(study_path, args, results / load_study(study_path).name)
+        if not args.quiet:
+            print(f"\ncomparing with the competing candidate {ALTERNATIVE_STUDY_FILE}")
+        compared = _compare_and_report([study_path, out / ALTERNATIVE_STUDY_FILE], args, results / "comparison",
+                                       results)
+        return max(fitted, compared)
     raise AssertionError(args.command)  # argparse allows only the commands above
 
 

@@ -49,6 +49,7 @@ REPLICATES = 3
 STUDY_FILE = "study.yaml"
 RUNS_FILE = "runs.csv"
 MEASUREMENTS_FILE = "measurements.csv"
+ALTERNATIVE_STUDY_FILE = "study_first_order.yaml"
 RATE_STUDY_FILE = "rate_constants.yaml"
 RATE_CONSTANTS_FILE = "rate_constants.csv"
 
@@ -79,6 +80,33 @@ noise: {model: proportional, sigma: {scale: 0.2}}
 sampling: {draws: 500, tune: 500, chains: 4, seed: 1, target_accept: 0.9}
 report:
   k_at: [25, 60]                          # degC; 25 degC lies outside the data and is flagged
+"""
+
+ALTERNATIVE_STUDY_TEXT = """\
+# A competing candidate for the demo data: the coupling as first order in A and zero order in B (as if B were
+# in large excess). The data were made with the second-order law of study.yaml; arrhenia demo compares both.
+study: demo-coupling-first-order
+title: Coupling taken as pseudo-first order in A (candidate for comparison)
+units: {time: min, temperature: degC, concentration: mol/L, energy: kJ/mol}
+data:
+  runs: runs.csv
+  measurements: measurements.csv
+species: [A, B, C, D]
+reactions:
+  - name: coupling
+    equation: A + B -> C
+    rate_law: power_law
+    orders: {A: 1, B: 0}
+    k_ref: {median: 0.04, factor: 20}     # 1/min at T_ref
+    Ea: {mean: 70, sd: 30}
+  - name: degradation
+    equation: C -> D
+    rate_law: mass_action
+    k_ref: {median: 0.005, factor: 20}
+    Ea: {mean: 80, sd: 30}
+reference_temperature: auto
+noise: {model: proportional, sigma: {scale: 0.2}}
+sampling: {draws: 500, tune: 500, chains: 4, seed: 1, target_accept: 0.9}
 """
 
 RATE_STUDY_TEXT = """\
@@ -148,12 +176,14 @@ def simulate_network(seed: int = NETWORK_SEED) -> tuple[list[str], list[str]]:
 
 
 def write_demo(folder: Path) -> Path:
-    """Write both demo studies and their data into ``folder``; returns the network study's path."""
+    """Write the demo studies (network, its competing candidate, rate constants) and their data into ``folder``;
+    returns the network study's path."""
     folder.mkdir(parents=True, exist_ok=True)
     runs, measurements = simulate_network()
     (folder / RUNS_FILE).write_text("\n".join(runs) + "\n")
     (folder / MEASUREMENTS_FILE).write_text("\n".join(measurements) + "\n")
     (folder / STUDY_FILE).write_text(STUDY_TEXT)
+    (folder / ALTERNATIVE_STUDY_FILE).write_text(ALTERNATIVE_STUDY_TEXT)
     lines = ["temperature,k"] + [f"{t:g},{k:.6g}" for t, k in simulate_rate_constants()]
     (folder / RATE_CONSTANTS_FILE).write_text("\n".join(lines) + "\n")
     (folder / RATE_STUDY_FILE).write_text(RATE_STUDY_TEXT)

@@ -25,6 +25,7 @@ from . import __version__, plots
 from .arrhenius import auto_reference_temperature
 from .config import load_study
 from .diagnostics import Diagnostics, assess
+from .errors import StudyError
 from .problems import Problem, open_problem
 from .results import StagedFolder, check_target, sha256_file, sha256_json
 from .sampling import sample_posterior
@@ -84,9 +85,9 @@ class FitResult:
     idata: az.InferenceData
 
 
-def default_results_dir(study: Study) -> Path:
-    """``results/<study>/`` below the current folder."""
-    return Path("results") / study.name
+def default_results_dir(study: Study, root: Path = Path("results")) -> Path:
+    """``results/<study>/`` below the current folder (or below ``root``)."""
+    return Path(root) / study.name
 
 
 def resolved_study_yaml(study: Study, temperature_ref: float, sampling: dict) -> str:
@@ -198,6 +199,7 @@ def _write(
             "dH": "J/mol",
         },
         "seed": sampling["seed"],
+        "measurement_groups": problem.measurement_groups(),
     }
     for group in idata.groups():
         idata[group].attrs["arrhenia"] = json.dumps(attrs, sort_keys=True)
@@ -231,3 +233,128 @@ def _write(
         plots.pair_plot(_pair_columns(quantities), folder.path("figures/pair.png"), seed=sampling["seed"])
         folder.write_text("study.yaml", resolved_study_yaml(study, result.reference_temperature_K, sampling))
         folder.write_json("manifest.json", manifest)
+
+
+def provenance(study: Study) -> dict:
+    """What a results folder must record to count as made from this study and its data."""
+    return {
+        "config_sha256": sha256_json(study.canonical),
+        "data": {role: sha256_file(path) for role, path in study.data_files},
+    }
+
+
+def results_match(folder: Path, study: Study) -> bool:
+    """Whether ``folder`` holds complete results of exactly this study and data (by the manifest's hashes)."""
+    manifest_path = folder / "manifest.json"
+    if not (manifest_path.is_file() and (folder / "posterior.nc").is_file()):
+        return False
+    try:
+        manifest = json.loads(manifest_path.read_text())
+        recorded = {"config_sha256": manifest["config_sha256"],
+                    "data": {role: entry["sha256"] for role, entry in manifest["data"].items()}}
+    except (ValueError, KeyError, TypeError):
+        return False
+    return recorded == provenance(study)
+
+
+@dataclass(frozen=True)
+class ComparisonResult:
+    """A comparison of candidate studies on the same data; the content of its results folder."""
+
+    results_dir: Path
+    table: pd.DataFrame
+    verdict: list[str]
+    candidates: dict[str, Path]
+    verdicts: dict[str, str]
+
+
+def _candidate(source: Path, root: Path, overwrite: bool, quiet: bool, sampling: dict,
+               steps: Steps) -> tuple[str, dict, az.InferenceData, Path]:
+    """(name, manifest, posterior, folder) of one candidate: a saved results folder, or a study file fitted
+    into ``root/<study>`` unless a matching fit is already there."""
+    from .results import load_results
+
+    if source.is_dir():
+        manifest, idata = load_results(source)
+        return str(manifest.get("study", source.name)), manifest, idata, source
+    study = load_study(source)
+    folder = default_results_dir(study, root)
+    if results_match(folder, study) and not any(v is not None for v in sampling.values()):
+        steps.say(f"reusing the fit of {study.name} in {folder} (same study and data)")
+    else:
+        if folder.exists() and not overwrite:
+            raise StudyError(str(folder), f"holds results that do not match {source}",
+                             "pass --overwrite to refit, or remove the folder")
+        steps.say(f"fitting candidate {study.name}")
+        fit_study(study, out=folder, overwrite=overwrite, quiet=quiet, **sampling)
+    manifest, idata = load_results(folder)
+    return study.name, manifest, idata, folder
+
+
+def compare_studies(
+    sources: list[str | Path],
+    *,
+    out: str | Path | None = None,
+    root: str | Path = "results",
+    overwrite: bool = False,
+    quiet: bool = False,
+    draws: int | None = None,
+    tune: int | None = None,
+    chains: int | None = None,
+    seed: int | None = None,
+    command_line: str | None = None,
+) -> ComparisonResult:
+    """Compare two or more candidate studies (files or saved results folders) that share the same data.
+
+    Study files are fitted into ``root/<study>/`` (a matching earlier fit there is reused); the comparison is
+    written to ``out`` (default ``root/comparison``). Raises ``StudyError`` when candidates' data differ.
+    """
+    from . import comparison
+
+    steps = Steps(quiet)
+    if len(sources) < 2:
+        raise StudyError("compare", "needs two or more candidates")
+    sampling = {"draws": draws, "tune": tune, "chains": chains, "seed": seed}
+    target = Path(out) if out is not None else Path(root) / "comparison"
+    check_target(target, overwrite)
+    loaded = [_candidate(Path(s), Path(root), overwrite, quiet, sampling, steps) for s in sources]
+    names = [name for name, *_ in loaded]
+    if len(set(names)) != len(names):
+        twice = next(n for n in names if names.count(n) > 1)
+        raise StudyError(str(sources[names.index(twice)]), f"two candidates are both named '{twice}'",
+                         "give each candidate study its own 'study:' name")
+    reference_name, reference_manifest = names[0], loaded[0][1]
+    reference_data = {role: entry["sha256"] for role, entry in reference_manifest["data"].items()}
+    for name, manifest, _, folder in loaded[1:]:
+        data = {role: entry["sha256"] for role, entry in manifest["data"].items()}
+        if data != reference_data:
+            raise StudyError(str(folder), f"candidate '{name}' was fitted to other data than '{reference_name}'",
+                             "candidates must share the same data files, byte for byte")
+    groups = json.loads(loaded[0][2].posterior.attrs["arrhenia"])["measurement_groups"]
+    named = {name: idata for name, _, idata, _ in loaded}
+    steps.done("loaded candidates", ", ".join(names))
+    table = comparison.compare(named, groups)
+    sentences = comparison.verdict(table)
+    steps.done("compared", f"{len(names)} candidates")
+    verdicts = {}
+    for name, _, _, folder in loaded:
+        verdicts[name] = json.loads((folder / "diagnostics.json").read_text()).get("verdict", "unknown")
+    result = ComparisonResult(target, table, sentences, {n: f for n, _, _, f in loaded}, verdicts)
+    manifest = {
+        "arrhenia_version": __version__,
+        "created": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
+        "command_line": command_line or " ".join(sys.argv),
+        "candidates": {name: {"results": str(folder), "config_sha256": m.get("config_sha256"),
+                              "diagnostics": verdicts[name]} for name, m, _, folder in loaded},
+        "data": reference_manifest["data"],
+        "pareto_k_threshold": comparison.pareto_k_threshold(
+            loaded[0][2].posterior.sizes["chain"] * loaded[0][2].posterior.sizes["draw"]),
+        "versions": _versions(),
+    }
+    with StagedFolder(target, overwrite) as folder:
+        folder.write_csv("comparison.csv", table)
+        folder.write_text("verdict.txt", "\n".join(sentences) + "\n")
+        plots.comparison_plot(table, folder.path("figures/comparison.png"))
+        folder.write_json("manifest.json", manifest)
+    steps.done("wrote comparison", str(target))
+    return result

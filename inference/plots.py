@@ -153,3 +153,22 @@ def pair_plot(columns: dict[str, np.ndarray], path: Path, *, max_points: int = 1
     fig.tight_layout()
     fig.savefig(path, dpi=110)
     plt.close(fig)
+
+
+def comparison_plot(table, path: Path) -> None:
+    """elpd of each candidate with its standard error, pointwise and leave-one-run-out side by side."""
+    levels = [("pointwise", "held-out measurements"), ("leave_one_run_out", "held-out runs")]
+    fig, axes = plt.subplots(1, 2, figsize=(9.0, 0.9 + 0.55 * table["candidate"].nunique()), squeeze=False)
+    for ax, (level, label) in zip(axes[0], levels, strict=True):
+        rows = table[table["level"] == level].sort_values("rank", ascending=False)
+        y = np.arange(len(rows))
+        ax.errorbar(rows["elpd"], y, xerr=rows["se"], fmt="o", color="C0", capsize=3, label="elpd ± se")
+        ax.errorbar(rows["elpd"].max() - rows["elpd_diff"], y + 0.15, xerr=rows["dse"], fmt="^", color="0.4",
+                    capsize=3, markersize=4, label="difference to best ± se")
+        ax.set_yticks(y, rows["candidate"])
+        ax.set_xlabel("expected log predictive density (PSIS-LOO)")
+        ax.set_title(label, fontsize=10)
+    axes[0, 0].legend(fontsize=7, frameon=False, loc="lower left")
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    plt.close(fig)

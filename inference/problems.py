@@ -51,6 +51,8 @@ class Problem(Protocol):
 
     def fit_checks(self, idata: az.InferenceData) -> pd.DataFrame: ...
 
+    def measurement_groups(self) -> list[str]: ...
+
     def extra_tables(self) -> dict[str, pd.DataFrame]: ...
 
     def figures(
@@ -143,6 +145,12 @@ class RateConstantProblem:
     def fit_checks(self, idata: az.InferenceData) -> pd.DataFrame:
         return rate_constant_fit_checks(self.study, self.data, idata)
 
+    def measurement_groups(self) -> list[str]:
+        """Each measurement's experiment for leave-one-run-out: its reaction and temperature."""
+        names = self.study.reaction_names
+        return [f"{names[r]} @ {t:.6g} K" for r, t in zip(self.data.reaction_index, self.data.temperature_K,
+                                                           strict=True)]
+
     def extra_tables(self) -> dict[str, pd.DataFrame]:
         return {"classical.csv": classical_table(self.study, self.data)}
 
@@ -214,6 +222,10 @@ class NetworkProblem:
 
     def fit_checks(self, idata: az.InferenceData) -> pd.DataFrame:
         return network_fit_checks(self.study, self.obs, idata)
+
+    def measurement_groups(self) -> list[str]:
+        """Each measurement's run, for leave-one-run-out."""
+        return [self.obs.run_ids[r] for r in self.obs.run_index]
 
     def extra_tables(self) -> dict[str, pd.DataFrame]:
         return {}

@@ -7,7 +7,7 @@ from typing import TYPE_CHECKING
 from .study import Study
 
 if TYPE_CHECKING:
-    from .pipeline import FitResult
+    from .pipeline import ComparisonResult, FitResult
 
 CAUTION = (
     "Caution: kinetics fitted over a narrow temperature range are not a basis for thermal-safety decisions. "
@@ -60,4 +60,17 @@ def fit_report(result: FitResult) -> str:
         result.correlations.to_string(index=False, float_format="{:.3f}".format),
     ]
     lines += ["", *result.extrapolations, CAUTION, "", f"results: {result.results_dir}"]
+    return "\n".join(lines)
+
+
+def comparison_report(result: ComparisonResult) -> str:
+    """The verdict sentences and the comparison table, and any candidate whose sampler was not trusted."""
+    table = result.table[["level", "rank", "candidate", "elpd", "se", "elpd_diff", "dse", "weight", "high_pareto_k"]]
+    lines = ["", "comparison (PSIS-LOO; weights by stacking):",
+             table.to_string(index=False, float_format="{:.2f}".format), ""]
+    lines += result.verdict
+    for name, verdict in result.verdicts.items():
+        if verdict != "pass":
+            lines.append(f"warning: the diagnostics of {name} are '{verdict}'; its numbers are not to be trusted")
+    lines += ["", f"comparison: {result.results_dir}"]
     return "\n".join(lines)

@@ -12,10 +12,14 @@ import os
 import shutil
 from pathlib import Path
 from types import TracebackType
+from typing import TYPE_CHECKING
 
 import pandas as pd
 
 from .errors import StudyError
+
+if TYPE_CHECKING:
+    import arviz as az
 
 #: Float format of every CSV we write: enough digits for any use, and the same bytes for the same numbers.
 CSV_FLOAT_FORMAT = "%.8g"
@@ -98,3 +102,27 @@ class StagedFolder:
 
     def write_text(self, name: str, text: str) -> None:
         self.path(name).write_text(text)
+
+
+def load_results(folder: Path) -> tuple[dict, az.InferenceData]:
+    """The manifest and posterior of a saved results folder; ``StudyError`` if it is not one."""
+    import arviz as az
+
+    folder = Path(folder)
+    manifest_path, posterior_path = folder / "manifest.json", folder / "posterior.nc"
+    if not folder.is_dir():
+        raise StudyError(str(folder), "results folder not found")
+    for path in (manifest_path, posterior_path):
+        if not path.is_file():
+            raise StudyError(str(folder), f"is not a complete results folder ({path.name} is missing)")
+    try:
+        manifest = json.loads(manifest_path.read_text())
+    except ValueError:
+        raise StudyError(str(manifest_path), "is not valid JSON") from None
+    try:
+        idata = az.from_netcdf(posterior_path)
+    except Exception:
+        raise StudyError(str(posterior_path), "cannot be read as ArviZ InferenceData") from None
+    if "log_likelihood" not in idata.groups():
+        raise StudyError(str(posterior_path), "has no log_likelihood group, so it cannot be compared")
+    return manifest, idata
