@@ -43,8 +43,12 @@ def _parser() -> argparse.ArgumentParser:
     compare = commands.add_parser("compare", help="compare candidate studies fitted to the same data")
     compare.add_argument("candidates", type=Path, nargs="+", help="study files or saved results folders")
     compare.add_argument("--out", type=Path, help="comparison folder (default: results/comparison)")
-    compare.add_argument("--root", type=Path, default=Path("results"),
-                         help="where candidate study files are fitted, one folder each (default: %(default)s)")
+    compare.add_argument(
+        "--root",
+        type=Path,
+        default=Path("results"),
+        help="where candidate study files are fitted, one folder each (default: %(default)s)",
+    )
     fit_options(compare)
 
     fit = commands.add_parser("fit", help="fit a study and write its results folder")
@@ -76,9 +80,18 @@ def _fit_and_report(study_path: Path, args: argparse.Namespace, out: Path | None
 def _compare_and_report(candidates: list[Path], args: argparse.Namespace, out: Path | None, root: Path) -> int:
     from . import pipeline, reporting
 
-    result = pipeline.compare_studies(candidates, out=out, root=root, overwrite=args.overwrite, quiet=args.quiet,
-                                      draws=args.draws, tune=args.tune, chains=args.chains, seed=args.seed,
-                                      command_line=" ".join(["arrhenia", *sys.argv[1:]]))
+    result = pipeline.compare_studies(
+        candidates,
+        out=out,
+        root=root,
+        overwrite=args.overwrite,
+        quiet=args.quiet,
+        draws=args.draws,
+        tune=args.tune,
+        chains=args.chains,
+        seed=args.seed,
+        command_line=" ".join(["arrhenia", *sys.argv[1:]]),
+    )
     if not args.quiet:
         print(reporting.comparison_report(result))
     trusted = all(verdict == "pass" for verdict in result.verdicts.values())
@@ -113,8 +126,9 @@ def _run(args: argparse.Namespace) -> int:
         fitted = _fit_and_report(study_path, args, results / load_study(study_path).name)
         if not args.quiet:
             print(f"\ncomparing with the competing candidate {ALTERNATIVE_STUDY_FILE}")
-        compared = _compare_and_report([study_path, out / ALTERNATIVE_STUDY_FILE], args, results / "comparison",
-                                       results)
+        compared = _compare_and_report(
+            [study_path, out / ALTERNATIVE_STUDY_FILE], args, results / "comparison", results
+        )
         return max(fitted, compared)
     raise AssertionError(args.command)  # argparse allows only the commands above
 

@@ -19,8 +19,19 @@ import pandas as pd
 import xarray as xr
 
 COLUMNS = [
-    "level", "rank", "candidate", "elpd", "se", "elpd_diff", "dse", "p_loo", "weight", "high_pareto_k", "points",
-    "elpd_waic", "p_waic",
+    "level",
+    "rank",
+    "candidate",
+    "elpd",
+    "se",
+    "elpd_diff",
+    "dse",
+    "p_loo",
+    "weight",
+    "high_pareto_k",
+    "points",
+    "elpd_waic",
+    "p_waic",
 ]
 #: Differences within this many standard errors are not called a preference (common practice).
 SIGNIFICANT_SE = 2.0
@@ -51,21 +62,23 @@ def _level_table(named: dict[str, az.InferenceData], level: str) -> pd.DataFrame
             waic = az.waic(named[name])
             draws = named[name].posterior.sizes["chain"] * named[name].posterior.sizes["draw"]
             k = np.asarray(loo.pareto_k)
-            rows.append({
-                "level": level,
-                "rank": int(row["rank"]) + 1,
-                "candidate": name,
-                "elpd": float(row["elpd_loo"]),
-                "se": float(row["se"]),
-                "elpd_diff": float(row["elpd_diff"]),
-                "dse": float(row["dse"]),
-                "p_loo": float(row["p_loo"]),
-                "weight": float(row["weight"]),
-                "high_pareto_k": int(np.sum(k > pareto_k_threshold(draws))),
-                "points": int(k.size),
-                "elpd_waic": float(waic.elpd_waic),
-                "p_waic": float(waic.p_waic),
-            })
+            rows.append(
+                {
+                    "level": level,
+                    "rank": int(row["rank"]) + 1,
+                    "candidate": name,
+                    "elpd": float(row["elpd_loo"]),
+                    "se": float(row["se"]),
+                    "elpd_diff": float(row["elpd_diff"]),
+                    "dse": float(row["dse"]),
+                    "p_loo": float(row["p_loo"]),
+                    "weight": float(row["weight"]),
+                    "high_pareto_k": int(np.sum(k > pareto_k_threshold(draws))),
+                    "points": int(k.size),
+                    "elpd_waic": float(waic.elpd_waic),
+                    "p_waic": float(waic.p_waic),
+                }
+            )
     return pd.DataFrame(rows, columns=COLUMNS)
 
 
@@ -90,16 +103,23 @@ def verdict(table: pd.DataFrame) -> list[str]:
         difference, se = float(second["elpd_diff"]), float(second["dse"])
         ratio = difference / se if se > 0 else math.inf
         if ratio >= SIGNIFICANT_SE:
-            text = (f"For {label}: {best['candidate']} is preferred over {second['candidate']} by "
-                    f"Δelpd = {difference:.1f} ± {se:.1f}; the difference is about {ratio:.0f} standard errors "
-                    f"(stacking weight {best['weight']:.2f}).")
+            text = (
+                f"For {label}: {best['candidate']} is preferred over {second['candidate']} by "
+                f"Δelpd = {difference:.1f} ± {se:.1f}; the difference is about {ratio:.0f} standard errors "
+                f"(stacking weight {best['weight']:.2f})."
+            )
         else:
-            text = (f"For {label}: {best['candidate']} and {second['candidate']} cannot be told apart "
-                    f"(Δelpd = {difference:.1f} ± {se:.1f}, {ratio:.1f} standard errors); prefer the simpler "
-                    "mechanism or collect data that separate them.")
+            text = (
+                f"For {label}: {best['candidate']} and {second['candidate']} cannot be told apart "
+                f"(Δelpd = {difference:.1f} ± {se:.1f}, {ratio:.1f} standard errors); prefer the simpler "
+                "mechanism or collect data that separate them."
+            )
+        unit = "measurements" if level == "pointwise" else "runs"
         flagged = rows[rows["high_pareto_k"] > 0]
         for _, row in flagged.iterrows():
-            text += (f" The estimate for {row['candidate']} is unreliable at {row['high_pareto_k']} of "
-                     f"{row['points']} points (Pareto k above the threshold).")
+            text += (
+                f" The estimate for {row['candidate']} is unreliable at {row['high_pareto_k']} of "
+                f"{row['points']} {unit} (Pareto k above the threshold)."
+            )
         sentences.append(text)
     return sentences

@@ -250,8 +250,10 @@ def results_match(folder: Path, study: Study) -> bool:
         return False
     try:
         manifest = json.loads(manifest_path.read_text())
-        recorded = {"config_sha256": manifest["config_sha256"],
-                    "data": {role: entry["sha256"] for role, entry in manifest["data"].items()}}
+        recorded = {
+            "config_sha256": manifest["config_sha256"],
+            "data": {role: entry["sha256"] for role, entry in manifest["data"].items()},
+        }
     except (ValueError, KeyError, TypeError):
         return False
     return recorded == provenance(study)
@@ -268,8 +270,9 @@ class ComparisonResult:
     verdicts: dict[str, str]
 
 
-def _candidate(source: Path, root: Path, overwrite: bool, quiet: bool, sampling: dict,
-               steps: Steps) -> tuple[str, dict, az.InferenceData, Path]:
+def _candidate(
+    source: Path, root: Path, overwrite: bool, quiet: bool, sampling: dict, steps: Steps
+) -> tuple[str, dict, az.InferenceData, Path]:
     """(name, manifest, posterior, folder) of one candidate: a saved results folder, or a study file fitted
     into ``root/<study>`` unless a matching fit is already there."""
     from .results import load_results
@@ -283,8 +286,11 @@ def _candidate(source: Path, root: Path, overwrite: bool, quiet: bool, sampling:
         steps.say(f"reusing the fit of {study.name} in {folder} (same study and data)")
     else:
         if folder.exists() and not overwrite:
-            raise StudyError(str(folder), f"holds results that do not match {source}",
-                             "pass --overwrite to refit, or remove the folder")
+            raise StudyError(
+                str(folder),
+                f"holds results that do not match {source}",
+                "pass --overwrite to refit, or remove the folder",
+            )
         steps.say(f"fitting candidate {study.name}")
         fit_study(study, out=folder, overwrite=overwrite, quiet=quiet, **sampling)
     manifest, idata = load_results(folder)
@@ -321,15 +327,21 @@ def compare_studies(
     names = [name for name, *_ in loaded]
     if len(set(names)) != len(names):
         twice = next(n for n in names if names.count(n) > 1)
-        raise StudyError(str(sources[names.index(twice)]), f"two candidates are both named '{twice}'",
-                         "give each candidate study its own 'study:' name")
+        raise StudyError(
+            str(sources[names.index(twice)]),
+            f"two candidates are both named '{twice}'",
+            "give each candidate study its own 'study:' name",
+        )
     reference_name, reference_manifest = names[0], loaded[0][1]
     reference_data = {role: entry["sha256"] for role, entry in reference_manifest["data"].items()}
     for name, manifest, _, folder in loaded[1:]:
         data = {role: entry["sha256"] for role, entry in manifest["data"].items()}
         if data != reference_data:
-            raise StudyError(str(folder), f"candidate '{name}' was fitted to other data than '{reference_name}'",
-                             "candidates must share the same data files, byte for byte")
+            raise StudyError(
+                str(folder),
+                f"candidate '{name}' was fitted to other data than '{reference_name}'",
+                "candidates must share the same data files, byte for byte",
+            )
     groups = json.loads(loaded[0][2].posterior.attrs["arrhenia"])["measurement_groups"]
     named = {name: idata for name, _, idata, _ in loaded}
     steps.done("loaded candidates", ", ".join(names))
@@ -344,11 +356,14 @@ def compare_studies(
         "arrhenia_version": __version__,
         "created": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
         "command_line": command_line or " ".join(sys.argv),
-        "candidates": {name: {"results": str(folder), "config_sha256": m.get("config_sha256"),
-                              "diagnostics": verdicts[name]} for name, m, _, folder in loaded},
+        "candidates": {
+            name: {"results": str(folder), "config_sha256": m.get("config_sha256"), "diagnostics": verdicts[name]}
+            for name, m, _, folder in loaded
+        },
         "data": reference_manifest["data"],
         "pareto_k_threshold": comparison.pareto_k_threshold(
-            loaded[0][2].posterior.sizes["chain"] * loaded[0][2].posterior.sizes["draw"]),
+            loaded[0][2].posterior.sizes["chain"] * loaded[0][2].posterior.sizes["draw"]
+        ),
         "versions": _versions(),
     }
     with StagedFolder(target, overwrite) as folder:

@@ -163,8 +163,16 @@ def comparison_plot(table, path: Path) -> None:
         rows = table[table["level"] == level].sort_values("rank", ascending=False)
         y = np.arange(len(rows))
         ax.errorbar(rows["elpd"], y, xerr=rows["se"], fmt="o", color="C0", capsize=3, label="elpd ± se")
-        ax.errorbar(rows["elpd"].max() - rows["elpd_diff"], y + 0.15, xerr=rows["dse"], fmt="^", color="0.4",
-                    capsize=3, markersize=4, label="difference to best ± se")
+        ax.errorbar(
+            rows["elpd"].max() - rows["elpd_diff"],
+            y + 0.15,
+            xerr=rows["dse"],
+            fmt="^",
+            color="0.4",
+            capsize=3,
+            markersize=4,
+            label="difference to best ± se",
+        )
         ax.set_yticks(y, rows["candidate"])
         ax.set_xlabel("expected log predictive density (PSIS-LOO)")
         ax.set_title(label, fontsize=10)

@@ -148,8 +148,9 @@ class RateConstantProblem:
     def measurement_groups(self) -> list[str]:
         """Each measurement's experiment for leave-one-run-out: its reaction and temperature."""
         names = self.study.reaction_names
-        return [f"{names[r]} @ {t:.6g} K" for r, t in zip(self.data.reaction_index, self.data.temperature_K,
-                                                           strict=True)]
+        return [
+            f"{names[r]} @ {t:.6g} K" for r, t in zip(self.data.reaction_index, self.data.temperature_K, strict=True)
+        ]
 
     def extra_tables(self) -> dict[str, pd.DataFrame]:
         return {"classical.csv": classical_table(self.study, self.data)}

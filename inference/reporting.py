@@ -66,8 +66,12 @@ def fit_report(result: FitResult) -> str:
 def comparison_report(result: ComparisonResult) -> str:
     """The verdict sentences and the comparison table, and any candidate whose sampler was not trusted."""
     table = result.table[["level", "rank", "candidate", "elpd", "se", "elpd_diff", "dse", "weight", "high_pareto_k"]]
-    lines = ["", "comparison (PSIS-LOO; weights by stacking):",
-             table.to_string(index=False, float_format="{:.2f}".format), ""]
+    lines = [
+        "",
+        "comparison (PSIS-LOO; weights by stacking):",
+        table.to_string(index=False, float_format="{:.2f}".format),
+        "",
+    ]
     lines += result.verdict
     for name, verdict in result.verdicts.items():
         if verdict != "pass":

@@ -30,6 +30,8 @@ def quiet_backend_logs() -> None:
     warnings.filterwarnings("ignore", message=".*BLAS.*")
     warnings.filterwarnings("ignore", category=FutureWarning, module="arviz")
     warnings.filterwarnings("ignore", category=UserWarning, module="pymc")
+    # The only Potential is the solver guard, which rejects failed integrations; it has no predictive role.
+    warnings.filterwarnings("ignore", message="The effect of Potentials")
 
 
 def chains_in_parallel(chains: int) -> int:

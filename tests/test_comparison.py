@@ -29,13 +29,15 @@ def test_psis_loo_matches_exact_leave_one_out_of_the_conjugate_model(tmp_path):
     # variance sigma_i^2 + x_i S x_i^T (Bishop, Pattern Recognition and Machine Learning, 2006, eqs. 3.50-3.51
     # and 3.58). The log-likelihood Arrhenia stores is the density of k itself, so -ln k_i is added.
     rng = np.random.default_rng(21)
-    celsius = np.repeat([30.0, 45.0, 60.0, 75.0, 90.0], 2)
+    celsius = np.repeat([30.0, 45.0, 60.0, 75.0, 90.0], 4)
     kelvin = celsius + 273.15
     sd = np.full(kelvin.size, 0.2)
     x = np.column_stack([np.ones_like(kelvin), -(1 / kelvin - 1 / T_REF) / R])
     ln_k = x @ np.array([np.log(1e-3), 70_000.0]) + sd * rng.standard_normal(kelvin.size)
-    (tmp_path / "k.csv").write_text("temperature,k,k_rel_sd\n" + "".join(
-        f"{t:g},{np.exp(y):.17g},{s:g}\n" for t, y, s in zip(celsius, ln_k, sd, strict=True)))
+    (tmp_path / "k.csv").write_text(
+        "temperature,k,k_rel_sd\n"
+        + "".join(f"{t:g},{np.exp(y):.17g},{s:g}\n" for t, y, s in zip(celsius, ln_k, sd, strict=True))
+    )
     study_path = tmp_path / "study.yaml"
     study_path.write_text(f"""\
 study: conjugate-loo
@@ -74,8 +76,13 @@ def _second_order_data(tmp_path, excess: float, seed: int):
         k = arrhenius_k(0.2, 60_000.0, celsius)
         a0, b0 = 1.0, excess
         times = np.geomspace(0.1, 3.0 / (k * b0), 12)
-        data = _simulate(lambda t, c, k=k: [-k * c[0] * c[1], -k * c[0] * c[1], k * c[0] * c[1]], 3,
-                         [a0, b0, 0.0], times, seed + index)
+        data = _simulate(
+            lambda t, c, k=k: [-k * c[0] * c[1], -k * c[0] * c[1], k * c[0] * c[1]],
+            3,
+            [a0, b0, 0.0],
+            times,
+            seed + index,
+        )
         runs.append(f"r{index},{celsius},{a0},{b0},0")
         meas += [f"r{index},{t:.6g},{a:.6g},{c:.6g}" for t, (a, _, c) in zip(times, data, strict=True)]
     (tmp_path / "runs.csv").write_text("\n".join(runs) + "\n")
@@ -88,15 +95,22 @@ reference_temperature: {T_REF} K
 sampling: {{draws: 400, tune: 400, chains: 2, seed: 2}}
 """
     second = tmp_path / "second.yaml"
-    second.write_text("study: second-order\n" + header + """\
+    second.write_text(
+        "study: second-order\n"
+        + header
+        + """\
 reactions:
   - name: join
     equation: A + B -> C
     k_ref: {median: 0.2, factor: 20}
     Ea: {mean: 60, sd: 30}
-""")
+"""
+    )
     first = tmp_path / "first.yaml"
-    first.write_text("study: first-order\n" + header + f"""\
+    first.write_text(
+        "study: first-order\n"
+        + header
+        + f"""\
 reactions:
   - name: join
     equation: A + B -> C
@@ -104,7 +118,8 @@ reactions:
     orders: {{A: 1, B: 0}}
     k_ref: {{median: {0.2 * excess}, factor: 20}}
     Ea: {{mean: 60, sd: 30}}
-""")
+"""
+    )
     return second, first
 
 

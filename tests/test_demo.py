@@ -11,7 +11,14 @@ import pandas as pd
 from inference import demo, fit_study
 
 REPO = Path(__file__).resolve().parents[1]
-DEMO_FILES = (demo.STUDY_FILE, demo.RUNS_FILE, demo.MEASUREMENTS_FILE, demo.RATE_STUDY_FILE, demo.RATE_CONSTANTS_FILE)
+DEMO_FILES = (
+    demo.STUDY_FILE,
+    demo.ALTERNATIVE_STUDY_FILE,
+    demo.RUNS_FILE,
+    demo.MEASUREMENTS_FILE,
+    demo.RATE_STUDY_FILE,
+    demo.RATE_CONSTANTS_FILE,
+)
 
 
 def test_committed_demo_data_are_what_the_generator_writes(tmp_path):
@@ -53,12 +60,18 @@ def test_network_demo_end_to_end_recovers_true_parameters(tmp_path):
     assert run.returncode == 0, run.stderr
     assert "diagnostics: PASS" in run.stdout
     assert "EXTRAPOLATED: k at 25 degC" in run.stdout  # 25 degC is below the 40-80 degC runs
-    summary = pd.read_csv(out / "results" / "summary.csv").set_index("parameter")
+    fit = out / "results" / "demo-coupling"
+    summary = pd.read_csv(fit / "summary.csv").set_index("parameter")
     for reaction, (k60, ea) in demo.TRUE_NETWORK.items():
         for name, truth in ((f"Ea[{reaction}]", ea / 1000), (f"k[{reaction}, 60 degC]", k60)):
             assert summary.loc[name, "q05"] < truth < summary.loc[name, "q95"], name
-    figures = {p.name for p in (out / "results" / "figures").iterdir()}
+    figures = {p.name for p in (fit / "figures").iterdir()}
     assert {"arrhenius.png", "pair.png"} | {f"run_{r[0]}.png" for r in demo.RUNS} <= figures
+    # The demo data were made with the second-order law, so the comparison must prefer it.
+    comparison = pd.read_csv(out / "results" / "comparison" / "comparison.csv")
+    best = comparison[comparison["rank"] == 1]
+    assert set(best["candidate"]) == {"demo-coupling"}
+    assert "demo-coupling is preferred over demo-coupling-first-order" in run.stdout
     again = subprocess.run(
         [sys.executable, "-m", "inference", "demo", "--out", str(out)], capture_output=True, text=True, timeout=600
     )
