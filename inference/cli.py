@@ -51,6 +51,14 @@ def _parser() -> argparse.ArgumentParser:
     )
     fit_options(compare)
 
+    predict = commands.add_parser("predict", help="reactor predictions from a saved posterior (no refit)")
+    predict.add_argument("results", type=Path, help="a results folder written by 'arrhenia fit'")
+    predict.add_argument("scenarios", type=Path, help="a YAML file of reactor scenarios")
+    predict.add_argument("--out", type=Path, help="predictions folder (default: RESULTS/predictions)")
+    predict.add_argument("--draws", type=int, help="posterior draws to push through (default: the file's, 1000)")
+    predict.add_argument("--overwrite", action="store_true", help="replace an existing predictions folder")
+    predict.add_argument("--quiet", action="store_true", help="print nothing but errors")
+
     fit = commands.add_parser("fit", help="fit a study and write its results folder")
     fit.add_argument("study", type=Path)
     fit.add_argument("--out", type=Path, help="results folder (default: results/<study>)")
@@ -74,6 +82,8 @@ def _fit_and_report(study_path: Path, args: argparse.Namespace, out: Path | None
     )
     if not args.quiet:
         print(reporting.fit_report(result))
+        if result.predictions is not None:
+            print(reporting.prediction_report(result.predictions))
     return ExitCode.DONE if result.diagnostics.verdict == "pass" else ExitCode.UNTRUSTED
 
 
@@ -109,10 +119,26 @@ def _run(args: argparse.Namespace) -> int:
         return ExitCode.DONE
     if args.command == "fit":
         return _fit_and_report(args.study, args, args.out)
+    if args.command == "predict":
+        from . import predictions, reporting
+
+        result = predictions.predict(
+            args.results,
+            args.scenarios,
+            out=args.out,
+            overwrite=args.overwrite,
+            quiet=args.quiet,
+            draws=args.draws,
+            command_line=" ".join(["arrhenia", *sys.argv[1:]]),
+        )
+        if not args.quiet:
+            print(reporting.prediction_report(result))
+        return ExitCode.DONE
     if args.command == "compare":
         return _compare_and_report(args.candidates, args, args.out, args.root)
     if args.command == "demo":
-        from .demo import ALTERNATIVE_STUDY_FILE, write_demo
+        from . import predictions, reporting
+        from .demo import ALTERNATIVE_STUDY_FILE, SCENARIOS_FILE, write_demo
         from .results import check_target
 
         out: Path = args.out
@@ -129,6 +155,13 @@ def _run(args: argparse.Namespace) -> int:
         compared = _compare_and_report(
             [study_path, out / ALTERNATIVE_STUDY_FILE], args, results / "comparison", results
         )
+        if not args.quiet:
+            print(f"\nreactor predictions from the fitted posterior ({SCENARIOS_FILE})")
+        predicted = predictions.predict(
+            results / load_study(study_path).name, out / SCENARIOS_FILE, overwrite=True, quiet=args.quiet
+        )
+        if not args.quiet:
+            print(reporting.prediction_report(predicted))
         return max(fitted, compared)
     raise AssertionError(args.command)  # argparse allows only the commands above
 

@@ -13,6 +13,7 @@ import yaml
 from . import units
 from .errors import StudyError
 from .network import Equation, EquationError, Network, build_network, parse_equation
+from .scenarios import check_scenario
 from .schema import OrderPrior, Reaction, StudyFile
 from .study import ArrheniusPrior, EquilibriumPrior, FittedOrder, ReactionSpec, Study
 
@@ -68,11 +69,11 @@ def read_yaml(path: Path) -> Any:
         raise StudyError(f"{where}: {line}", f"YAML syntax error: {problem}", hint) from None
 
 
-def _lists_to_tuples(value: Any) -> Any:
+def lists_to_tuples(value: Any) -> Any:
     if isinstance(value, list | tuple):
-        return tuple(_lists_to_tuples(v) for v in value)
+        return tuple(lists_to_tuples(v) for v in value)
     if isinstance(value, dict):
-        return {k: _lists_to_tuples(v) for k, v in value.items()}
+        return {k: lists_to_tuples(v) for k, v in value.items()}
     return value
 
 
@@ -86,9 +87,9 @@ def _key_path(loc: tuple) -> str:
     return text or "(top level)"
 
 
-def _model_at(loc: tuple) -> type[pydantic.BaseModel] | None:
+def _model_at(loc: tuple, root: type[pydantic.BaseModel]) -> type[pydantic.BaseModel] | None:
     """The schema model that holds the last key of ``loc``, for "did you mean" hints."""
-    model: type[pydantic.BaseModel] = StudyFile
+    model: type[pydantic.BaseModel] = root
     for part in loc[:-1]:
         if isinstance(part, int):
             continue
@@ -122,7 +123,10 @@ def _is_union_tag(part: object) -> bool:
     return part in models or part in {"float", "str", "int", "bool"} or "-" in part or "[" in part
 
 
-def _format_validation_error(where: str, error: pydantic.ValidationError) -> StudyError:
+def format_validation_error(
+    where: str, error: pydantic.ValidationError, root: type[pydantic.BaseModel] = StudyFile
+) -> StudyError:
+    """One line for the first problem pydantic found: key path, what is wrong, and a hint where one helps."""
     # A misspelt key is also reported as a missing one, so the unknown key comes first; then errors a
     # validator wrote (they explain themselves), then the rest.
     rank = {"extra_forbidden": 0, "value_error": 1}
@@ -134,7 +138,7 @@ def _format_validation_error(where: str, error: pydantic.ValidationError) -> Stu
     kind = first["type"]
     hint = None
     if kind == "extra_forbidden":
-        model = _model_at(loc)
+        model = _model_at(loc, root)
         allowed = sorted(model.model_fields) if model else []
         close = difflib.get_close_matches(str(loc[-1]), allowed, n=1, cutoff=0.6)
         hint = f"did you mean '{close[0]}'?" if close else (f"known keys: {', '.join(allowed)}" if allowed else None)
@@ -337,9 +341,9 @@ def load_study(path: str | Path) -> Study:
     if not isinstance(content, dict):
         raise StudyError(where, "a study file is a mapping of keys (study:, units:, data:, reactions:, ...)")
     try:
-        file = StudyFile.model_validate(_lists_to_tuples(content))
+        file = StudyFile.model_validate(lists_to_tuples(content))
     except pydantic.ValidationError as exc:
-        raise _format_validation_error(where, exc) from None
+        raise format_validation_error(where, exc) from None
     _check_units(file, where)
     if file.data.rate_constants is not None and file.noise.model == "absolute":
         raise StudyError(
@@ -360,7 +364,9 @@ def load_study(path: str | Path) -> Study:
         if file.report.k_at
         else ()
     )
-    return Study(
+    if file.scenarios and file.data.rate_constants is not None:
+        raise StudyError(f"{where}: scenarios", "reactor scenarios need a reaction network fitted to batch runs")
+    study = Study(
         name=file.study,
         title=file.title,
         path=path.resolve(),
@@ -377,4 +383,8 @@ def load_study(path: str | Path) -> Study:
         network=network,
         initial_uncertainty=tuple(file.initial_uncertainty.items()),
         warnings=notes,
+        scenarios=file.scenarios,
     )
+    for index, scenario in enumerate(file.scenarios):
+        check_scenario(scenario, study, f"{where}: scenarios[{index}]")
+    return study

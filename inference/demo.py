@@ -50,6 +50,7 @@ STUDY_FILE = "study.yaml"
 RUNS_FILE = "runs.csv"
 MEASUREMENTS_FILE = "measurements.csv"
 ALTERNATIVE_STUDY_FILE = "study_first_order.yaml"
+SCENARIOS_FILE = "scenarios.yaml"
 RATE_STUDY_FILE = "rate_constants.yaml"
 RATE_CONSTANTS_FILE = "rate_constants.csv"
 
@@ -107,6 +108,47 @@ reactions:
 reference_temperature: auto
 noise: {model: proportional, sigma: {scale: 0.2}}
 sampling: {draws: 500, tune: 500, chains: 4, seed: 1, target_accept: 0.9}
+"""
+
+SCENARIOS_TEXT = """\
+# Reactor scenarios for the demo posterior: arrhenia predict RESULTS scenarios.yaml
+# Units are the study's: min, degC, mol/L. 85 degC lies above the fitted runs (40-80 degC) and is flagged.
+draws: 400
+scenarios:
+  - name: batch-85C
+    reactor: batch
+    temperature: 85
+    initial: {A: 1.0, B: 1.2}
+    until: 120
+    key_reactant: A
+    products: [C, D]
+    target_conversion: 0.95
+    spec: {conversion: 0.9, by: 30}
+    intermediate: C
+    temperature_for: {conversion: 0.95, within: 60, between: [40, 120]}
+  - name: pfr-70C
+    reactor: pfr
+    temperature: 70
+    initial: {A: 1.0, B: 1.2}
+    until: 120
+    key_reactant: A
+    products: [C]
+    intermediate: C
+  - name: cstr-70C
+    reactor: cstr
+    temperature: 70
+    initial: {A: 1.0, B: 1.2}
+    residence_times: [10, 30, 60, 120]
+    key_reactant: A
+    products: [C]
+    target_conversion: 0.8
+  - name: ramp-40-to-75C
+    reactor: programmed_batch
+    programme: [[0, 40], [60, 75], [180, 75]]
+    initial: {A: 1.0, B: 1.2}
+    key_reactant: A
+    products: [C]
+    intermediate: C
 """
 
 RATE_STUDY_TEXT = """\
@@ -184,6 +226,7 @@ def write_demo(folder: Path) -> Path:
     (folder / MEASUREMENTS_FILE).write_text("\n".join(measurements) + "\n")
     (folder / STUDY_FILE).write_text(STUDY_TEXT)
     (folder / ALTERNATIVE_STUDY_FILE).write_text(ALTERNATIVE_STUDY_TEXT)
+    (folder / SCENARIOS_FILE).write_text(SCENARIOS_TEXT)
     lines = ["temperature,k"] + [f"{t:g},{k:.6g}" for t, k in simulate_rate_constants()]
     (folder / RATE_CONSTANTS_FILE).write_text("\n".join(lines) + "\n")
     (folder / RATE_STUDY_FILE).write_text(RATE_STUDY_TEXT)

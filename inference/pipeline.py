@@ -12,7 +12,7 @@ import json
 import platform
 import sys
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from importlib import metadata
 from pathlib import Path
 
@@ -83,6 +83,7 @@ class FitResult:
     fit_checks: pd.DataFrame
     extrapolations: list[str]
     idata: az.InferenceData
+    predictions: object = None  # a predictions.PredictionResult when the study names scenarios
 
 
 def default_results_dir(study: Study, root: Path = Path("results")) -> Path:
@@ -164,6 +165,15 @@ def fit_study(
     steps.done("summarised", f"verdict {diagnostics.verdict}")
     _write(result, problem, sampling.model_dump(), quantities, overwrite, steps, command_line)
     steps.done("wrote results", str(target))
+    if study.scenarios:
+        from .predictions import predict
+        from .schema import ScenarioFile
+
+        predicted = predict(
+            target, ScenarioFile(scenarios=study.scenarios), overwrite=True, quiet=quiet, command_line=command_line
+        )
+        result = replace(result, predictions=predicted)
+        steps.done("predicted scenarios", str(predicted.results_dir))
     return result
 
 
@@ -200,6 +210,7 @@ def _write(
         },
         "seed": sampling["seed"],
         "measurement_groups": problem.measurement_groups(),
+        "temperature_range_K": [float(np.min(problem.temperatures_K)), float(np.max(problem.temperatures_K))],
     }
     for group in idata.groups():
         idata[group].attrs["arrhenia"] = json.dumps(attrs, sort_keys=True)

@@ -180,3 +180,26 @@ def comparison_plot(table, path: Path) -> None:
     fig.tight_layout()
     fig.savefig(path, dpi=110)
     plt.close(fig)
+
+
+def prediction_plot(name: str, table, path: Path, time_unit: str) -> None:
+    """Concentrations, and conversion/yield where present, against time with 50 % and 90 % bands."""
+    axis = table.columns[1]
+    concentration = table[table["quantity"].str.startswith("c[")]
+    fractions = table[~table["quantity"].str.startswith("c[")]
+    panels = 2 if len(fractions) else 1
+    fig, axes = plt.subplots(1, panels, figsize=(5.6 * panels, 4.0), squeeze=False)
+    for ax, part, label in zip(axes[0], (concentration, fractions), ("concentration", "fraction"), strict=False):
+        for index, (quantity, rows) in enumerate(part.groupby("quantity", sort=False)):
+            colour = f"C{index % 10}"
+            ax.fill_between(rows[axis], rows["q05"], rows["q95"], color=colour, alpha=0.15, linewidth=0)
+            ax.fill_between(rows[axis], rows["q25"], rows["q75"], color=colour, alpha=0.3, linewidth=0)
+            ax.plot(rows[axis], rows["median"], color=colour, marker="o" if len(rows) < 8 else None, label=quantity)
+        unit = part["unit"].iloc[0] if len(part) else ""
+        ax.set_xlabel(f"{axis.replace('_', ' ')} ({time_unit})")
+        ax.set_ylabel(f"{label} ({unit})" if unit else label)
+        ax.legend(fontsize=7, frameon=False)
+    fig.suptitle(f"scenario {name}: median, 50 % and 90 % bands", fontsize=10)
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    plt.close(fig)

@@ -20,6 +20,7 @@ from . import closed_form, plots, units
 from .arrhenius import ln_rate_constant
 from .config import Z95
 from .data import Observations, RateConstantData, read_observations, read_rate_constants
+from .draws import parameter_draws, pick_draws
 from .solution import NetworkSolver, SolverFailure
 from .study import Study
 from .summaries import classical_table, network_fit_checks, rate_constant_fit_checks
@@ -237,46 +238,22 @@ class NetworkProblem:
         """Concentration profiles of every run for ``n_draws`` evenly spread posterior draws:
         a list over runs of arrays (draws, times, species); NaN where the solver failed for a draw."""
         study, obs = self.study, self.obs
-        stacked = posterior.stack(sample=("chain", "draw"))
-        total = stacked.sizes["sample"]
-        picks = np.unique(np.linspace(0, total - 1, min(n_draws, total)).astype(int))
+        draws = parameter_draws(study, posterior, temperature_ref, pick_draws(posterior, n_draws), obs.initial)
         network = study.network
-        temperature = obs.temperature_K[:, None]
         kind = closed_form.closed_form_kind(network)
-        use_closed = kind is not None and not study.initial_uncertainty
-        solver = None
-        if not use_closed:
-            solver = NetworkSolver(network, times)
-        reversible = [r.name for r in study.reactions if r.equilibrium is not None]
-        fitted = [
-            (j, study.species.index(f.species), f"{r.name}:{f.species}")
-            for j, r in enumerate(study.reactions)
-            for f in r.fitted_orders
-        ]
-        out = [np.full((picks.size, t.size, len(study.species)), np.nan) for t in times]
-        for d, pick in enumerate(picks):
-            draw = stacked.isel(sample=pick)
-            ln_k = ln_rate_constant(
-                temperature, draw["ln_k_ref"].values[None, :], draw["Ea"].values[None, :], temperature_ref
-            )
-            initial = obs.initial.copy()
-            if "initial" in draw:
-                for g, (name, _) in enumerate(study.initial_uncertainty):
-                    initial[:, study.species.index(name)] = draw["initial"].values[:, g]
-            if use_closed:
+        solver = None if kind is not None and draws.initial is None else NetworkSolver(network, times)
+        temperature = obs.temperature_K[:, None]
+        out = [np.full((draws.size, t.size, len(study.species)), np.nan) for t in times]
+        for d in range(draws.size):
+            ln_k = ln_rate_constant(temperature, draws.ln_k_ref[d][None, :], draws.ea[d][None, :], temperature_ref)
+            initial = obs.initial if draws.initial is None else draws.initial[d]
+            if solver is None:
                 for r, t in enumerate(times):
                     out[r][d] = closed_form.concentrations(kind, network, initial[r], math.exp(ln_k[r, 0]), t)
                 continue
-            ln_eq = np.zeros((len(obs.run_ids), 0))
-            if reversible:
-                ln_eq = ln_rate_constant(
-                    temperature, draw["ln_K_ref"].values[None, :], draw["dH"].values[None, :], temperature_ref
-                )
-            orders = np.array(network.forward_orders)
-            for j, i, label in fitted:
-                orders[j, i] = float(draw["order"].sel(fitted_order=label))
+            ln_eq = ln_rate_constant(temperature, draws.ln_eq_ref[d][None, :], draws.dh[d][None, :], temperature_ref)
             try:
-                solution = solver.solve(ln_k, ln_eq, orders, initial, sensitivities=False)
+                solution = solver.solve(ln_k, ln_eq, draws.orders[d], initial, sensitivities=False)
             except SolverFailure:
                 continue
             for r in range(len(times)):

@@ -8,6 +8,7 @@ from .study import Study
 
 if TYPE_CHECKING:
     from .pipeline import ComparisonResult, FitResult
+    from .predictions import PredictionResult
 
 CAUTION = (
     "Caution: kinetics fitted over a narrow temperature range are not a basis for thermal-safety decisions. "
@@ -77,4 +78,18 @@ def comparison_report(result: ComparisonResult) -> str:
         if verdict != "pass":
             lines.append(f"warning: the diagnostics of {name} are '{verdict}'; its numbers are not to be trusted")
     lines += ["", f"comparison: {result.results_dir}"]
+    return "\n".join(lines)
+
+
+def prediction_report(result: PredictionResult) -> str:
+    """The scalar answers with their 90 % intervals, every extrapolation flag, and the cautions."""
+    table = result.summary[["scenario", "quantity", "unit", "median", "q05", "q95", "share"]]
+    lines = [
+        "",
+        "reactor predictions (median and 90 % interval over posterior draws):",
+        table.to_string(index=False, float_format="{:.4g}".format),
+        "",
+    ]
+    lines += result.extrapolations
+    lines += [CAUTION, "", f"predictions: {result.results_dir}"]
     return "\n".join(lines)

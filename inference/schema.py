@@ -6,6 +6,7 @@ Every model forbids unknown keys, so a misspelt key is an error with a "did you 
 
 from __future__ import annotations
 
+import itertools
 from typing import Annotated, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, PositiveFloat, model_validator
@@ -140,6 +141,87 @@ class Report(Strict):
     k_at: tuple[float, ...] = ()
 
 
+class Spec(Strict):
+    """A product specification: at least ``conversion`` of the key reactant by time ``by``."""
+
+    conversion: Annotated[float, Field(gt=0.0, lt=1.0)]
+    by: PositiveFloat
+
+
+class TemperatureFor(Strict):
+    """The inverse question: the temperature at which a target is met, searched within ``between``.
+
+    Either ``conversion`` of the key reactant ``within`` a time (batch or PFR), or a rate constant ``k`` or
+    first-order ``half_life`` of one ``reaction``.
+    """
+
+    between: tuple[float, float]
+    conversion: Annotated[float, Field(gt=0.0, lt=1.0)] | None = None
+    within: PositiveFloat | None = None
+    reaction: str | None = None
+    k: PositiveFloat | None = None
+    half_life: PositiveFloat | None = None
+
+    @model_validator(mode="after")
+    def _one_target(self) -> TemperatureFor:
+        by_conversion = self.conversion is not None or self.within is not None
+        by_rate = self.reaction is not None or self.k is not None or self.half_life is not None
+        if by_conversion == by_rate:
+            raise ValueError("give either 'conversion' with 'within', or 'reaction' with 'k' or 'half_life'")
+        if by_conversion and (self.conversion is None or self.within is None):
+            raise ValueError("'conversion' and 'within' go together")
+        if by_rate and (self.reaction is None or (self.k is None) == (self.half_life is None)):
+            raise ValueError("give 'reaction' with exactly one of 'k' or 'half_life'")
+        if not self.between[0] < self.between[1]:
+            raise ValueError("'between' is (lowest, highest) temperature")
+        return self
+
+
+class Scenario(Strict):
+    """One reactor scenario. Times, temperatures and concentrations are in the study's units.
+
+    ``batch``: isothermal, constant volume, from ``initial`` until ``until``. ``pfr``: isothermal plug flow at
+    constant density, ``initial`` is the feed, ``until`` the longest space time. ``cstr``: isothermal steady
+    state at each of ``residence_times``. ``programmed_batch``: a batch whose temperature follows ``programme``,
+    a list of (time, temperature) points joined by straight lines.
+    """
+
+    name: Name
+    reactor: Literal["batch", "pfr", "cstr", "programmed_batch"]
+    initial: dict[str, Annotated[float, Field(ge=0.0)]]
+    temperature: float | None = None
+    programme: tuple[tuple[float, float], ...] | None = None
+    until: PositiveFloat | None = None
+    residence_times: tuple[PositiveFloat, ...] | None = None
+    points: Annotated[int, Field(ge=10, le=2000)] = 121
+    key_reactant: str | None = None
+    products: tuple[str, ...] = ()
+    target_conversion: Annotated[float, Field(gt=0.0, lt=1.0)] | None = None
+    spec: Spec | None = None
+    intermediate: str | None = None
+    temperature_for: TemperatureFor | None = None
+
+    @model_validator(mode="after")
+    def _reactor_needs(self) -> Scenario:
+        if self.reactor == "programmed_batch":
+            if self.programme is None or len(self.programme) < 2:
+                raise ValueError("a programmed_batch needs 'programme': two or more [time, temperature] points")
+            times = [p[0] for p in self.programme]
+            if times[0] != 0 or any(b <= a for a, b in itertools.pairwise(times)):
+                raise ValueError("'programme' times start at 0 and rise")
+        elif self.temperature is None:
+            raise ValueError(f"a {self.reactor} needs 'temperature'")
+        if self.reactor == "cstr":
+            if not self.residence_times:
+                raise ValueError("a cstr needs 'residence_times'")
+        elif self.until is None and self.reactor != "programmed_batch":
+            raise ValueError(f"a {self.reactor} needs 'until' (the last time or space time)")
+        needs_key = self.target_conversion is not None or self.spec is not None or self.products
+        if needs_key and self.key_reactant is None:
+            raise ValueError("'key_reactant' is needed for conversion, yield, selectivity and specs")
+        return self
+
+
 class StudyFile(Strict):
     """A whole study file as written by the user."""
 
@@ -154,6 +236,7 @@ class StudyFile(Strict):
     noise: Noise = Noise()
     sampling: Sampling = Sampling()
     report: Report = Report()
+    scenarios: tuple[Scenario, ...] = ()
 
     @model_validator(mode="after")
     def _unique_names(self) -> StudyFile:
@@ -165,4 +248,19 @@ class StudyFile(Strict):
         if len(set(self.species)) != len(self.species):
             twice = next(name for name in self.species if self.species.count(name) > 1)
             raise ValueError(f"species: '{twice}' is listed twice")
+        return self
+
+
+class ScenarioFile(Strict):
+    """A file of reactor scenarios for ``arrhenia predict``."""
+
+    scenarios: Annotated[tuple[Scenario, ...], Field(min_length=1)]
+    draws: Annotated[int, Field(ge=10, le=20_000)] = 1000
+
+    @model_validator(mode="after")
+    def _unique(self) -> ScenarioFile:
+        names = [s.name for s in self.scenarios]
+        for index, name in enumerate(names):
+            if names.index(name) != index:
+                raise ValueError(f"scenarios[{index}].name: '{name}' is used twice")
         return self

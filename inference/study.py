@@ -11,7 +11,7 @@ from pathlib import Path
 from typing import Literal
 
 from .network import Network
-from .schema import Noise, Sampling, Units
+from .schema import Noise, Sampling, Scenario, Units
 
 Mode = Literal["rate_constants", "network"]
 
@@ -87,6 +87,7 @@ class Study:
     network: Network | None = None
     initial_uncertainty: tuple[tuple[str, float], ...] = ()
     warnings: tuple[str, ...] = ()
+    scenarios: tuple[Scenario, ...] = ()
 
     @property
     def reaction_names(self) -> tuple[str, ...]:

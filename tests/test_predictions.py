@@ -1,0 +1,158 @@
+"""Reactor predictions from a saved posterior: files, answers against the physics, flags and bad scenarios."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from test_network_model import _simulate, arrhenius_k
+
+from inference import fit_study
+from inference.arrhenius import R
+
+TRUE = {"first": (0.12, 60_000.0), "second": (0.04, 75_000.0)}  # k at 330 K (1/min), Ea (J/mol)
+SCENARIOS = """\
+scenarios:
+  - name: batch-60C
+    reactor: batch
+    temperature: 60
+    initial: {A: 1.0}
+    until: 120
+    key_reactant: A
+    products: [B]
+    target_conversion: 0.9
+    spec: {conversion: 0.5, by: 10}
+    intermediate: B
+  - name: cstr-60C
+    reactor: cstr
+    temperature: 60
+    initial: {A: 1.0}
+    residence_times: [5, 20]
+    key_reactant: A
+    target_conversion: 0.5
+"""
+
+
+@pytest.fixture(scope="module")
+def fitted(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("predict")
+    runs, meas = ["run,temperature,A,B,C"], ["run,time,A,B,C"]
+    for index, celsius in enumerate([45, 55, 65]):
+        k1, k2 = (arrhenius_k(k, ea, celsius) for k, ea in TRUE.values())
+        times = np.geomspace(0.5, 4.0 / k2, 12)
+        data = _simulate(
+            lambda t, c, k1=k1, k2=k2: [-k1 * c[0], k1 * c[0] - k2 * c[1], k2 * c[1]],
+            3,
+            [1.0, 0.0, 0.0],
+            times,
+            70 + index,
+        )
+        runs.append(f"r{index},{celsius},1.0,0,0")
+        meas += [f"r{index},{t:.6g}," + ",".join(f"{v:.6g}" for v in row) for t, row in zip(times, data, strict=True)]
+    (folder / "runs.csv").write_text("\n".join(runs) + "\n")
+    (folder / "measurements.csv").write_text("\n".join(meas) + "\n")
+    study = folder / "study.yaml"
+    study.write_text(
+        """\
+study: chain
+units: {time: min, temperature: degC, concentration: mol/L, energy: kJ/mol}
+data: {runs: runs.csv, measurements: measurements.csv}
+species: [A, B, C]
+reactions:
+  - name: first
+    equation: A -> B
+    k_ref: {median: 0.1, factor: 10}
+    Ea: {mean: 60, sd: 20}
+  - name: second
+    equation: B -> C
+    k_ref: {median: 0.05, factor: 10}
+    Ea: {mean: 70, sd: 20}
+reference_temperature: 330 K
+sampling: {draws: 300, tune: 300, chains: 2, seed: 9}
+"""
+        + SCENARIOS
+    )
+    result = fit_study(study, out=folder / "res", quiet=True)
+    return folder, result
+
+
+def test_fit_runs_the_study_scenarios(fitted):
+    _, result = fitted
+    folder = result.results_dir / "predictions"
+    names = {p.name for p in folder.iterdir()}
+    assert {"batch-60C.csv", "batch-60C.png", "cstr-60C.csv", "summary.csv", "cautions.txt", "manifest.json"} <= names
+    table = pd.read_csv(folder / "batch-60C.csv")
+    assert list(table.columns) == ["scenario", "time", "quantity", "unit", "median", "q05", "q25", "q75", "q95"]
+    assert {"c[A]", "c[B]", "c[C]", "conversion[A]", "yield[B]", "selectivity[B]"} <= set(table["quantity"])
+    cstr = pd.read_csv(folder / "cstr-60C.csv")
+    assert "residence_time" in cstr.columns
+
+
+def test_answers_agree_with_the_closed_forms_at_the_posterior(fitted):
+    _, result = fitted
+    summary = pd.read_csv(result.results_dir / "predictions" / "summary.csv").set_index("quantity")
+    posterior = result.idata.posterior
+    kelvin = 333.15
+    ln_k = posterior["ln_k_ref"] - posterior["Ea"] / R * (1 / kelvin - 1 / 330.0)
+    k1 = np.exp(ln_k.sel(reaction="first")).values.ravel()
+    k2 = np.exp(ln_k.sel(reaction="second")).values.ravel()
+    # First order batch: t(X) = -ln(1 - X)/k1; CSTR: tau(X) = X / (k1 (1 - X)); consecutive first-order steps
+    # peak at t_max = ln(k2/k1)/(k2 - k1) (Levenspiel, Chemical Reaction Engineering, ch. 3 and 5; from memory).
+    checks = {
+        "time to 90% conversion of A": -np.log(0.1) / k1,
+        "residence_time to 50% conversion of A": 0.5 / (k1 * 0.5),
+        "time of maximum B": np.log(k2 / k1) / (k2 - k1),
+    }
+    for quantity, exact in checks.items():
+        row = summary.loc[quantity]
+        # Same posterior, different subsets of draws and grid resolution: medians agree to about 1 %.
+        assert row["median"] == pytest.approx(np.median(exact), rel=0.01), quantity
+        assert row["q05"] < np.median(exact) < row["q95"], quantity
+    spec = summary.loc["conversion of A at 10 min"]
+    assert spec["share"] == pytest.approx(np.mean(1 - np.exp(-k1 * 10) >= 0.5), abs=0.05)
+
+
+def test_extrapolated_scenario_is_flagged(fitted, run_cli, tmp_path):
+    _, result = fitted
+    scenarios = tmp_path / "hot.yaml"
+    scenarios.write_text(SCENARIOS.replace("temperature: 60", "temperature: 95"))
+    code, out, _ = run_cli("predict", result.results_dir, scenarios, "--out", tmp_path / "hot", "--draws", "100")
+    assert code == 0
+    assert "EXTRAPOLATED: scenario batch-60C: temperature 95 degC is 30 K above" in out
+    assert "process-safety review" in out
+    assert "EXTRAPOLATED" in (tmp_path / "hot" / "cautions.txt").read_text()
+
+
+@pytest.mark.parametrize(
+    ("text", "fragment"),
+    [
+        (SCENARIOS.replace("initial: {A: 1.0}\n    until", "initial: {Z: 1.0}\n    until"), "scenarios[0].initial"),
+        (
+            SCENARIOS.replace(
+                "    temperature: 60\n    initial: {A: 1.0}\n    until", "    initial: {A: 1.0}\n    until"
+            ),
+            "needs 'temperature'",
+        ),
+        (SCENARIOS.replace("reactor: cstr", "reactor: tank"), "scenarios[1].reactor"),
+        (SCENARIOS.replace("until: 120", "untl: 120"), "did you mean 'until'"),
+        (SCENARIOS.replace("initial: {A: 1.0}\n    until", "initial: {B: 1.0}\n    until"), "needs a positive amount"),
+        ("scenarios: []\n", "scenarios"),
+    ],
+)
+def test_bad_scenarios_give_exit_2(fitted, run_cli, tmp_path, text, fragment):
+    _, result = fitted
+    scenarios = tmp_path / "bad.yaml"
+    scenarios.write_text(text)
+    out = tmp_path / "bad-out"
+    code, _, stderr = run_cli("predict", result.results_dir, scenarios, "--out", out)
+    assert code == 2, stderr
+    assert len(stderr.strip().splitlines()) == 1
+    assert fragment in stderr
+    assert not out.exists()
+
+
+def test_predict_needs_a_results_folder(run_cli, tmp_path):
+    (tmp_path / "s.yaml").write_text(SCENARIOS)
+    code, _, stderr = run_cli("predict", tmp_path / "nowhere", tmp_path / "s.yaml")
+    assert code == 2
+    assert "results folder not found" in stderr
