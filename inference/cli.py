@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import os
 import signal
 import sys
 import traceback
@@ -15,7 +16,12 @@ class _Terminated(BaseException):
     """Raised in the main thread on SIGTERM so staged results are cleaned up like on Ctrl-C."""
 
 
+_MAIN_PID = os.getpid()
+
+
 def _on_sigterm(signum: int, frame: object) -> None:
+    if os.getpid() != _MAIN_PID:  # a sampling worker forked from us: leave quietly, the parent cleans up
+        os._exit(ExitCode.TERMINATED)
     raise _Terminated
 
 
@@ -168,7 +174,9 @@ def _run(args: argparse.Namespace) -> int:
 
 def main(argv: list[str] | None = None) -> int:
     """Entry point of the console script; returns the exit code."""
+    global _MAIN_PID
     args = _parser().parse_args(argv)
+    _MAIN_PID = os.getpid()
     signal.signal(signal.SIGTERM, _on_sigterm)
     try:
         return int(_run(args))
