@@ -39,6 +39,7 @@ class Diagnostics:
     bfmi_min: float
     draws: int
     chains: int
+    solver_failures: int = 0
     advice: list[str] = field(default_factory=list)
     thresholds: dict = field(default_factory=lambda: dict(THRESHOLDS))
 
@@ -46,8 +47,12 @@ class Diagnostics:
         return asdict(self)
 
 
-def assess(idata: az.InferenceData, var_names: list[str], max_tree_depth: int = 10) -> Diagnostics:
-    """Compute R-hat, ESS, divergences, tree-depth hits and BFMI over ``var_names`` and give a verdict."""
+def assess(idata: az.InferenceData, var_names: list[str], max_tree_depth: int = 10,
+           solver_failures: int = 0) -> Diagnostics:
+    """Compute R-hat, ESS, divergences, tree-depth hits and BFMI over ``var_names`` and give a verdict.
+
+    ``solver_failures`` (integrations that failed during sampling, each a rejected proposal) is reported and,
+    when it is more than 1 % of the draws, advised on."""
     posterior = idata.posterior[var_names]
     r_hat = float(np.nanmax(az.rhat(posterior).to_array().values))
     ess_bulk = float(np.nanmin(az.ess(posterior, method="bulk").to_array().values))
@@ -83,10 +88,15 @@ def assess(idata: az.InferenceData, var_names: list[str], max_tree_depth: int = 
             "consider tighter priors on the noise scale."
         )
 
+    if solver_failures > 0.01 * chains * draws:
+        advice.append(f"{solver_failures} integrations failed during sampling (those proposals were rejected): "
+                      "the priors reach parameter values where the profiles cannot be computed; tighten them.")
     failing = (
         not r_hat <= FAIL_LIMITS["r_hat_max"]
         or not min(ess_bulk, ess_tail) >= FAIL_LIMITS["ess_min"]
         or divergences > FAIL_LIMITS["divergent_share_max"] * chains * draws
     )
     verdict = "fail" if failing else ("warn" if advice else "pass")
-    return Diagnostics(verdict, r_hat, ess_bulk, ess_tail, divergences, tree_depth_hits, bfmi, draws, chains, advice)
+    return Diagnostics(
+        verdict, r_hat, ess_bulk, ess_tail, divergences, tree_depth_hits, bfmi, draws, chains, solver_failures, advice
+    )

@@ -16,6 +16,8 @@ of about unit scale. Variables in the posterior, with their units:
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pymc as pm
 import pytensor.tensor as pt
@@ -123,7 +125,8 @@ def network_coords(study: Study, obs: Observations) -> dict:
     return coords
 
 
-def build_network_model(study: Study, obs: Observations, temperature_ref: float) -> pm.Model:
+def build_network_model(study: Study, obs: Observations, temperature_ref: float,
+                        failure_log: Path | None = None) -> pm.Model:
     """All runs of a network study in one model: Arrhenius (and van 't Hoff) per reaction, profiles from the
     closed form where one is exact, otherwise from the ODE solver with forward sensitivities."""
     network = study.network
@@ -164,7 +167,7 @@ def build_network_model(study: Study, obs: Observations, temperature_ref: float)
             profiles = closed_form.concentrations(kind, network, obs.initial[obs.run_index], k, obs.time, xp=pt)
             predicted = profiles[pt.arange(obs.value.size), obs.species_index]
         else:
-            op = NetworkPrediction(network_solver(study, obs), obs, network.forward_orders)
+            op = NetworkPrediction(network_solver(study, obs), obs, network.forward_orders, failure_log)
             raw, _ = op(ln_k, ln_eq, orders, initial_free)
             failed = pt.any(pt.isnan(raw))
             # A failed integration rejects the draw: the log-density is -inf there.

@@ -7,6 +7,9 @@ with its gradient costs one integration with forward sensitivities.
 
 from __future__ import annotations
 
+import os
+from pathlib import Path
+
 import numpy as np
 import pytensor.tensor as pt
 from pytensor.graph.basic import Apply
@@ -18,12 +21,18 @@ from .solution import MeasurementSolver, NetworkSolver, SolverFailure
 
 class NetworkPrediction(Op):
     """Inputs: ln_k (runs, reactions), ln_eq (runs, reversible), free orders (F,), free initial (runs, G).
-    Outputs: predicted concentration per measurement (M,), and d(prediction)/d(inputs, flattened) (M, P)."""
+    Outputs: predicted concentration per measurement (M,), and d(prediction)/d(inputs, flattened) (M, P).
+
+    A failed integration returns NaN predictions (the model turns them into a log-density of -inf), is
+    counted, and, with ``failure_log``, appended to that file as one line."""
 
     __props__ = ()
 
-    def __init__(self, solver: NetworkSolver, observations: Observations, fixed_orders: np.ndarray) -> None:
+    def __init__(self, solver: NetworkSolver, observations: Observations, fixed_orders: np.ndarray,
+                 failure_log: Path | None = None) -> None:
         self.solver = solver
+        self.failure_log = failure_log
+        self.last_failure = ""
         self.observations = observations
         self.fixed_orders = np.array(fixed_orders, dtype=float)
         self.failures = 0
@@ -88,8 +97,13 @@ class NetworkPrediction(Op):
             prediction, jacobian = self.measurements.solve(
                 ln_k, ln_eq, self.full_orders(free_orders), self.full_initial(free_initial)
             )
-        except SolverFailure:
+        except SolverFailure as failure:
             self.failures += 1
+            self.last_failure = str(failure)
+            if self.failure_log is not None:
+                # Chains run in other processes; a line per failure lets the parent count them all.
+                with self.failure_log.open("a") as log:
+                    log.write(f"{os.getpid()}\n")
             prediction = np.full(obs.value.size, np.nan)
             jacobian = np.zeros((obs.value.size, n_total))
         outputs[0][0] = prediction

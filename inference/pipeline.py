@@ -11,6 +11,7 @@ import datetime as _dt
 import json
 import platform
 import sys
+import tempfile
 import time
 from dataclasses import dataclass, replace
 from importlib import metadata
@@ -143,12 +144,15 @@ def fit_study(
     for note in study.warnings:
         steps.say(f"warning: {note}")
 
-    model = problem.build_model(temperature_ref)
-    steps.done("built model")
-    idata = sample_posterior(model, sampling, progress=not quiet)
+    with tempfile.TemporaryDirectory(prefix="arrhenia-") as scratch:
+        failure_log = Path(scratch) / "solver-failures"
+        model = problem.build_model(temperature_ref, failure_log)
+        _check_start(model, problem)
+        steps.done("built model")
+        idata, failures = sample_posterior(model, sampling, progress=not quiet, failure_log=failure_log)
     steps.done("sampled", f"{sampling.chains} chains x {sampling.draws} draws after {sampling.tune} tuning")
 
-    diagnostics = assess(idata, problem.kinetic_var_names(idata))
+    diagnostics = assess(idata, problem.kinetic_var_names(idata), solver_failures=failures)
     quantities = derived_quantities(study, idata.posterior, temperature_ref)
     result = FitResult(
         study=study,
@@ -175,6 +179,25 @@ def fit_study(
         result = replace(result, predictions=predicted)
         steps.done("predicted scenarios", str(predicted.results_dir))
     return result
+
+
+def _check_start(model, problem: Problem) -> None:
+    """A log-density that is not finite where sampling starts is the study's fault: say which term."""
+    from .sampling import non_finite_start
+
+    terms, measurements = non_finite_start(model)
+    if not terms:
+        return
+    where = str(problem.study.path)
+    if "solver_guard" in terms:
+        raise StudyError(where, "the profiles cannot be integrated at the priors' centre",
+                         "check the k_ref priors against units.time and units.concentration")
+    if measurements.size:
+        raise StudyError(problem.measurement_label(int(measurements[0])),
+                         "this measurement is impossible under the model at the priors' centre",
+                         "check the k_ref priors against units.time and units.concentration, this value and the "
+                         "noise model")
+    raise StudyError(where, f"the prior of {terms[0]} gives no finite density at its centre")
 
 
 def _pair_columns(quantities: dict) -> dict[str, np.ndarray]:

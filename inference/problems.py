@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from pathlib import Path
 from typing import TYPE_CHECKING, Protocol
 
 import numpy as np
@@ -46,7 +47,9 @@ class Problem(Protocol):
 
     def check_lines(self) -> list[str]: ...
 
-    def build_model(self, temperature_ref: float) -> pm.Model: ...
+    def build_model(self, temperature_ref: float, failure_log: Path | None = None) -> pm.Model: ...
+
+    def measurement_label(self, index: int) -> str: ...
 
     def kinetic_var_names(self, idata: az.InferenceData) -> list[str]: ...
 
@@ -135,10 +138,13 @@ class RateConstantProblem:
             lines.append(_noise_line(self.study))
         return lines
 
-    def build_model(self, temperature_ref: float) -> pm.Model:
+    def build_model(self, temperature_ref: float, failure_log: Path | None = None) -> pm.Model:
         from .model import build_rate_constant_model
 
         return build_rate_constant_model(self.study, self.data, temperature_ref)
+
+    def measurement_label(self, index: int) -> str:
+        return f"{self.data.path}: line {self.data.line[index]}"
 
     def kinetic_var_names(self, idata: az.InferenceData) -> list[str]:
         return [n for n in ("ln_k_ref", "Ea", "sigma") if n in idata.posterior]
@@ -213,10 +219,15 @@ class NetworkProblem:
         )
         return lines
 
-    def build_model(self, temperature_ref: float) -> pm.Model:
+    def build_model(self, temperature_ref: float, failure_log: Path | None = None) -> pm.Model:
         from .model import build_network_model
 
-        return build_network_model(self.study, self.obs, temperature_ref)
+        return build_network_model(self.study, self.obs, temperature_ref, failure_log)
+
+    def measurement_label(self, index: int) -> str:
+        obs = self.obs
+        return (f"{obs.measurements_path}: line {obs.line[index]} (run {obs.run_ids[obs.run_index[index]]}, "
+                f"species {self.study.species[obs.species_index[index]]})")
 
     def kinetic_var_names(self, idata: az.InferenceData) -> list[str]:
         names = ("ln_k_ref", "Ea", "ln_K_ref", "dH", "order", "initial", "sigma")

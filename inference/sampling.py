@@ -5,6 +5,7 @@ from __future__ import annotations
 import logging
 import os
 import warnings
+from pathlib import Path
 
 import arviz as az
 import numpy as np
@@ -80,15 +81,31 @@ def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], Quad
     return starts, potential
 
 
-def sample_posterior(model: pm.Model, settings: Sampling, *, progress: bool) -> az.InferenceData:
+def non_finite_start(model: pm.Model) -> tuple[list[str], np.ndarray]:
+    """At the initial point (every prior at its centre): the names of terms whose log-density is not finite,
+    and the indices of measurements whose log-likelihood is not finite."""
+    quiet_backend_logs()
+    start = model.initial_point()
+    with np.errstate(all="ignore"):
+        terms = model.point_logps(start)
+        bad = [name for name, value in terms.items() if not np.isfinite(value)]
+        pointwise = np.asarray(model.compile_fn(model.logp(vars=[model["observation"]], sum=False)[0])(start))
+    return bad, np.flatnonzero(~np.isfinite(np.atleast_1d(pointwise)))
+
+
+def sample_posterior(model: pm.Model, settings: Sampling, *, progress: bool,
+                     failure_log: Path | None = None) -> tuple[az.InferenceData, int]:
     """Run NUTS and add the pointwise log-likelihood and the posterior predictive of the observations.
 
     Chains get seeds derived by PyMC from ``settings.seed``; the predictive draws use ``seed + 1``, so one
-    integer fixes every number.
+    integer fixes every number. Returns the InferenceData and the number of failed integrations during
+    sampling (counted from ``failure_log``, to which every process appends a line per failure).
     """
     quiet_backend_logs()
     with model:
         laplace = laplace_start(model, settings)
+        if failure_log is not None:
+            failure_log.write_text("")  # failures while finding the mode are part of the search, not of sampling
         extra: dict = {"target_accept": settings.target_accept}
         if laplace is not None:
             starts, potential = laplace
@@ -108,7 +125,8 @@ def sample_posterior(model: pm.Model, settings: Sampling, *, progress: bool) -> 
         if got.get("chain", 0) < settings.chains or got.get("draw", 0) < settings.draws:
             # PyMC answers Ctrl-C by returning the draws made so far; a partial posterior is never a result.
             raise KeyboardInterrupt("sampling was interrupted")
+        failures = len(failure_log.read_text().splitlines()) if failure_log is not None else 0
         pm.sample_posterior_predictive(
             idata, extend_inferencedata=True, random_seed=settings.seed + 1, progressbar=False
         )
-    return idata
+    return idata, failures
