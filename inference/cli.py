@@ -34,6 +34,7 @@ def _parser() -> argparse.ArgumentParser:
         command.add_argument("--tune", type=int, help="tuning steps per chain")
         command.add_argument("--chains", type=int, help="number of chains")
         command.add_argument("--seed", type=int, help="the one integer seed of the run")
+        command.add_argument("--cores", type=int, help="chains run in parallel on this many cores (1: in sequence)")
         command.add_argument("--overwrite", action="store_true", help="replace an existing results folder")
         command.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
@@ -45,6 +46,12 @@ def _parser() -> argparse.ArgumentParser:
 
     check = commands.add_parser("check", help="validate a study file and its data; samples nothing")
     check.add_argument("study", type=Path)
+    check.add_argument(
+        "--against",
+        type=Path,
+        metavar="RESULTS_DIR",
+        help="also say whether that results folder still matches this study and its data",
+    )
 
     compare = commands.add_parser("compare", help="compare candidate studies fitted to the same data")
     compare.add_argument("candidates", type=Path, nargs="+", help="study files or saved results folders")
@@ -82,6 +89,7 @@ def _fit_and_report(study_path: Path, args: argparse.Namespace, out: Path | None
         tune=args.tune,
         chains=args.chains,
         seed=args.seed,
+        cores=args.cores,
         overwrite=args.overwrite,
         quiet=args.quiet,
         command_line=" ".join(["arrhenia", *sys.argv[1:]]),
@@ -106,6 +114,7 @@ def _compare_and_report(candidates: list[Path], args: argparse.Namespace, out: P
         tune=args.tune,
         chains=args.chains,
         seed=args.seed,
+        cores=args.cores,
         command_line=" ".join(["arrhenia", *sys.argv[1:]]),
     )
     if not args.quiet:
@@ -122,7 +131,17 @@ def _run(args: argparse.Namespace) -> int:
 
         study = load_study(args.study)
         print(reporting.check_report(study))
-        return ExitCode.DONE
+        if args.against is None:
+            return ExitCode.DONE
+        from .pipeline import provenance_differences
+
+        differences = provenance_differences(args.against, study)
+        if not differences:
+            print(f"{args.against} matches this study and its data")
+            return ExitCode.DONE
+        print(f"{args.against} does NOT match this study and its data:")
+        print("\n".join(f"  - {line}" for line in differences))
+        return ExitCode.UNTRUSTED
     if args.command == "fit":
         return _fit_and_report(args.study, args, args.out)
     if args.command == "predict":

@@ -132,7 +132,11 @@ def format_validation_error(
     rank = {"extra_forbidden": 0, "value_error": 1}
     errors = sorted(error.errors(include_url=False), key=lambda e: rank.get(e["type"], 2))
     first = errors[0]
-    loc = tuple(part for part in first["loc"] if not _is_union_tag(part))
+    raw = tuple(first["loc"])
+    if first["type"] == "extra_forbidden":  # the unknown key is the user's own text, whatever it looks like
+        loc = tuple(part for part in raw[:-1] if not _is_union_tag(part)) + raw[-1:]
+    else:
+        loc = tuple(part for part in raw if not _is_union_tag(part))
     path = _key_path(loc)
     more = f" (and {len(errors) - 1} more problem{'s' if len(errors) > 2 else ''})" if len(errors) > 1 else ""
     kind = first["type"]

@@ -47,8 +47,9 @@ class Diagnostics:
         return asdict(self)
 
 
-def assess(idata: az.InferenceData, var_names: list[str], max_tree_depth: int = 10,
-           solver_failures: int = 0) -> Diagnostics:
+def assess(
+    idata: az.InferenceData, var_names: list[str], max_tree_depth: int = 10, solver_failures: int = 0
+) -> Diagnostics:
     """Compute R-hat, ESS, divergences, tree-depth hits and BFMI over ``var_names`` and give a verdict.
 
     ``solver_failures`` (integrations that failed during sampling, each a rejected proposal) is reported and,
@@ -89,8 +90,10 @@ def assess(idata: az.InferenceData, var_names: list[str], max_tree_depth: int = 
         )
 
     if solver_failures > 0.01 * chains * draws:
-        advice.append(f"{solver_failures} integrations failed during sampling (those proposals were rejected): "
-                      "the priors reach parameter values where the profiles cannot be computed; tighten them.")
+        advice.append(
+            f"{solver_failures} integrations failed during sampling (those proposals were rejected): "
+            "the priors reach parameter values where the profiles cannot be computed; tighten them."
+        )
     failing = (
         not r_hat <= FAIL_LIMITS["r_hat_max"]
         or not min(ess_bulk, ess_tail) >= FAIL_LIMITS["ess_min"]

@@ -125,8 +125,9 @@ def network_coords(study: Study, obs: Observations) -> dict:
     return coords
 
 
-def build_network_model(study: Study, obs: Observations, temperature_ref: float,
-                        failure_log: Path | None = None) -> pm.Model:
+def build_network_model(
+    study: Study, obs: Observations, temperature_ref: float, failure_log: Path | None = None
+) -> pm.Model:
     """All runs of a network study in one model: Arrhenius (and van 't Hoff) per reaction, profiles from the
     closed form where one is exact, otherwise from the ODE solver with forward sensitivities."""
     network = study.network

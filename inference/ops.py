@@ -28,8 +28,13 @@ class NetworkPrediction(Op):
 
     __props__ = ()
 
-    def __init__(self, solver: NetworkSolver, observations: Observations, fixed_orders: np.ndarray,
-                 failure_log: Path | None = None) -> None:
+    def __init__(
+        self,
+        solver: NetworkSolver,
+        observations: Observations,
+        fixed_orders: np.ndarray,
+        failure_log: Path | None = None,
+    ) -> None:
         self.solver = solver
         self.failure_log = failure_log
         self.last_failure = ""

@@ -120,6 +120,7 @@ def fit_study(
     tune: int | None = None,
     chains: int | None = None,
     seed: int | None = None,
+    cores: int | None = None,
     overwrite: bool = False,
     quiet: bool = False,
     command_line: str | None = None,
@@ -133,7 +134,9 @@ def fit_study(
     if not isinstance(study, Study):
         study = load_study(study)
     overrides = {
-        k: v for k, v in {"draws": draws, "tune": tune, "chains": chains, "seed": seed}.items() if v is not None
+        k: v
+        for k, v in {"draws": draws, "tune": tune, "chains": chains, "seed": seed, "cores": cores}.items()
+        if v is not None
     }
     sampling = study.sampling.model_validate({**study.sampling.model_dump(), **overrides})
     target = Path(out) if out is not None else default_results_dir(study)
@@ -190,13 +193,17 @@ def _check_start(model, problem: Problem) -> None:
         return
     where = str(problem.study.path)
     if "solver_guard" in terms:
-        raise StudyError(where, "the profiles cannot be integrated at the priors' centre",
-                         "check the k_ref priors against units.time and units.concentration")
+        raise StudyError(
+            where,
+            "the profiles cannot be integrated at the priors' centre",
+            "check the k_ref priors against units.time and units.concentration",
+        )
     if measurements.size:
-        raise StudyError(problem.measurement_label(int(measurements[0])),
-                         "this measurement is impossible under the model at the priors' centre",
-                         "check the k_ref priors against units.time and units.concentration, this value and the "
-                         "noise model")
+        raise StudyError(
+            problem.measurement_label(int(measurements[0])),
+            "this measurement is impossible under the model at the priors' centre",
+            "check the k_ref priors against units.time and units.concentration, this value and the noise model",
+        )
     raise StudyError(where, f"the prior of {terms[0]} gives no finite density at its centre")
 
 
@@ -277,11 +284,11 @@ def provenance(study: Study) -> dict:
     }
 
 
-def results_match(folder: Path, study: Study) -> bool:
-    """Whether ``folder`` holds complete results of exactly this study and data (by the manifest's hashes)."""
+def provenance_differences(folder: Path, study: Study) -> list[str]:
+    """What differs between the results in ``folder`` and this study with its data now (empty: they match)."""
     manifest_path = folder / "manifest.json"
     if not (manifest_path.is_file() and (folder / "posterior.nc").is_file()):
-        return False
+        return [f"{folder} is not a complete results folder"]
     try:
         manifest = json.loads(manifest_path.read_text())
         recorded = {
@@ -289,8 +296,20 @@ def results_match(folder: Path, study: Study) -> bool:
             "data": {role: entry["sha256"] for role, entry in manifest["data"].items()},
         }
     except (ValueError, KeyError, TypeError):
-        return False
-    return recorded == provenance(study)
+        return [f"{manifest_path} is not a manifest Arrhenia wrote"]
+    now = provenance(study)
+    differences = []
+    if recorded["config_sha256"] != now["config_sha256"]:
+        differences.append("the validated study differs (priors, reactions, units or sampling settings)")
+    for role in sorted(set(recorded["data"]) | set(now["data"])):
+        if recorded["data"].get(role) != now["data"].get(role):
+            differences.append(f"the {role} data file differs ({dict(study.data_files).get(role, 'not in the study')})")
+    return differences
+
+
+def results_match(folder: Path, study: Study) -> bool:
+    """Whether ``folder`` holds complete results of exactly this study and data (by the manifest's hashes)."""
+    return not provenance_differences(folder, study)
 
 
 @dataclass(frozen=True)
@@ -342,6 +361,7 @@ def compare_studies(
     tune: int | None = None,
     chains: int | None = None,
     seed: int | None = None,
+    cores: int | None = None,
     command_line: str | None = None,
 ) -> ComparisonResult:
     """Compare two or more candidate studies (files or saved results folders) that share the same data.
@@ -354,7 +374,7 @@ def compare_studies(
     steps = Steps(quiet)
     if len(sources) < 2:
         raise StudyError("compare", "needs two or more candidates")
-    sampling = {"draws": draws, "tune": tune, "chains": chains, "seed": seed}
+    sampling = {"draws": draws, "tune": tune, "chains": chains, "seed": seed, "cores": cores}
     target = Path(out) if out is not None else Path(root) / "comparison"
     check_target(target, overwrite)
     loaded = [_candidate(Path(s), Path(root), overwrite, quiet, sampling, steps) for s in sources]

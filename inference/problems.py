@@ -226,8 +226,10 @@ class NetworkProblem:
 
     def measurement_label(self, index: int) -> str:
         obs = self.obs
-        return (f"{obs.measurements_path}: line {obs.line[index]} (run {obs.run_ids[obs.run_index[index]]}, "
-                f"species {self.study.species[obs.species_index[index]]})")
+        return (
+            f"{obs.measurements_path}: line {obs.line[index]} (run {obs.run_ids[obs.run_index[index]]}, "
+            f"species {self.study.species[obs.species_index[index]]})"
+        )
 
     def kinetic_var_names(self, idata: az.InferenceData) -> list[str]:
         names = ("ln_k_ref", "Ea", "ln_K_ref", "dH", "order", "initial", "sigma")

@@ -35,9 +35,9 @@ def quiet_backend_logs() -> None:
     warnings.filterwarnings("ignore", message="The effect of Potentials")
 
 
-def chains_in_parallel(chains: int) -> int:
-    """Chains run as parallel processes, at most one per core present."""
-    return max(1, min(chains, os.cpu_count() or 1))
+def chains_in_parallel(chains: int, cores: int | None = None) -> int:
+    """Chains run as parallel processes: ``cores`` if given, else at most one per core present."""
+    return max(1, min(chains, cores or os.cpu_count() or 1))
 
 
 def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], QuadPotentialDiagAdapt] | None:
@@ -93,8 +93,9 @@ def non_finite_start(model: pm.Model) -> tuple[list[str], np.ndarray]:
     return bad, np.flatnonzero(~np.isfinite(np.atleast_1d(pointwise)))
 
 
-def sample_posterior(model: pm.Model, settings: Sampling, *, progress: bool,
-                     failure_log: Path | None = None) -> tuple[az.InferenceData, int]:
+def sample_posterior(
+    model: pm.Model, settings: Sampling, *, progress: bool, failure_log: Path | None = None
+) -> tuple[az.InferenceData, int]:
     """Run NUTS and add the pointwise log-likelihood and the posterior predictive of the observations.
 
     Chains get seeds derived by PyMC from ``settings.seed``; the predictive draws use ``seed + 1``, so one
@@ -114,7 +115,7 @@ def sample_posterior(model: pm.Model, settings: Sampling, *, progress: bool,
             draws=settings.draws,
             tune=settings.tune,
             chains=settings.chains,
-            cores=chains_in_parallel(settings.chains),
+            cores=chains_in_parallel(settings.chains, settings.cores),
             random_seed=settings.seed,
             progressbar=progress,
             compute_convergence_checks=False,

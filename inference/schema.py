@@ -126,13 +126,15 @@ class Noise(Strict):
 
 
 class Sampling(Strict):
-    """NUTS settings. One integer seed drives every random number of a run."""
+    """NUTS settings. One integer seed drives every random number of a run; the numbers do not depend on
+    ``cores`` (chains in parallel, default one per core, or in sequence with 1)."""
 
     draws: Annotated[int, Field(ge=10, le=100_000)] = 1000
     tune: Annotated[int, Field(ge=0, le=100_000)] = 1000
     chains: Annotated[int, Field(ge=1, le=64)] = 4
     seed: Annotated[int, Field(ge=0, le=2**32 - 1)] = 1
     target_accept: Annotated[float, Field(gt=0.5, lt=1.0)] = 0.9
+    cores: Annotated[int, Field(ge=1, le=64)] | None = None
 
 
 class Report(Strict):

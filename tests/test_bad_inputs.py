@@ -327,8 +327,13 @@ NETWORK_CASES = [
     ),
     ("mixed-layouts", NETWORK_STUDY, RUNS, "run,time,species,value,A\nr1,1,A,0.9,1\n", ["mixes the wide layout"]),
     ("run-without-measurements", NETWORK_STUDY, RUNS + "r3,70,1,1,0\n", MEASUREMENTS, ["run 'r3' has no measurements"]),
-    ("start-not-finite", net_replace("median: 0.1, factor: 10", "median: 1.0e+300, factor: 10"), RUNS, MEASUREMENTS,
-     ["at the priors' centre", "k_ref"]),
+    (
+        "start-not-finite",
+        net_replace("median: 0.1, factor: 10", "median: 1.0e+300, factor: 10"),
+        RUNS,
+        MEASUREMENTS,
+        ["at the priors' centre", "k_ref"],
+    ),
 ]
 
 

@@ -37,7 +37,7 @@ def fitted(tmp_path_factory):
         "    Ea: {mean: 80, sd: 30}\nreport: {k_at: [20, 50]}\nsampling: {draws: 300, tune: 300, chains: 2, seed: 7}\n"
     )
     first = fit_study(folder / "study.yaml", out=folder / "first", quiet=True)
-    second = fit_study(folder / "study.yaml", out=folder / "second", quiet=True)
+    second = fit_study(folder / "study.yaml", out=folder / "second", quiet=True, cores=1)
     return folder, first, second
 
 
@@ -108,6 +108,7 @@ def test_manifest_records_provenance(fitted):
 
 
 def test_same_seed_gives_byte_identical_summary(fitted):
+    # The second fit ran its chains in sequence, the first in parallel: the numbers must not depend on it.
     _, first, second = fitted
     assert (first.results_dir / "summary.csv").read_bytes() == (second.results_dir / "summary.csv").read_bytes()
 
@@ -130,3 +131,19 @@ def test_staged_folder_leaves_earlier_results_on_failure(tmp_path):
 def test_staged_folder_refuses_paths_outside_it(tmp_path):
     with pytest.raises(ValueError, match="outside"), StagedFolder(tmp_path / "res", overwrite=False) as folder:
         folder.path("../escape.txt")
+
+
+def test_check_against_says_whether_results_still_match(fitted, run_cli):
+    folder, first, _ = fitted
+    code, out, _ = run_cli("check", folder / "study.yaml", "--against", first.results_dir)
+    assert code == 0
+    assert "matches this study and its data" in out
+    table = folder / "k.csv"
+    original = table.read_text()
+    try:
+        table.write_text(original.replace("7.9e-3", "8.0e-3"))
+        code, out, _ = run_cli("check", folder / "study.yaml", "--against", first.results_dir)
+        assert code == 3
+        assert "does NOT match" in out and "rate_constants data file differs" in out
+    finally:
+        table.write_text(original)
