@@ -19,6 +19,8 @@ from .study import Study
 
 #: A data file larger than this is refused before it is read (a lab data set is kilobytes to megabytes).
 MAX_DATA_BYTES = 100_000_000
+#: Rows a data table may have; counted on the raw bytes before parsing, so huge files fail at once.
+MAX_DATA_ROWS = 200_000
 #: Columns that every table may carry and that Arrhenia ignores.
 FREE_COLUMNS = frozenset({"comment", "note"})
 
@@ -34,6 +36,10 @@ def read_table(path: Path, required: set[str], optional: set[str] = frozenset())
         size = path.stat().st_size
         if size > MAX_DATA_BYTES:
             raise StudyError(where, f"is {size} bytes, more than the {MAX_DATA_BYTES} bytes a data file may have")
+        with path.open("rb") as handle:
+            lines = sum(block.count(b"\n") for block in iter(lambda: handle.read(1 << 20), b""))
+        if lines > MAX_DATA_ROWS + 1:
+            raise StudyError(where, f"has {lines} lines, more than the {MAX_DATA_ROWS} rows a data table may have")
         frame = pd.read_csv(path, dtype=str, keep_default_na=False, skipinitialspace=True, comment="#")
     except PermissionError:
         raise StudyError(where, "cannot be read (permission denied)") from None

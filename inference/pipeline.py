@@ -144,7 +144,8 @@ def fit_study(
     problem = open_problem(study)
     temperature_ref = study.reference_temperature_K or auto_reference_temperature(problem.temperatures_K)
     steps.done("validated study and data", f"{problem.summary_line()}, T_ref = {temperature_ref:.2f} K")
-    for note in study.warnings:
+    notes = [*study.warnings, *problem.warnings()]
+    for note in notes:
         steps.say(f"warning: {note}")
 
     with tempfile.TemporaryDirectory(prefix="arrhenia-") as scratch:
@@ -260,7 +261,7 @@ def _write(
         "timings_s": steps.timings,
         "predictive_coverage_90": coverage,
         "extrapolations": result.extrapolations,
-        "warnings": list(study.warnings),
+        "warnings": [*study.warnings, *problem.warnings()],
     }
     with StagedFolder(result.results_dir, overwrite) as folder:
         folder.write_csv("summary.csv", result.summary)

@@ -45,6 +45,8 @@ class Problem(Protocol):
 
     def summary_line(self) -> str: ...
 
+    def warnings(self) -> list[str]: ...
+
     def check_lines(self) -> list[str]: ...
 
     def build_model(self, temperature_ref: float, failure_log: Path | None = None) -> pm.Model: ...
@@ -128,6 +130,9 @@ class RateConstantProblem:
     def summary_line(self) -> str:
         return f"{len(self.study.reactions)} reaction(s), {self.data.k.size} measured rate constants"
 
+    def warnings(self) -> list[str]:
+        return []
+
     def check_lines(self) -> list[str]:
         lines = [f"  data: {self.data.k.size} measured rate constants from {self.data.path}"]
         lines += _temperature_lines(self.study, self.temperatures_K)
@@ -189,6 +194,33 @@ class NetworkProblem:
             f"{len(self.study.reactions)} reaction(s) in {len(self.study.species)} species, "
             f"{len(self.obs.run_ids)} runs, {self.obs.value.size} measurements"
         )
+
+    def warnings(self) -> list[str]:
+        """Structural identifiability, as far as the network and the data show it."""
+        study, obs = self.study, self.obs
+        notes = []
+        if np.unique(obs.temperature_K).size < 2:
+            notes.append("every run is at one temperature: each Ea is set by its prior alone")
+        measured = {int(i) for i in obs.observed_species}
+        touching = [
+            set(np.flatnonzero((study.network.stoichiometry[j] != 0) | (study.network.forward_orders[j] != 0)))
+            for j in range(len(study.reactions))
+        ]
+        reached = set(measured)
+        grown = True
+        while grown:  # species linked to a measured one through shared reactions
+            grown = False
+            for species in touching:
+                if species & reached and not species <= reached:
+                    reached |= species
+                    grown = True
+        for spec, species in zip(study.reactions, touching, strict=True):
+            if not species & reached:
+                notes.append(
+                    f"reaction '{spec.name}' is linked to no measured species: its k_ref and Ea are set by "
+                    "their priors alone"
+                )
+        return notes
 
     def check_lines(self) -> list[str]:
         study, obs = self.study, self.obs

@@ -29,7 +29,7 @@ def check_report(study: Study) -> str:
         f"  sampling: {s.chains} chains x {s.draws} draws ({s.tune} tuning), seed {s.seed}, "
         f"target_accept {s.target_accept:g}"
     )
-    lines += [f"  warning: {note}" for note in study.warnings]
+    lines += [f"  warning: {note}" for note in (*study.warnings, *problem.warnings())]
     lines.append("  the study is valid; nothing was sampled")
     return "\n".join(lines)
 

@@ -363,3 +363,33 @@ def test_species_in_no_reaction_is_a_warning(run_cli, tmp_path):
     code, out, _ = run_cli("check", path)
     assert code == 0
     assert "warning: species 'S' takes part in no reaction" in out
+
+
+def test_unidentifiable_reactions_are_warned_about(run_cli, tmp_path):
+    # C -> D with neither C nor D measured, and nothing linking it to A or B (common practice: such a rate
+    # constant is set by its prior alone).
+    (tmp_path / "runs.csv").write_text("run,temperature,A,B,C,D,E\nr1,50,1.0,1.2,0,1,0\nr2,50,0.8,1.0,0,1,0\n")
+    (tmp_path / "measurements.csv").write_text(MEASUREMENTS.replace(",C", ",A").replace("run,time,A,A", "run,time,A,B"))
+    path = tmp_path / "study.yaml"
+    path.write_text(
+        NETWORK_STUDY.replace("[A, B, C]", "[A, B, C, D, E]")
+        + """\
+  - name: side
+    equation: D -> E
+    k_ref: {median: 0.1, factor: 10}
+    Ea: {mean: 60, sd: 20}
+"""
+    )
+    code, out, _ = run_cli("check", path)
+    assert code == 0, out
+    assert "warning: reaction 'side' is linked to no measured species" in out
+    assert "warning: every run is at one temperature" in out
+
+
+def test_huge_tables_fail_fast(run_cli, tmp_path):
+    path = tmp_path / "study.yaml"
+    path.write_text(BASE_STUDY)
+    (tmp_path / "k.csv").write_text("temperature,k\n" + "50,1e-3\n" * 250_000)
+    code, _, stderr = run_cli("check", path)
+    assert code == 2
+    assert "more than the 200000 rows" in stderr
