@@ -44,6 +44,8 @@ def _parser() -> argparse.ArgumentParser:
     )
     fit_options(demo)
 
+    commands.add_parser("schema", help="print the JSON Schema of the study file (for YAML editors)")
+
     check = commands.add_parser("check", help="validate a study file and its data; samples nothing")
     check.add_argument("study", type=Path)
     check.add_argument(
@@ -52,6 +54,12 @@ def _parser() -> argparse.ArgumentParser:
         metavar="RESULTS_DIR",
         help="also say whether that results folder still matches this study and its data",
     )
+    check.add_argument(
+        "--prior-predictive", action="store_true", help="draw from the priors alone and plot the draws against the data"
+    )
+    check.add_argument("--out", type=Path, help="prior predictive folder (default: results/<study>-prior-predictive)")
+    check.add_argument("--draws", type=int, default=300, help="prior draws (default: %(default)s)")
+    check.add_argument("--overwrite", action="store_true", help="replace an existing prior predictive folder")
 
     compare = commands.add_parser("compare", help="compare candidate studies fitted to the same data")
     compare.add_argument("candidates", type=Path, nargs="+", help="study files or saved results folders")
@@ -126,11 +134,28 @@ def _compare_and_report(candidates: list[Path], args: argparse.Namespace, out: P
 def _run(args: argparse.Namespace) -> int:
     from .config import load_study
 
+    if args.command == "schema":
+        import json
+
+        from .schema import StudyFile
+
+        print(json.dumps(StudyFile.model_json_schema(), indent=2))
+        return ExitCode.DONE
     if args.command == "check":
         from . import reporting
 
         study = load_study(args.study)
         print(reporting.check_report(study))
+        if args.prior_predictive:
+            from .pipeline import prior_predictive_check
+
+            check = prior_predictive_check(study, out=args.out, draws=args.draws, overwrite=args.overwrite)
+            print(
+                f"prior predictive: {check.inside_90:.0%} of the measurements lie inside the 90 % interval of the "
+                f"priors' predictions ({check.draws} draws); figures and table in {check.results_dir}"
+            )
+            if check.inside_90 < 0.5:
+                print("warning: the priors hardly allow the data; widen or move them before fitting")
         if args.against is None:
             return ExitCode.DONE
         from .pipeline import provenance_differences
@@ -202,6 +227,9 @@ def main(argv: list[str] | None = None) -> int:
     except StudyError as error:
         print(f"arrhenia: error: {error}", file=sys.stderr)
         return ExitCode.BAD_INPUT
+    except BrokenPipeError:  # the reader of our output went away (e.g. "| head"): not an error of anyone's
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return ExitCode.DONE
     except KeyboardInterrupt:
         print("arrhenia: interrupted; no results were written", file=sys.stderr)
         return ExitCode.INTERRUPTED

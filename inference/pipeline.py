@@ -22,12 +22,13 @@ import numpy as np
 import pandas as pd
 import yaml
 
-from . import __version__, plots
+from . import __version__, plots, report
 from .arrhenius import auto_reference_temperature
 from .config import load_study
 from .diagnostics import Diagnostics, assess
 from .errors import StudyError
 from .problems import Problem, open_problem
+from .reporting import CAUTION
 from .results import StagedFolder, check_target, sha256_file, sha256_json
 from .sampling import sample_posterior
 from .study import Study
@@ -273,8 +274,29 @@ def _write(
         idata.to_netcdf(str(folder.path("posterior.nc")))
         problem.figures(folder, idata, result.reference_temperature_K, result.fit_checks)
         plots.pair_plot(_pair_columns(quantities), folder.path("figures/pair.png"), seed=sampling["seed"])
+        plots.prior_posterior_plot(study, idata.posterior, folder.path("figures/prior_posterior.png"))
         folder.write_text("study.yaml", resolved_study_yaml(study, result.reference_temperature_K, sampling))
         folder.write_json("manifest.json", manifest)
+        order = ["arrhenius.png", "pair.png", "prior_posterior.png"]
+        names = sorted(
+            (p.name for p in folder.path("figures").iterdir()),
+            key=lambda n: (order.index(n) if n in order else len(order), n),
+        )
+        folder.write_text(
+            "report.html",
+            report.fit_report(
+                folder.stage,
+                title=f"Arrhenia fit: {study.name}" + (f" ({study.title})" if study.title else ""),
+                study_lines=problem.check_lines(),
+                diagnostics={**result.diagnostics.to_dict(), "predictive_coverage_90": coverage},
+                summary=result.summary,
+                tables=result.tables,
+                correlations=result.correlations,
+                extrapolations=result.extrapolations,
+                caution=CAUTION,
+                figures=[(f"figures/{n}", plots.caption(n)) for n in names],
+            ),
+        )
 
 
 def provenance(study: Study) -> dict:
@@ -426,5 +448,66 @@ def compare_studies(
         folder.write_text("verdict.txt", "\n".join(sentences) + "\n")
         plots.comparison_plot(table, folder.path("figures/comparison.png"))
         folder.write_json("manifest.json", manifest)
+        untrusted = [
+            f"The diagnostics of {n} are '{v}': its numbers are not to be trusted."
+            for n, v in verdicts.items()
+            if v != "pass"
+        ]
+        folder.write_text(
+            "report.html",
+            report.simple_report(
+                folder.stage,
+                title="Arrhenia comparison: " + ", ".join(names),
+                intro=sentences + untrusted,
+                tables=[("Comparison (PSIS-LOO; stacking weights)", table)],
+                figures=[("figures/comparison.png", plots.caption("comparison.png"))],
+                cautions=[],
+            ),
+        )
     steps.done("wrote comparison", str(target))
     return result
+
+
+@dataclass(frozen=True)
+class PriorPredictiveCheck:
+    """Where the prior predictive check was written, how many draws, and the share of measurements inside the
+    priors' 90 % predictive interval."""
+
+    results_dir: Path
+    draws: int
+    inside_90: float
+    table: pd.DataFrame
+
+
+def prior_predictive_check(
+    study: Study, *, out: str | Path | None = None, draws: int = 300, overwrite: bool = False
+) -> PriorPredictiveCheck:
+    """Draw parameters from the priors alone, predict every measurement, and compare with the data.
+
+    Writes ``prior_predictive.csv`` (the fit_checks columns, from prior draws) and
+    ``figures/prior_predictive.png`` to ``out`` (default ``results/<study>-prior-predictive``).
+    """
+    import pymc as pm
+
+    from .sampling import quiet_backend_logs
+
+    quiet_backend_logs()
+    target = Path(out) if out is not None else Path("results") / f"{study.name}-prior-predictive"
+    check_target(target, overwrite)
+    problem = open_problem(study)
+    temperature_ref = study.reference_temperature_K or auto_reference_temperature(problem.temperatures_K)
+    model = problem.build_model(temperature_ref)
+    with model, np.errstate(all="ignore"):
+        prior = pm.sample_prior_predictive(draws=draws, random_seed=study.sampling.seed)
+    # fit_checks reads the predictive group; the prior draws stand in for the posterior ones here.
+    stand_in = az.InferenceData(posterior_predictive=prior.prior_predictive)
+    table = problem.fit_checks(stand_in)
+    inside = float(table["inside_90"].mean())
+    with StagedFolder(target, overwrite) as folder:
+        folder.write_csv("prior_predictive.csv", table)
+        plots.predictive_check_plot(
+            table,
+            folder.path("figures/prior_predictive.png"),
+            f"{study.name}: data against the priors' 90 % predictive intervals",
+        )
+    return PriorPredictiveCheck(target, draws, inside, table)

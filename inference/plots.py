@@ -203,3 +203,76 @@ def prediction_plot(name: str, table, path: Path, time_unit: str) -> None:
     fig.tight_layout()
     fig.savefig(path, dpi=110)
     plt.close(fig)
+
+
+def predictive_check_plot(table, path: Path, title: str) -> None:
+    """Every measurement against its predictive median and 90 % interval (log scale when all are positive)."""
+    fig, ax = plt.subplots(figsize=(7.0, 4.0))
+    x = np.arange(len(table))
+    inside = table["inside_90"].to_numpy(dtype=bool)
+    ax.vlines(x, table["q05"], table["q95"], color="0.6", linewidth=1.2, label="90 % predictive interval")
+    ax.plot(x, table["median"], "_", color="0.3", markersize=6, label="predictive median")
+    ax.plot(x[inside], table["observed"][inside], "o", color="C0", markersize=3, label="measured, inside")
+    ax.plot(x[~inside], table["observed"][~inside], "o", color="C3", markersize=4, label="measured, outside")
+    if (table[["q05", "observed"]].to_numpy() > 0).all():
+        ax.set_yscale("log")
+    ax.set_xlabel("measurement (in file order by run and time)")
+    ax.set_ylabel("value")
+    ax.set_title(title, fontsize=9)
+    ax.legend(fontsize=7, frameon=False)
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    plt.close(fig)
+
+
+def prior_posterior_plot(study: Study, posterior: xr.Dataset, path: Path) -> None:
+    """For every reaction, the prior density of ln k_ref and of Ea (in the study's energy unit) over the
+    posterior histogram: how much the data taught beyond the priors."""
+    from scipy import stats
+
+    from .units import joule_per_mol_to
+
+    energy = study.units.energy
+    rows = len(study.reactions)
+    fig, axes = plt.subplots(rows, 2, figsize=(8.0, 2.4 * rows + 0.4), squeeze=False)
+    for row, spec in enumerate(study.reactions):
+        prior = spec.prior
+        ln_k = posterior["ln_k_ref"].sel(reaction=spec.name).values.ravel()
+        ea = joule_per_mol_to(posterior["Ea"].sel(reaction=spec.name).values.ravel(), energy)
+        mean, sd = joule_per_mol_to(prior.ea_mean, energy), joule_per_mol_to(prior.ea_sd, energy)
+        panels = (
+            (axes[row, 0], ln_k, stats.norm(prior.ln_k_ref_mean, prior.ln_k_ref_sd), f"ln k_ref[{spec.name}]"),
+            (axes[row, 1], ea, stats.truncnorm(-mean / sd, np.inf, loc=mean, scale=sd), f"Ea[{spec.name}] ({energy})"),
+        )
+        for ax, draws, density, label in panels:
+            low, high = density.ppf(0.001), density.ppf(0.999)
+            low, high = min(low, draws.min()), max(high, draws.max())
+            grid = np.linspace(low, high, 400)
+            ax.hist(draws, bins=40, density=True, color="C0", alpha=0.6, label="posterior")
+            ax.plot(grid, density.pdf(grid), color="0.3", label="prior")
+            ax.set_yscale("log")
+            ax.set_ylim(bottom=max(1e-4 * density.pdf(grid).max(), 1e-12))
+            ax.set_xlabel(label, fontsize=8)
+            ax.tick_params(labelsize=7)
+        axes[row, 0].legend(fontsize=7, frameon=False)
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    plt.close(fig)
+
+
+def caption(name: str) -> str:
+    """The caption of a figure file we write."""
+    if name == "arrhenius.png":
+        return "Arrhenius plot: posterior median and 90 % credible band of ln k per reaction"
+    if name == "pair.png":
+        return "Pair plot of the kinetic parameters (posterior draws)"
+    if name == "prior_posterior.png":
+        return "Prior densities over posterior histograms (log density scale)"
+    if name.startswith("run_"):
+        return (
+            f"Run {name[4:-4]}: measurements with 90 % predictive intervals and posterior median profiles with "
+            "90 % credible bands"
+        )
+    if name == "comparison.png":
+        return "Expected log predictive density of each candidate, with its standard error"
+    return name

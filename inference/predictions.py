@@ -21,7 +21,7 @@ import pydantic
 from scipy.interpolate import CubicSpline
 from scipy.optimize import minimize_scalar
 
-from . import __version__, units
+from . import __version__, report, units
 from .arrhenius import R
 from .config import format_validation_error, lists_to_tuples, load_study, read_yaml
 from .data import read_runs
@@ -418,6 +418,20 @@ def predict(
             plots.prediction_plot(name, table, folder.path(f"{name}.png"), study.units.time)
         folder.write_csv("summary.csv", summary)
         folder.write_text("cautions.txt", "\n".join([*notes, CAUTION]) + "\n")
+        folder.write_text(
+            "report.html",
+            report.simple_report(
+                folder.stage,
+                title=f"Arrhenia reactor predictions: {study.name}",
+                intro=[
+                    f"{parameter.size} posterior draws of {results_dir} pushed through {len(profiles)} scenario(s); "
+                    "medians with 90 % intervals."
+                ],
+                tables=[("Answers", summary)],
+                figures=[(f"{n}.png", f"Scenario {n}") for n in profiles],
+                cautions=[*notes, CAUTION],
+            ),
+        )
         folder.write_json(
             "manifest.json",
             {
