@@ -246,7 +246,7 @@ class NetworkProblem:
             + (
                 f"closed form ({kind})"
                 if kind and not study.initial_uncertainty
-                else "ODE solver (LSODA) with forward sensitivities"
+                else "compiled ODE integrator (Dormand-Prince; Radau IIA when stiff) with sensitivities"
             )
         )
         return lines
