@@ -74,6 +74,95 @@ def load_scenarios(path: Path, study: Study) -> ScenarioFile:
     return file
 
 
+@dataclass(frozen=True)
+class _Units:
+    """Factors between a scenarios file's units and the study's (value in study units = factor x value)."""
+
+    time: str
+    concentration: str
+    temperature: str
+    time_factor: float
+    concentration_factor: float
+
+    @classmethod
+    def of(cls, file: ScenarioFile, study: Study, where: str) -> _Units:
+        given = file.units
+        time = given.time or study.units.time
+        concentration = given.concentration or study.units.concentration
+        temperature = given.temperature or study.units.temperature
+        units.parse_unit(temperature, "temperature", f"{where}: units.temperature")
+        return cls(
+            time,
+            concentration,
+            temperature,
+            float(units.convert(1.0, time, study.units.time, "time", f"{where}: units.time")),
+            float(
+                units.convert(
+                    1.0, concentration, study.units.concentration, "concentration", f"{where}: units.concentration"
+                )
+            ),
+        )
+
+    def temperature_in_study(self, value: float, study: Study, where: str) -> float:
+        return float(units.kelvin_to(units.to_kelvin(value, self.temperature, where), study.units.temperature)[0])
+
+    def to_study(self, scenario: Scenario, study: Study, where: str) -> Scenario:
+        """The scenario restated in the study's units (the physics works in those)."""
+        t, c = self.time_factor, self.concentration_factor
+
+        def temp(value: float | None) -> float | None:
+            return None if value is None else self.temperature_in_study(value, study, where)
+
+        update: dict = {
+            "initial": {name: c * value for name, value in scenario.initial.items()},
+            "temperature": temp(scenario.temperature),
+        }
+        if scenario.until is not None:
+            update["until"] = t * scenario.until
+        if scenario.residence_times is not None:
+            update["residence_times"] = tuple(t * tau for tau in scenario.residence_times)
+        if scenario.programme is not None:
+            update["programme"] = tuple((t * time, temp(value)) for time, value in scenario.programme)
+        if scenario.spec is not None:
+            update["spec"] = scenario.spec.model_copy(update={"by": t * scenario.spec.by})
+        target = scenario.temperature_for
+        if target is not None:
+            update["temperature_for"] = target.model_copy(
+                update={
+                    "between": (temp(target.between[0]), temp(target.between[1])),
+                    "within": None if target.within is None else t * target.within,
+                    "half_life": None if target.half_life is None else t * target.half_life,
+                }
+            )
+        return scenario.model_copy(update=update)
+
+    def table_from_study(self, table: pd.DataFrame, study: Study) -> pd.DataFrame:
+        """Profiles back in the scenario's units: the time axis and the concentrations."""
+        table = table.copy()
+        table[table.columns[1]] = table[table.columns[1]] / self.time_factor
+        rows = table["quantity"].str.startswith("c[")
+        for column in ("median", "q05", "q25", "q75", "q95"):
+            table.loc[rows, column] = table.loc[rows, column] / self.concentration_factor
+        table.loc[rows, "unit"] = self.concentration
+        return table
+
+    def scalar_from_study(self, row: dict, study: Study) -> dict:
+        """One scalar answer back in the scenario's units, by the unit it carries."""
+        row = dict(row)
+        columns = ("median", "q05", "q95")
+        if row["unit"] == study.units.time:
+            row.update({k: row[k] / self.time_factor for k in columns}, unit=self.time)
+        elif row["unit"] == study.units.concentration:
+            row.update({k: row[k] / self.concentration_factor for k in columns}, unit=self.concentration)
+        elif row["unit"] == study.units.temperature:
+            for k in columns:
+                if np.isfinite(row[k]):
+                    kelvin = units.to_kelvin(row[k], study.units.temperature, "scenario")
+                    row[k] = float(units.kelvin_to(kelvin, self.temperature)[0])
+            row["unit"] = self.temperature
+        return row
+
+
 def _to_kelvin(study: Study, value: float | np.ndarray, where: str) -> np.ndarray:
     return units.to_kelvin(value, study.units.temperature, where)
 
@@ -141,10 +230,12 @@ class _Predictor:
         self.draws = draws
         self.measured = measured_K
         self.notes: list[str] = []
+        #: The unit temperatures are quoted in (the scenarios file's).
+        self.display_temperature = study.units.temperature
 
     def flag(self, scenario: str, kelvin: float, what: str) -> None:
         low, high = self.measured
-        unit = self.study.units.temperature
+        unit = self.display_temperature
         if kelvin < low or kelvin > high:
             edge = low if kelvin < low else high
             side = "below the lowest" if kelvin < low else "above the highest"
@@ -231,7 +322,9 @@ class _Predictor:
         conversion = 1.0 - c[:, :, key] / self.feed(scenario)[key]
         return _first_crossing(taus, np.nan_to_num(conversion, nan=-1.0), target)
 
-    def run(self, scenario: Scenario, where: str) -> tuple[pd.DataFrame, list[dict]]:
+    def run(self, scenario: Scenario, where: str, stated: Scenario, time_unit: str) -> tuple[pd.DataFrame, list[dict]]:
+        """Profiles and answers of ``scenario`` (in the study's units); names quote ``stated``, the scenario as
+        written, in its own ``time_unit``."""
         study, name = self.study, scenario.name
         conc_unit = study.units.concentration
         kelvin = None
@@ -272,7 +365,7 @@ class _Predictor:
                         "q95": column[4],
                     }
                 )
-        scalars = self.scalars(scenario, kelvin, axis, profiles, conversion, axis_name, where)
+        scalars = self.scalars(scenario, kelvin, axis, profiles, conversion, axis_name, where, stated, time_unit)
         table = pd.DataFrame(rows, columns=TABLE_COLUMNS).rename(columns={"time": axis_name})
         return table, scalars
 
@@ -285,9 +378,11 @@ class _Predictor:
         conversion: np.ndarray | None,
         axis_name: str,
         where: str,
+        stated: Scenario,
+        time_unit: str,
     ) -> list[dict]:
         study, name = self.study, scenario.name
-        time_unit = study.units.time
+        study_time = study.units.time
         out = []
         if scenario.target_conversion is not None and conversion is not None:
             target = scenario.target_conversion
@@ -300,7 +395,7 @@ class _Predictor:
                 _scalar(
                     name,
                     f"{axis_name} to {target:.0%} conversion of {scenario.key_reactant}",
-                    time_unit,
+                    study_time,
                     values,
                     "share = draws that reach it within the scenario's range",
                     reached,
@@ -318,7 +413,7 @@ class _Predictor:
             out.append(
                 _scalar(
                     name,
-                    f"conversion of {scenario.key_reactant} at {spec.by:g} {time_unit}",
+                    f"conversion of {scenario.key_reactant} at {stated.spec.by:g} {time_unit}",
                     "",
                     at,
                     f"share = probability of at least {spec.conversion:.0%}",
@@ -328,7 +423,7 @@ class _Predictor:
         if scenario.intermediate is not None and scenario.reactor != "cstr":
             i = study.species.index(scenario.intermediate)
             t_max, c_max = _maximum(axis, profiles[:, :, i])
-            out.append(_scalar(name, f"{axis_name} of maximum {scenario.intermediate}", time_unit, t_max))
+            out.append(_scalar(name, f"{axis_name} of maximum {scenario.intermediate}", study_time, t_max))
             out.append(
                 _scalar(name, f"maximum concentration of {scenario.intermediate}", study.units.concentration, c_max)
             )
@@ -341,11 +436,13 @@ class _Predictor:
             found = float(np.mean(~np.isnan(kelvin_needed)))
             target = scenario.temperature_for
             what = (
-                f"temperature for {target.conversion:.0%} conversion within {target.within:g} {time_unit}"
+                f"temperature for {target.conversion:.0%} conversion within "
+                f"{stated.temperature_for.within:g} {time_unit}"
                 if target.conversion is not None
                 else f"temperature for k[{target.reaction}] = {target.k:g}"
                 if target.k is not None
-                else f"temperature for a half-life of {target.half_life:g} {time_unit} of {target.reaction}"
+                else f"temperature for a half-life of {stated.temperature_for.half_life:g} {time_unit} of "
+                f"{target.reaction}"
             )
             out.append(_scalar(name, what, unit, shown, "share = draws with a solution in the searched range", found))
             if found > 0:
@@ -401,10 +498,15 @@ def predict(
     parameter = parameter_draws(study, posterior, float(attrs["reference_temperature_K"]), picks)
     predictor = _Predictor(study, parameter, _measured_range(study, attrs))
     profiles, summary_rows = {}, []
+    scenario_units = _Units.of(file, study, source["path"])
+    predictor.display_temperature = scenario_units.temperature
     for index, scenario in enumerate(file.scenarios):
-        table, scalars = predictor.run(scenario, f"{source['path']}: scenarios[{index}]")
-        profiles[scenario.name] = table
-        summary_rows += scalars
+        where = f"{source['path']}: scenarios[{index}]"
+        table, scalars = predictor.run(
+            scenario_units.to_study(scenario, study, where), where, scenario, scenario_units.time
+        )
+        profiles[scenario.name] = scenario_units.table_from_study(table, study)
+        summary_rows += [scenario_units.scalar_from_study(row, study) for row in scalars]
         if not quiet:
             print(
                 f"predicted scenario {scenario.name} ({scenario.reactor}, {parameter.size} posterior draws)", flush=True
@@ -415,7 +517,7 @@ def predict(
     with StagedFolder(target, overwrite) as folder:
         for name, table in profiles.items():
             folder.write_csv(f"{name}.csv", table)
-            plots.prediction_plot(name, table, folder.path(f"{name}.png"), study.units.time)
+            plots.prediction_plot(name, table, folder.path(f"{name}.png"), scenario_units.time)
         folder.write_csv("summary.csv", summary)
         folder.write_text("cautions.txt", "\n".join([*notes, CAUTION]) + "\n")
         folder.write_text(

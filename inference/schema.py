@@ -253,11 +253,20 @@ class StudyFile(Strict):
         return self
 
 
+class ScenarioUnits(Strict):
+    """Units of a scenarios file's times, temperatures and concentrations; each defaults to the study's."""
+
+    time: str | None = None
+    temperature: str | None = None
+    concentration: str | None = None
+
+
 class ScenarioFile(Strict):
     """A file of reactor scenarios for ``arrhenia predict``."""
 
     scenarios: Annotated[tuple[Scenario, ...], Field(min_length=1)]
-    draws: Annotated[int, Field(ge=10, le=20_000)] = 1000
+    draws: Annotated[int, Field(ge=10, le=20_000)] = 2000
+    units: ScenarioUnits = ScenarioUnits()
 
     @model_validator(mode="after")
     def _unique(self) -> ScenarioFile:

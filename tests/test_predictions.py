@@ -156,3 +156,46 @@ def test_predict_needs_a_results_folder(run_cli, tmp_path):
     code, _, stderr = run_cli("predict", tmp_path / "nowhere", tmp_path / "s.yaml")
     assert code == 2
     assert "results folder not found" in stderr
+
+
+def test_scenario_units_are_honoured(fitted, tmp_path):
+    # The same batch stated in hours, degF and mmol/L gives the same answers converted (exact unit factors).
+    from inference import predict
+
+    _, result = fitted
+    stated = tmp_path / "imperial.yaml"
+    stated.write_text("""\
+units: {time: h, temperature: degF, concentration: mmol/L}
+draws: 200
+scenarios:
+  - name: batch
+    reactor: batch
+    temperature: 140
+    initial: {A: 1000}
+    until: 2
+    key_reactant: A
+    target_conversion: 0.9
+    intermediate: B
+""")
+    plain = tmp_path / "plain.yaml"
+    plain.write_text("""\
+draws: 200
+scenarios:
+  - name: batch
+    reactor: batch
+    temperature: 60
+    initial: {A: 1.0}
+    until: 120
+    key_reactant: A
+    target_conversion: 0.9
+    intermediate: B
+""")
+    a = predict(result.results_dir, stated, out=tmp_path / "a", quiet=True).summary.set_index("quantity")
+    b = predict(result.results_dir, plain, out=tmp_path / "b", quiet=True).summary.set_index("quantity")
+    assert a.loc["time to 90% conversion of A", "unit"] == "h"
+    assert a.loc["time to 90% conversion of A", "median"] == pytest.approx(
+        b.loc["time to 90% conversion of A", "median"] / 60, rel=1e-3
+    )
+    assert a.loc["maximum concentration of B", "median"] == pytest.approx(
+        1000 * b.loc["maximum concentration of B", "median"], rel=1e-3
+    )
