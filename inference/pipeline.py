@@ -152,7 +152,7 @@ def fit_study(
     with tempfile.TemporaryDirectory(prefix="arrhenia-") as scratch:
         failure_log = Path(scratch) / "solver-failures"
         model = problem.build_model(temperature_ref, failure_log)
-        _check_start(model, problem)
+        _check_start(model, problem, temperature_ref)
         steps.done("built model")
         idata, failures = sample_posterior(model, sampling, progress=not quiet, failure_log=failure_log)
     steps.done("sampled", f"{sampling.chains} chains x {sampling.draws} draws after {sampling.tune} tuning")
@@ -186,7 +186,7 @@ def fit_study(
     return result
 
 
-def _check_start(model, problem: Problem) -> None:
+def _check_start(model, problem: Problem, temperature_ref: float) -> None:
     """A log-density that is not finite where sampling starts is the study's fault: say which term."""
     from .sampling import non_finite_start
 
@@ -195,9 +195,11 @@ def _check_start(model, problem: Problem) -> None:
         return
     where = str(problem.study.path)
     if "solver_guard" in terms:
+        run = problem.failing_run_at_prior_centre(temperature_ref)
+        which = f" (first in run '{run}')" if run else ""
         raise StudyError(
             where,
-            "the profiles cannot be integrated at the priors' centre",
+            f"the profiles cannot be integrated at the priors' centre{which}",
             "check the k_ref priors against units.time and units.concentration",
         )
     if measurements.size:

@@ -53,6 +53,8 @@ class Problem(Protocol):
 
     def measurement_label(self, index: int) -> str: ...
 
+    def failing_run_at_prior_centre(self, temperature_ref: float) -> str | None: ...
+
     def kinetic_var_names(self, idata: az.InferenceData) -> list[str]: ...
 
     def fit_checks(self, idata: az.InferenceData) -> pd.DataFrame: ...
@@ -150,6 +152,9 @@ class RateConstantProblem:
 
     def measurement_label(self, index: int) -> str:
         return f"{self.data.path}: line {self.data.line[index]}"
+
+    def failing_run_at_prior_centre(self, temperature_ref: float) -> str | None:
+        return None  # no integration in a rate-constant model
 
     def kinetic_var_names(self, idata: az.InferenceData) -> list[str]:
         return [n for n in ("ln_k_ref", "Ea", "sigma") if n in idata.posterior]
@@ -255,6 +260,30 @@ class NetworkProblem:
         from .model import build_network_model
 
         return build_network_model(self.study, self.obs, temperature_ref, failure_log)
+
+    def failing_run_at_prior_centre(self, temperature_ref: float) -> str | None:
+        """The first run whose profiles cannot be integrated with every parameter at its prior's centre."""
+        study, obs = self.study, self.obs
+        ln_k_ref = np.array([r.prior.ln_k_ref_mean for r in study.reactions])
+        ea = np.array([r.prior.ea_mean for r in study.reactions])
+        equilibria = [r.equilibrium for r in study.reactions if r.equilibrium is not None]
+        ln_eq_ref = np.array([q.ln_eq_ref_mean for q in equilibria])
+        dh = np.array([q.dh_mean for q in equilibria])
+        orders = np.array(study.network.forward_orders)
+        for r, run in enumerate(obs.run_ids):
+            kelvin = obs.temperature_K[r]
+            solver = NetworkSolver(study.network, [obs.times[r]])
+            try:
+                solver.solve(
+                    ln_rate_constant(kelvin, ln_k_ref, ea, temperature_ref)[None, :],
+                    ln_rate_constant(kelvin, ln_eq_ref, dh, temperature_ref)[None, :],
+                    orders,
+                    obs.initial[r : r + 1],
+                    sensitivities=False,
+                )
+            except SolverFailure:
+                return run
+        return None
 
     def measurement_label(self, index: int) -> str:
         obs = self.obs

@@ -40,6 +40,24 @@ def chains_in_parallel(chains: int, cores: int | None = None) -> int:
     return max(1, min(chains, cores or os.cpu_count() or 1))
 
 
+def prior_centre(model: pm.Model) -> dict:
+    """The initial point with every standardised z at 0 (the prior's centre; just inside a bound at 0).
+
+    PyMC starts a bounded variable at 0 on its transformed scale, which for z_Ea (bounded below) is one unit
+    above the bound, far from the centre of a prior whose mean is many sd above zero.
+    """
+    point = model.initial_point()
+    if "z_Ea" in model.named_vars:
+        rv = model["z_Ea"]
+        lower = np.asarray(rv.owner.inputs[-2].eval(), dtype=float)
+        centre = np.maximum(0.0, lower + 1e-3)
+        transform = model.rvs_to_transforms[rv]
+        point[model.rvs_to_values[rv].name] = np.asarray(
+            transform.forward(centre, *rv.owner.inputs).eval(), dtype=float
+        )
+    return point
+
+
 def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], QuadPotentialDiagAdapt] | None:
     """Starting points and an initial mass matrix from the posterior mode and its curvature.
 
@@ -49,7 +67,7 @@ def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], Quad
     one approximate posterior sd in a random direction (seeded), so chains still start apart.
     Returns None when the optimiser fails, and PyMC's default initialisation is used instead.
     """
-    start = model.initial_point(random_seed=settings.seed)
+    start = prior_centre(model)
     names = [v.name for v in model.value_vars]
     mapped = DictToArrayBijection.map({name: start[name] for name in names})
     logp = model.compile_logp()
@@ -85,10 +103,13 @@ def non_finite_start(model: pm.Model) -> tuple[list[str], np.ndarray]:
     """At the initial point (every prior at its centre): the names of terms whose log-density is not finite,
     and the indices of measurements whose log-likelihood is not finite."""
     quiet_backend_logs()
-    start = model.initial_point()
+    start = prior_centre(model)
     with np.errstate(all="ignore"):
         terms = model.point_logps(start)
         bad = [name for name, value in terms.items() if not np.isfinite(value)]
+        if not bad and not np.isfinite(float(model.compile_logp()(start))):
+            # point_logps leaves out Potentials; the only one is the guard against failed integrations.
+            bad = ["solver_guard"]
         pointwise = np.asarray(model.compile_fn(model.logp(vars=[model["observation"]], sum=False)[0])(start))
     return bad, np.flatnonzero(~np.isfinite(np.atleast_1d(pointwise)))
 

@@ -334,6 +334,15 @@ NETWORK_CASES = [
         MEASUREMENTS,
         ["at the priors' centre", "k_ref"],
     ),
+    (
+        "start-not-integrable",
+        net_replace("A + B -> C", "A -> C")
+        + "  - name: fast\n    equation: B + C -> A\n    k_ref: {median: 1.5e+308, factor: 10}\n"
+        "    Ea: {mean: 200, sd: 20}\n",
+        RUNS,
+        MEASUREMENTS,
+        ["cannot be integrated at the priors' centre (first in run 'r"],
+    ),
 ]
 
 
