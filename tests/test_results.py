@@ -24,6 +24,8 @@ EXPECTED_FILES = {
     "manifest.json",
     "figures/arrhenius.png",
     "figures/pair.png",
+    "figures/prior_posterior.png",
+    "report.html",
 }
 
 
