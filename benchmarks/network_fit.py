@@ -108,6 +108,12 @@ def min_bulk_ess(posterior, names=("ln_k_ref", "Ea")) -> float:
     return float(min(az.ess(posterior[list(names)], method="bulk").to_array().min().values, np.inf))
 
 
+def prior_arrays() -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The study's priors for the baselines: mean and sd of ln k_ref, mean and sd of Ea (J/mol)."""
+    values = np.array(list(PRIORS.values()))
+    return np.log(values[:, 0]), np.log(values[:, 1]) / Z95, values[:, 2] * 1e3, values[:, 3] * 1e3
+
+
 # ----------------------------------------------------------------------------------------------- Arrhenia
 def arrhenia_child(folder: str) -> None:
     """Runs in a fresh interpreter: import, fit, and report timings as JSON on the last line."""
@@ -173,10 +179,7 @@ def run_pymc_ode(draws: int = 150, tune: int = 150) -> dict:
     times, observed, runs = simulate()
     started = time.perf_counter()
     names = list(PRIORS)
-    ln_mean = np.log([PRIORS[n][0] for n in names])
-    ln_sd = np.log([PRIORS[n][1] for n in names]) / Z95
-    ea_mean = np.array([PRIORS[n][2] for n in names]) * 1e3
-    ea_sd = np.array([PRIORS[n][3] for n in names]) * 1e3
+    ln_mean, ln_sd, ea_mean, ea_sd = prior_arrays()
 
     def func(y, t, p):
         r1, r2 = p[0] * y[0] * y[1], p[1] * y[2]
@@ -223,11 +226,7 @@ def run_emcee(walkers: int = 16, steps: int = 3000, burn: int = 1000) -> dict:
 
     times, observed, runs = simulate()
     started = time.perf_counter()
-    names = list(PRIORS)
-    ln_mean = np.log([PRIORS[n][0] for n in names])
-    ln_sd = np.log([PRIORS[n][1] for n in names]) / Z95
-    ea_mean = np.array([PRIORS[n][2] for n in names]) * 1e3
-    ea_sd = np.array([PRIORS[n][3] for n in names]) * 1e3
+    ln_mean, ln_sd, ea_mean, ea_sd = prior_arrays()
     lower = -ea_mean / ea_sd
     log_obs = [np.log(y) for y in observed]
 
