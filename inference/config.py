@@ -12,7 +12,7 @@ import yaml
 
 from . import units
 from .errors import StudyError
-from .network import Equation, EquationError, Network, build_network, parse_equation
+from .network import Equation, EquationError, Network, build_network, element_counts, imbalance, parse_equation
 from .scenarios import check_scenario
 from .schema import OrderPrior, Reaction, StudyFile
 from .study import ArrheniusPrior, EquilibriumPrior, FittedOrder, ReactionSpec, Study
@@ -207,8 +207,8 @@ def _arrhenius_prior(reaction: Reaction, energy_unit: str, key: str) -> Arrheniu
 
 
 def _resolve_rate_constant_reactions(file: StudyFile, where: str) -> tuple[ReactionSpec, ...]:
-    if file.species or file.initial_uncertainty:
-        key = "species" if file.species else "initial_uncertainty"
+    if file.species or file.initial_uncertainty or file.formulas:
+        key = "species" if file.species else ("initial_uncertainty" if file.initial_uncertainty else "formulas")
         raise StudyError(f"{where}: {key}", "is for concentration data (data.runs), not for rate constants")
     specs = []
     for index, reaction in enumerate(file.reactions):
@@ -307,6 +307,23 @@ def _resolve_network(file: StudyFile, where: str) -> tuple[tuple[ReactionSpec, .
             and not network.forward_orders[:, species.index(name)].any()
         ):
             notes.append(f"species '{name}' takes part in no reaction")
+    for name, formula in file.formulas.items():
+        if name not in species:
+            raise StudyError(f"{where}: formulas.{name}", f"'{name}' is not a species of the study")
+        try:
+            element_counts(formula)
+        except EquationError as exc:
+            raise StudyError(f"{where}: formulas.{name}", str(exc)) from None
+    for index, equation in enumerate(equations):
+        if all(name in file.formulas for name in equation.species):
+            off = imbalance(equation, file.formulas)
+            if off:
+                shown = ", ".join(f"{element} {value:+g}" for element, value in sorted(off.items()))
+                raise StudyError(
+                    f"{where}: reactions[{index}].equation",
+                    f"'{file.reactions[index].equation}' does not balance (products minus reactants: {shown})",
+                    "check the coefficients",
+                )
     for name in file.initial_uncertainty:
         if name not in species:
             raise StudyError(f"{where}: initial_uncertainty.{name}", f"'{name}' is not a species of the study")

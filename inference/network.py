@@ -126,3 +126,50 @@ def build_network(
     for matrix in (stoichiometry, forward, reverse, reversible):
         matrix.setflags(write=False)
     return Network(species, reactions, stoichiometry, forward, reverse, reversible)
+
+
+_FORMULA_TOKEN = re.compile(r"([A-Z][a-z]?|\(|\)|\d+)")
+
+
+def element_counts(formula: str) -> dict[str, int]:
+    """Atoms per element of a molecular formula such as ``C2H5OH`` or ``(CH3)2CO``; ``EquationError`` if it
+    does not read as one. Charges and hydrates are not part of this grammar."""
+    tokens = _FORMULA_TOKEN.findall(formula)
+    if "".join(tokens) != formula.replace(" ", "") or not tokens:
+        raise EquationError(f"'{formula}' is not a molecular formula (write e.g. C2H5OH or (CH3)2CO)")
+    stack: list[dict[str, int]] = [{}]
+    index = 0
+    while index < len(tokens):
+        token = tokens[index]
+        index += 1
+        count = 1
+        if index < len(tokens) and tokens[index].isdigit():
+            count = int(tokens[index])
+            index += 1
+        if token == "(":
+            if count != 1:
+                raise EquationError(f"'{formula}': a count cannot follow '('")
+            stack.append({})
+        elif token == ")":
+            if len(stack) == 1:
+                raise EquationError(f"'{formula}': ')' without '('")
+            group = stack.pop()
+            for element, n in group.items():
+                stack[-1][element] = stack[-1].get(element, 0) + n * count
+        elif token.isdigit():
+            raise EquationError(f"'{formula}': a number must follow an element or ')'")
+        else:
+            stack[-1][token] = stack[-1].get(token, 0) + count
+    if len(stack) != 1:
+        raise EquationError(f"'{formula}': '(' without ')'")
+    return stack[0]
+
+
+def imbalance(equation: Equation, formulas: dict[str, str]) -> dict[str, float]:
+    """Atoms per element of products minus reactants (empty when the equation balances)."""
+    net: dict[str, float] = {}
+    for side, sign in ((equation.reactants, -1.0), (equation.products, 1.0)):
+        for name, coefficient in side:
+            for element, n in element_counts(formulas[name]).items():
+                net[element] = net.get(element, 0.0) + sign * coefficient * n
+    return {element: value for element, value in net.items() if abs(value) > 1e-9}

@@ -234,6 +234,7 @@ class StudyFile(Strict):
     species: tuple[Annotated[str, Field(pattern=r"^[A-Za-z][A-Za-z0-9_]*$", max_length=32)], ...] = ()
     reactions: Annotated[tuple[Reaction, ...], Field(min_length=1)]
     initial_uncertainty: dict[str, Annotated[float, Field(gt=0.0, le=2.0)]] = Field(default_factory=dict)
+    formulas: dict[str, str] = Field(default_factory=dict)
     reference_temperature: Literal["auto"] | float | str = "auto"
     noise: Noise = Noise()
     sampling: Sampling = Sampling()

@@ -335,6 +335,20 @@ NETWORK_CASES = [
         ["at the priors' centre", "k_ref"],
     ),
     (
+        "unbalanced-equation",
+        NETWORK_STUDY + "formulas: {A: C2H4O2, B: CH4O, C: C3H6O2}\n",
+        RUNS,
+        MEASUREMENTS,
+        ["reactions[0].equation", "does not balance (products minus reactants: H -2, O -1)"],
+    ),
+    (
+        "bad-formula",
+        NETWORK_STUDY + "formulas: {A: C2h4}\n",
+        RUNS,
+        MEASUREMENTS,
+        ["formulas.A", "not a molecular formula"],
+    ),
+    (
         "start-not-integrable",
         net_replace("A + B -> C", "A -> C")
         + "  - name: fast\n    equation: B + C -> A\n    k_ref: {median: 1.5e+308, factor: 10}\n"

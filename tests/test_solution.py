@@ -7,7 +7,7 @@ import pytest
 from scipy.integrate import solve_ivp
 
 from inference import closed_form
-from inference.network import EquationError, build_network, parse_equation
+from inference.network import EquationError, build_network, element_counts, imbalance, parse_equation
 from inference.solution import NetworkSolver, SolverSettings
 
 
@@ -161,3 +161,16 @@ def test_equation_coefficients_and_catalysts():
     net = build_network(("A", "B", "C"), ("r",), (eq,))
     np.testing.assert_array_equal(net.stoichiometry[0], [-2.0, 0.0, 1.0])
     np.testing.assert_array_equal(net.forward_orders[0], [2.0, 1.0, 0.0])
+
+
+def test_formulas_and_element_balance():
+    # Atom counts of molecular formulas (common practice): ethanol C2H6O, acetone C3H6O.
+    assert element_counts("C2H5OH") == {"C": 2, "H": 6, "O": 1}
+    assert element_counts("(CH3)2CO") == {"C": 3, "H": 6, "O": 1}
+    # Esterification: CH3COOH + CH3OH -> CH3COOCH3 + H2O balances; without the water it does not.
+    formulas = {"A": "CH3COOH", "B": "CH3OH", "E": "CH3COOCH3", "W": "H2O"}
+    assert imbalance(parse_equation("A + B <=> E + W"), formulas) == {}
+    assert imbalance(parse_equation("A + B -> E"), formulas) == {"H": -2.0, "O": -1.0}
+    for bad in ("C2h4", "(CH3", "CH3)", "2C"):
+        with pytest.raises(EquationError):
+            element_counts(bad)
