@@ -88,10 +88,9 @@ def _lu_solve(lu, pivots, b):
 
 
 @numba.njit(cache=True)
-def _evaluate(
-    y, k, inv_eq, stoichiometry, forward, reverse, reversible, f, jac, rate, forward_rate, reverse_rate, dr_dc, c
-):
+def _evaluate(y, net, f, jac, rate, forward_rate, reverse_rate, dr_dc, c):
     """f = dc/dt and jac = d f / d c at concentrations y (negative values read as zero)."""
+    k, inv_eq, stoichiometry, forward, reverse, reversible = net
     n_reactions, n_species = forward.shape
     for i in range(n_species):
         c[i] = max(y[i], 0.0)
@@ -121,15 +120,8 @@ def _rms(values, scale):
 def radau_run(
     y0,
     times,
-    k,
-    inv_eq,
-    stoichiometry,
-    forward,
-    reverse,
-    reversible,
-    kinds,
-    param_reaction,
-    param_species,
+    net,
+    params,
     rtol,
     atol,
     max_steps,
@@ -143,6 +135,8 @@ def radau_run(
     ``stats`` receives the counts of accepted steps and of rejected steps (error test or Newton failure).
     Returns DONE, or FAILED when the step count or step size runs out or a value stops being finite.
     """
+    stoichiometry, forward = net[2], net[3]
+    kinds, param_reaction, param_species = params
     n_reactions, n = forward.shape
     n_params = kinds.shape[0]
     a = np.empty((3, 3))
@@ -189,12 +183,7 @@ def radau_run(
 
     _evaluate(
         y,
-        k,
-        inv_eq,
-        stoichiometry,
-        forward,
-        reverse,
-        reversible,
+        net,
         f0,
         jac0,
         rate[0],
@@ -226,12 +215,7 @@ def radau_run(
             return FAILED
         _evaluate(
             y,
-            k,
-            inv_eq,
-            stoichiometry,
-            forward,
-            reverse,
-            reversible,
+            net,
             f0,
             jac0,
             rate[0],
@@ -268,12 +252,7 @@ def radau_run(
                     stage[i] = y[i] + z[bi, i]
                 _evaluate(
                     stage,
-                    k,
-                    inv_eq,
-                    stoichiometry,
-                    forward,
-                    reverse,
-                    reversible,
+                    net,
                     fz[bi],
                     jz[bi],
                     rate[bi],
@@ -349,12 +328,7 @@ def radau_run(
                     stage[i] = y[i] + z[bi, i]
                 _evaluate(
                     stage,
-                    k,
-                    inv_eq,
-                    stoichiometry,
-                    forward,
-                    reverse,
-                    reversible,
+                    net,
                     fz[bi],
                     jz[bi],
                     rate[bi],
@@ -461,15 +435,8 @@ EXPLICIT_BUDGET = 1500
 def _augmented_rhs(
     u,
     n,
-    k,
-    inv_eq,
-    stoichiometry,
-    forward,
-    reverse,
-    reversible,
-    kinds,
-    param_reaction,
-    param_species,
+    net,
+    params,
     out,
     jac,
     rate,
@@ -479,14 +446,11 @@ def _augmented_rhs(
     c,
 ):
     """d/dt of [c, s_1, ..., s_P]: f(c) and J(c) s_p + d f / d theta_p."""
+    stoichiometry = net[2]
+    kinds, param_reaction, param_species = params
     _evaluate(
         u[:n],
-        k,
-        inv_eq,
-        stoichiometry,
-        forward,
-        reverse,
-        reversible,
+        net,
         out[:n],
         jac,
         rate,
@@ -520,15 +484,8 @@ def _augmented_rhs(
 def dopri_run(
     y0,
     times,
-    k,
-    inv_eq,
-    stoichiometry,
-    forward,
-    reverse,
-    reversible,
-    kinds,
-    param_reaction,
-    param_species,
+    net,
+    params,
     rtol,
     atol,
     max_steps,
@@ -537,6 +494,8 @@ def dopri_run(
     stats,
 ):
     """Like ``radau_run`` with the explicit Dormand-Prince pair; FAILED once ``max_steps`` are used."""
+    forward = net[3]
+    kinds, param_species = params[0], params[2]
     n_reactions, n = forward.shape
     n_params = kinds.shape[0]
     size = n * (1 + n_params)
@@ -566,15 +525,8 @@ def dopri_run(
     _augmented_rhs(
         u,
         n,
-        k,
-        inv_eq,
-        stoichiometry,
-        forward,
-        reverse,
-        reversible,
-        kinds,
-        param_reaction,
-        param_species,
+        net,
+        params,
         stages[0],
         jac,
         rate,
@@ -599,15 +551,8 @@ def dopri_run(
     _augmented_rhs(
         trial,
         n,
-        k,
-        inv_eq,
-        stoichiometry,
-        forward,
-        reverse,
-        reversible,
-        kinds,
-        param_reaction,
-        param_species,
+        net,
+        params,
         stages[1],
         jac,
         rate,
@@ -644,15 +589,8 @@ def dopri_run(
             _augmented_rhs(
                 trial,
                 n,
-                k,
-                inv_eq,
-                stoichiometry,
-                forward,
-                reverse,
-                reversible,
-                kinds,
-                param_reaction,
-                param_species,
+                net,
+                params,
                 stages[st],
                 jac,
                 rate,
@@ -669,15 +607,8 @@ def dopri_run(
         _augmented_rhs(
             new,
             n,
-            k,
-            inv_eq,
-            stoichiometry,
-            forward,
-            reverse,
-            reversible,
-            kinds,
-            param_reaction,
-            param_species,
+            net,
+            params,
             stages[6],
             jac,
             rate,
@@ -734,15 +665,8 @@ def dopri_run(
 def integrate_run(
     y0,
     times,
-    k,
-    inv_eq,
-    stoichiometry,
-    forward,
-    reverse,
-    reversible,
-    kinds,
-    param_reaction,
-    param_species,
+    net,
+    params,
     rtol,
     atol,
     max_steps,
@@ -751,18 +675,12 @@ def integrate_run(
     stats,
 ):
     """Dormand-Prince first; if the run proves stiff (or the explicit pair fails), Radau IIA."""
+
     status = dopri_run(
         y0,
         times,
-        k,
-        inv_eq,
-        stoichiometry,
-        forward,
-        reverse,
-        reversible,
-        kinds,
-        param_reaction,
-        param_species,
+        net,
+        params,
         rtol,
         atol,
         min(EXPLICIT_BUDGET, max_steps),
@@ -776,15 +694,8 @@ def integrate_run(
     return radau_run(
         y0,
         times,
-        k,
-        inv_eq,
-        stoichiometry,
-        forward,
-        reverse,
-        reversible,
-        kinds,
-        param_reaction,
-        param_species,
+        net,
+        params,
         rtol,
         atol,
         max_steps,
@@ -805,9 +716,7 @@ def predict_measurements(
     forward,
     reverse,
     reversible,
-    kinds,
-    param_reaction,
-    param_species,
+    params,
     rtol,
     atol,
     max_steps,
@@ -826,7 +735,7 @@ def predict_measurements(
     input column of run r's sensitivity parameter p. Returns the index of the first failing run, or -1.
     """
     n_runs, n = initial.shape
-    n_params = kinds.shape[0]
+    n_params = params[0].shape[0]
     jacobian[:, :] = 0.0
     for r in range(n_runs):
         times = all_times[time_offsets[r] : time_offsets[r + 1]]
@@ -835,15 +744,8 @@ def predict_measurements(
         status = integrate_run(
             initial[r].copy(),
             times,
-            k_runs[r],
-            inv_eq_runs[r],
-            stoichiometry,
-            forward,
-            reverse,
-            reversible,
-            kinds,
-            param_reaction,
-            param_species,
+            (k_runs[r], inv_eq_runs[r], stoichiometry, forward, reverse, reversible),
+            params,
             rtol,
             atol,
             max_steps,

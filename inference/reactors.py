@@ -37,12 +37,7 @@ def _rate_terms(
     f, jac = np.empty(n), np.empty((n, n))
     _evaluate(
         np.ascontiguousarray(c, dtype=float),
-        k,
-        inv_eq,
-        network.stoichiometry,
-        np.ascontiguousarray(orders),
-        network.reverse_orders,
-        network.reversible,
+        (k, inv_eq, network.stoichiometry, np.ascontiguousarray(orders), network.reverse_orders, network.reversible),
         f,
         jac,
         np.empty(n_reactions),
