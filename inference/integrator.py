@@ -108,6 +108,14 @@ def _evaluate(y, net, f, jac, rate, forward_rate, reverse_rate, dr_dc, c):
 
 
 @numba.njit(cache=True)
+def _evaluate_stage(y, z, bi, net, stage, fz, jz, rate, forward_rate, reverse_rate, dr_dc, c):
+    """Rates and Jacobian at stage ``bi`` of a Radau step (the state y + z[bi]), into that stage's slots."""
+    for i in range(y.shape[0]):
+        stage[i] = y[i] + z[bi, i]
+    _evaluate(stage, net, fz[bi], jz[bi], rate[bi], forward_rate[bi], reverse_rate[bi], dr_dc, c[bi])
+
+
+@numba.njit(cache=True)
 def _rms(values, scale):
     total = 0.0
     for i in range(values.shape[0]):
@@ -248,19 +256,7 @@ def radau_run(
             iterations = iteration + 1
             finite = True
             for bi in range(3):
-                for i in range(n):
-                    stage[i] = y[i] + z[bi, i]
-                _evaluate(
-                    stage,
-                    net,
-                    fz[bi],
-                    jz[bi],
-                    rate[bi],
-                    forward_rate[bi],
-                    reverse_rate[bi],
-                    dr_dc,
-                    c[bi],
-                )
+                _evaluate_stage(y, z, bi, net, stage, fz, jz, rate, forward_rate, reverse_rate, dr_dc, c)
                 for i in range(n):
                     if not math.isfinite(fz[bi, i]):
                         finite = False
@@ -324,19 +320,7 @@ def radau_run(
         # with rates and Jacobians at the stage values of the final iterate.
         if n_params > 0:
             for bi in range(3):
-                for i in range(n):
-                    stage[i] = y[i] + z[bi, i]
-                _evaluate(
-                    stage,
-                    net,
-                    fz[bi],
-                    jz[bi],
-                    rate[bi],
-                    forward_rate[bi],
-                    reverse_rate[bi],
-                    dr_dc,
-                    c[bi],
-                )
+                _evaluate_stage(y, z, bi, net, stage, fz, jz, rate, forward_rate, reverse_rate, dr_dc, c)
             for bi in range(3):
                 for bj in range(3):
                     for i in range(n):
