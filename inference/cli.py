@@ -87,21 +87,24 @@ def _parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _run_options(args: argparse.Namespace) -> dict:
+    """The fit options every fitting command shares, as keyword arguments of the API."""
+    return {
+        "draws": args.draws,
+        "tune": args.tune,
+        "chains": args.chains,
+        "seed": args.seed,
+        "cores": args.cores,
+        "overwrite": args.overwrite,
+        "quiet": args.quiet,
+        "command_line": " ".join(["arrhenia", *sys.argv[1:]]),
+    }
+
+
 def _fit_and_report(study_path: Path, args: argparse.Namespace, out: Path | None) -> int:
     from . import pipeline, reporting
 
-    result = pipeline.fit_study(
-        study_path,
-        out=out,
-        draws=args.draws,
-        tune=args.tune,
-        chains=args.chains,
-        seed=args.seed,
-        cores=args.cores,
-        overwrite=args.overwrite,
-        quiet=args.quiet,
-        command_line=" ".join(["arrhenia", *sys.argv[1:]]),
-    )
+    result = pipeline.fit_study(study_path, out=out, **_run_options(args))
     if not args.quiet:
         print(reporting.fit_report(result))
         if result.predictions is not None:
@@ -112,19 +115,7 @@ def _fit_and_report(study_path: Path, args: argparse.Namespace, out: Path | None
 def _compare_and_report(candidates: list[Path], args: argparse.Namespace, out: Path | None, root: Path) -> int:
     from . import pipeline, reporting
 
-    result = pipeline.compare_studies(
-        candidates,
-        out=out,
-        root=root,
-        overwrite=args.overwrite,
-        quiet=args.quiet,
-        draws=args.draws,
-        tune=args.tune,
-        chains=args.chains,
-        seed=args.seed,
-        cores=args.cores,
-        command_line=" ".join(["arrhenia", *sys.argv[1:]]),
-    )
+    result = pipeline.compare_studies(candidates, out=out, root=root, **_run_options(args))
     if not args.quiet:
         print(reporting.comparison_report(result))
     trusted = all(verdict == "pass" for verdict in result.verdicts.values())
