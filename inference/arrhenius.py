@@ -16,9 +16,13 @@ from scipy import constants, stats
 R = constants.R
 
 
-def ln_rate_constant(temperature, ln_k_ref, ea, temperature_ref):
-    """ln k(T) = ln k_ref - (Ea/R)(1/T - 1/T_ref); T and T_ref in K, Ea in J/mol."""
-    return ln_k_ref - ea / R * (1.0 / temperature - 1.0 / temperature_ref)
+def ln_rate_constant(temperature, ln_k_ref, ea, temperature_ref, exponent=0.0):
+    """ln k(T) = ln k_ref + n ln(T/T_ref) - (Ea/R)(1/T - 1/T_ref); T and T_ref in K, Ea in J/mol, n the
+    temperature exponent of the extended (modified) Arrhenius form, 0 for the plain law."""
+    value = ln_k_ref - ea / R * (1.0 / temperature - 1.0 / temperature_ref)
+    if isinstance(exponent, float | int) and exponent == 0:
+        return value
+    return value + exponent * np.log(temperature / temperature_ref)
 
 
 def ln_pre_exponential(ln_k_ref, ea, temperature_ref):

@@ -23,7 +23,7 @@ EQUAL_SHARE = 1e-9
 
 def closed_form_kind(network: Network) -> str | None:
     """'first', 'second_same' (2 A), 'second_pair' (A + B) or None when no closed form applies."""
-    if len(network.reactions) != 1 or network.reversible[0]:
+    if len(network.reactions) != 1 or network.reversible[0] or network.saturating:
         return None
     orders = network.forward_orders[0]
     reactants = -np.minimum(network.stoichiometry[0], 0.0)

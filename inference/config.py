@@ -13,9 +13,19 @@ import yaml
 from . import units
 from .errors import StudyError
 from .network import Equation, EquationError, Network, build_network, element_counts, imbalance, parse_equation
+from .rate_laws import REGISTRY, missing_keys, undeclared_keys
 from .scenarios import check_scenario
-from .schema import OrderPrior, Reaction, StudyFile
-from .study import ArrheniusPrior, EquilibriumPrior, FittedOrder, ReactionSpec, Study
+from .schema import ExponentPrior, OrderPrior, Reaction, StudyFile
+from .study import (
+    AdsorptionSite,
+    ArrheniusPrior,
+    EquilibriumPrior,
+    FittedOrder,
+    ReactionSpec,
+    RunVariabilitySpec,
+    Study,
+    TransitionStateSpec,
+)
 
 #: A study file is a few kilobytes; anything much larger is not one.
 MAX_STUDY_BYTES = 1_000_000
@@ -206,21 +216,109 @@ def _arrhenius_prior(reaction: Reaction, energy_unit: str, key: str) -> Arrheniu
     )
 
 
+def _temperature_exponent(reaction: Reaction) -> tuple[float, float | None]:
+    """n of (T/T_ref)^n and its prior sd (None when n is fixed; 0 when no exponent is given)."""
+    given = reaction.temperature_exponent
+    if isinstance(given, ExponentPrior):
+        return given.mean, given.sd
+    return (0.0 if given is None else float(given)), None
+
+
+def _given_keys(reaction: Reaction) -> set[str]:
+    return {name for name in type(reaction).model_fields if getattr(reaction, name) is not None}
+
+
+def _check_law_keys(reaction: Reaction, key: str) -> None:
+    """The law must take every key given and get every key it requires (``rate_laws.REGISTRY``)."""
+    law = REGISTRY[reaction.rate_law]
+    given = _given_keys(reaction)
+    for extra in undeclared_keys(law, given):
+        users = [name for name, other in REGISTRY.items() if extra in other.takes]
+        raise StudyError(
+            f"{key}.{extra}", f"is not a parameter of rate_law {law.name}", f"it belongs to {' or '.join(users)}"
+        )
+    for absent in missing_keys(law, given):
+        raise StudyError(f"{key}.{absent}", "required key is missing", f"rate_law {law.name} needs it")
+
+
 def _resolve_rate_constant_reactions(file: StudyFile, where: str) -> tuple[ReactionSpec, ...]:
     if file.species or file.initial_uncertainty or file.formulas:
         key = "species" if file.species else ("initial_uncertainty" if file.initial_uncertainty else "formulas")
         raise StudyError(f"{where}: {key}", "is for concentration data (data.runs), not for rate constants")
+    for extra in ("run_variability", "temperature_uncertainty"):
+        if getattr(file, extra) is not None:
+            raise StudyError(f"{where}: {extra}", "is for batch runs (data.runs), not for rate constants")
     specs = []
+    order = units.rate_constant_order(file.units.rate_constant or "1/s")
     for index, reaction in enumerate(file.reactions):
         key = f"{where}: reactions[{index}]"
-        for extra in ("K_ref", "dH", "orders"):
+        for extra in ("K_ref", "dH", *sorted(_given_keys(reaction) & {"orders", *REGISTRY["saturating"].takes})):
             if getattr(reaction, extra) is not None:
                 raise StudyError(f"{key}.{extra}", "is for reaction networks fitted to concentration data")
+        if REGISTRY[reaction.rate_law].saturating:
+            raise StudyError(
+                f"{key}.rate_law", f"{reaction.rate_law} is for reaction networks fitted to concentration data"
+            )
         prior = _arrhenius_prior(reaction, file.units.energy, key)
+        exponent, exponent_sd = _temperature_exponent(reaction)
         specs.append(
-            ReactionSpec(reaction.name, reaction.equation, reaction.rate_law, prior, file.units.rate_constant or "")
+            ReactionSpec(
+                reaction.name,
+                reaction.equation,
+                reaction.rate_law,
+                prior,
+                file.units.rate_constant or "",
+                temperature_exponent=exponent,
+                exponent_sd=exponent_sd,
+                molecularity=order,
+            )
         )
     return tuple(specs)
+
+
+def _adsorption(
+    reaction: Reaction, equation: Equation, species: tuple[str, ...], energy: str, key: str
+) -> tuple[float, tuple[AdsorptionSite, ...]]:
+    """Inhibition exponent and adsorption sites of a saturating law (0 and none for other laws)."""
+    if reaction.rate_law == "michaelis_menten":
+        catalysts = {name for name, _ in equation.products}
+        substrates = [name for name, _ in equation.reactants if name not in catalysts]
+        if len(substrates) != 1:
+            raise StudyError(
+                f"{key}.equation",
+                f"michaelis_menten needs exactly one substrate, '{reaction.equation}' has {len(substrates)}",
+                "write the enzyme on both sides, e.g. 'S + E -> P + E', or use rate_law: saturating",
+            )
+        assert reaction.K_M is not None and reaction.K_M_dH is not None  # required by the registry
+        dh = units.energy_to_joule_per_mol
+        # K = 1/K_M: a lognormal stays lognormal with the median inverted; dH of binding is -dH of K_M.
+        site = AdsorptionSite(
+            substrates[0],
+            -math.log(reaction.K_M.median),
+            math.log(reaction.K_M.factor) / Z95,
+            -float(dh(reaction.K_M_dH.mean, energy, f"{key}.K_M_dH")),
+            float(dh(reaction.K_M_dH.sd, energy, f"{key}.K_M_dH")),
+        )
+        return 1.0, (site,)
+    if reaction.rate_law != "saturating":
+        return 0.0, ()
+    sites = []
+    for name, prior in (reaction.adsorption or {}).items():
+        if name not in species:
+            close = difflib.get_close_matches(name, species, n=1)
+            hint = f"did you mean '{close[0]}'?" if close else "adsorbing species must be in the species list"
+            raise StudyError(f"{key}.adsorption.{name}", f"'{name}' is not in species ({', '.join(species)})", hint)
+        dh_where = f"{key}.adsorption.{name}.dH"
+        sites.append(
+            AdsorptionSite(
+                name,
+                math.log(prior.K_ref.median),
+                math.log(prior.K_ref.factor) / Z95,
+                float(units.energy_to_joule_per_mol(prior.dH.mean, energy, dh_where)),
+                float(units.energy_to_joule_per_mol(prior.dH.sd, energy, dh_where)),
+            )
+        )
+    return (reaction.inhibition_exponent or 1.0), tuple(sites)
 
 
 def _parse_network_equation(reaction: Reaction, species: tuple[str, ...], key: str) -> Equation:
@@ -243,19 +341,15 @@ def _resolve_network(file: StudyFile, where: str) -> tuple[tuple[ReactionSpec, .
     if not species:
         raise StudyError(f"{where}: species", "required key is missing", "list every species, e.g. [A, B, C]")
     conc, time, energy = file.units.concentration, file.units.time, file.units.energy
-    specs, equations, order_maps, notes = [], [], [], []
+    specs, equations, order_maps, notes, saturation = [], [], [], [], []
     for index, reaction in enumerate(file.reactions):
         key = f"{where}: reactions[{index}]"
         equation = _parse_network_equation(reaction, species, key)
         equations.append(equation)
         reactant_orders = dict(equation.reactants)
         fitted_orders = []
-        if reaction.rate_law == "mass_action" and reaction.orders is not None:
-            raise StudyError(
-                f"{key}.orders",
-                "mass_action takes its orders from the equation",
-                "use rate_law: power_law to give or fit orders",
-            )
+        _check_law_keys(reaction, key)
+        inhibition, sites = _adsorption(reaction, equation, species, energy, key)
         for name, order in (reaction.orders or {}).items():
             if name not in reactant_orders:
                 raise StudyError(f"{key}.orders.{name}", f"'{name}' is not a reactant of '{reaction.equation}'")
@@ -286,8 +380,10 @@ def _resolve_network(file: StudyFile, where: str) -> tuple[tuple[ReactionSpec, .
             delta_n = sum(c for _, c in equation.products) - sum(c for _, c in equation.reactants)
             eq_unit = _concentration_power(conc, delta_n)
         order_maps.append(reactant_orders)
+        saturation.append((inhibition, tuple(site.species for site in sites)))
         overall = sum(reactant_orders.values())
         k_unit = _order_unit(conc, time, overall) if not fitted_orders else f"({conc})^(1-n)/{time}"
+        exponent, exponent_sd = _temperature_exponent(reaction)
         specs.append(
             ReactionSpec(
                 reaction.name,
@@ -298,9 +394,16 @@ def _resolve_network(file: StudyFile, where: str) -> tuple[tuple[ReactionSpec, .
                 equilibrium,
                 eq_unit,
                 tuple(fitted_orders),
+                temperature_exponent=exponent,
+                exponent_sd=exponent_sd,
+                inhibition_exponent=inhibition,
+                adsorption=sites,
+                molecularity=None if fitted_orders or sites else overall,
             )
         )
-    network = build_network(species, tuple(r.name for r in file.reactions), tuple(equations), tuple(order_maps))
+    network = build_network(
+        species, tuple(r.name for r in file.reactions), tuple(equations), tuple(order_maps), tuple(saturation)
+    )
     for name in species:
         if (
             not network.stoichiometry[:, species.index(name)].any()
@@ -354,6 +457,42 @@ def _check_units(file: StudyFile, where: str) -> None:
                 )
 
 
+def _run_variability(file: StudyFile, where: str) -> RunVariabilitySpec | None:
+    given = file.run_variability
+    if given is None:
+        return None
+    names = [r.name for r in file.reactions]
+    chosen = given.reactions if given.reactions is not None else tuple(names)
+    for position, name in enumerate(chosen):
+        if name not in names:
+            close = difflib.get_close_matches(name, names, n=1)
+            hint = f"did you mean '{close[0]}'?" if close else f"reactions are: {', '.join(names)}"
+            raise StudyError(f"{where}: run_variability.reactions[{position}]", f"no reaction is named '{name}'", hint)
+    if len(set(chosen)) != len(chosen) or not chosen:
+        raise StudyError(f"{where}: run_variability.reactions", "list each reaction once, at least one")
+    return RunVariabilitySpec(tuple(names.index(name) for name in chosen), given.sd.scale, given.by)
+
+
+def _transition_state(file: StudyFile, reactions: tuple[ReactionSpec, ...], where: str) -> TransitionStateSpec | None:
+    given = file.transition_state
+    if given is None:
+        return None
+    key = f"{where}: transition_state.standard_concentration"
+    if given.standard_concentration is None:
+        standard = 1000.0  # 1 mol/L in mol/m^3
+    elif file.units.concentration is None:
+        raise StudyError(key, "needs units.concentration to say its unit", "add e.g. concentration: mol/L")
+    else:
+        standard = given.standard_concentration * units.si_factor(file.units.concentration)
+    if all(r.molecularity is None for r in reactions):
+        raise StudyError(
+            f"{where}: transition_state",
+            "no reaction has a fixed molecularity",
+            "the Eyring analysis needs mass-action steps or fixed orders (not fitted orders or saturating laws)",
+        )
+    return TransitionStateSpec(given.phase, standard)
+
+
 def load_study(path: str | Path) -> Study:
     """Read, validate and resolve a study file. Raises ``StudyError`` with a one-line message on any mistake."""
     path = Path(path)
@@ -387,6 +526,11 @@ def load_study(path: str | Path) -> Study:
     )
     if file.scenarios and file.data.rate_constants is not None:
         raise StudyError(f"{where}: scenarios", "reactor scenarios need a reaction network fitted to batch runs")
+    temperature_sd = (
+        file.temperature_uncertainty * units.kelvin_per_degree(file.units.temperature)
+        if file.temperature_uncertainty is not None
+        else None
+    )
     study = Study(
         name=file.study,
         title=file.title,
@@ -405,6 +549,9 @@ def load_study(path: str | Path) -> Study:
         initial_uncertainty=tuple(file.initial_uncertainty.items()),
         warnings=notes,
         scenarios=file.scenarios,
+        run_variability=_run_variability(file, where),
+        temperature_sd_K=temperature_sd,
+        transition_state=_transition_state(file, reactions, where),
     )
     for index, scenario in enumerate(file.scenarios):
         check_scenario(scenario, study, f"{where}: scenarios[{index}]")

@@ -178,6 +178,8 @@ class Observations:
     ``times[r]`` the sorted distinct sampling times of run r (study time unit).
     Measurements (M), one per observed value: ``run_index``, ``time_index`` (into ``times[run]``),
     ``species_index`` (into ``Study.species``), ``value`` (concentration unit) and ``line`` (file line).
+    ``run_group[r]``: the group of run r for run-to-run variability (the ``run_variability.by`` column, or
+    the run itself).
     """
 
     run_ids: tuple[str, ...]
@@ -191,10 +193,21 @@ class Observations:
     line: np.ndarray
     runs_path: Path
     measurements_path: Path
+    run_group: tuple[str, ...] = ()
 
     @property
     def observed_species(self) -> np.ndarray:
         return np.unique(self.species_index)
+
+    @property
+    def group_names(self) -> tuple[str, ...]:
+        """Distinct groups in order of first appearance."""
+        return tuple(dict.fromkeys(self.run_group or self.run_ids))
+
+    @property
+    def group_index(self) -> np.ndarray:
+        names = self.group_names
+        return np.array([names.index(g) for g in (self.run_group or self.run_ids)], dtype=int)
 
     @property
     def time(self) -> np.ndarray:
@@ -209,12 +222,29 @@ def _run_label(frame: pd.DataFrame, where: str) -> list[str]:
     return labels
 
 
-def read_runs(study: Study) -> tuple[tuple[str, ...], np.ndarray, np.ndarray, Path]:
-    """Runs table: ``run``, ``temperature`` and the initial concentration of every species (one column each)."""
+@dataclass(frozen=True)
+class Runs:
+    """The runs table: labels, temperatures (K), initial concentrations (runs, species), groups, its path."""
+
+    labels: tuple[str, ...]
+    temperature_K: np.ndarray
+    initial: np.ndarray
+    groups: tuple[str, ...]
+    path: Path
+
+
+def read_runs(study: Study) -> Runs:
+    """Runs table: ``run``, ``temperature``, the initial concentration of every species (one column each) and,
+    with ``run_variability.by``, that group column."""
     path = study.data_file("runs")
     where = str(path)
     species = study.species
-    frame = read_table(path, {"run", "temperature", *species})
+    by = study.run_variability.by if study.run_variability is not None else None
+    if by is not None and by in {"run", "temperature", *species}:
+        raise StudyError(
+            f"{study.path}: run_variability.by", f"'{by}' is a column with its own meaning", "name a group column"
+        )
+    frame = read_table(path, {"run", "temperature", *species} | ({by} if by else set()))
     labels = _run_label(frame, where)
     seen: dict[str, int] = {}
     for row, label in enumerate(labels):
@@ -241,12 +271,19 @@ def read_runs(study: Study) -> tuple[tuple[str, ...], np.ndarray, np.ndarray, Pa
     if np.any(initial.sum(axis=1) <= 0):
         row = int(np.flatnonzero(initial.sum(axis=1) <= 0)[0])
         raise StudyError(f"{where}: line {frame['line'].iloc[row]}", "every initial concentration is zero")
-    return tuple(labels), temperature, initial, path
+    groups = tuple(labels)
+    if by is not None:
+        groups = tuple(frame[by])
+        for row, group in enumerate(groups):
+            if group == "":
+                raise StudyError(f"{where}: line {frame['line'].iloc[row]}, column '{by}'", "cell is blank")
+    return Runs(tuple(labels), temperature, initial, groups, path)
 
 
 def read_observations(study: Study) -> Observations:
     """Read runs and measurements (long layout ``run, time, species, value`` or wide ``run, time, <species>``)."""
-    run_ids, temperature, initial, runs_path = read_runs(study)
+    runs = read_runs(study)
+    run_ids, temperature, initial, runs_path = runs.labels, runs.temperature_K, runs.initial, runs.path
     path = study.data_file("measurements")
     where = str(path)
     species = study.species
@@ -333,6 +370,7 @@ def read_observations(study: Study) -> Observations:
         line=np.array([r[4] for r in records], dtype=int),
         runs_path=runs_path,
         measurements_path=path,
+        run_group=runs.groups,
     )
 
 

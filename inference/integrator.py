@@ -22,7 +22,7 @@ import math
 import numba
 import numpy as np
 
-from .kinetics import INITIAL, LN_EQ, LN_K, ORDER, _rates_and_jacobian
+from .kinetics import INITIAL, LN_ADS, LN_EQ, LN_K, ORDER, _rates_and_jacobian, adsorption_sensitivity
 
 _S6 = math.sqrt(6.0)
 #: Radau IIA(5) nodes and coefficient matrix (Hairer and Wanner, table IV.5.6).
@@ -90,11 +90,13 @@ def _lu_solve(lu, pivots, b):
 @numba.njit(cache=True)
 def _evaluate(y, net, f, jac, rate, forward_rate, reverse_rate, dr_dc, c):
     """f = dc/dt and jac = d f / d c at concentrations y (negative values read as zero)."""
-    k, inv_eq, stoichiometry, forward, reverse, reversible = net
+    k, inv_eq, stoichiometry, forward, reverse, reversible, ads, inhibition = net
     n_reactions, n_species = forward.shape
     for i in range(n_species):
         c[i] = max(y[i], 0.0)
-    _rates_and_jacobian(c, k, inv_eq, forward, reverse, reversible, rate, forward_rate, reverse_rate, dr_dc)
+    _rates_and_jacobian(
+        c, k, inv_eq, forward, reverse, reversible, ads, inhibition, rate, forward_rate, reverse_rate, dr_dc
+    )
     for i in range(n_species):
         total = 0.0
         for j in range(n_reactions):
@@ -340,6 +342,8 @@ def radau_run(
                         theta = reverse_rate[bj, j]
                     elif kind == ORDER:
                         theta = forward_rate[bj, j] * math.log(max(c[bj, param_species[p]], 1e-300))
+                    elif kind == LN_ADS:
+                        theta = adsorption_sensitivity(j, param_species[p], c[bj], net[6], net[7], rate[bj])
                     else:
                         theta = 0.0
                     for i in range(n):
@@ -453,6 +457,8 @@ def _augmented_rhs(
             theta = reverse_rate[j]
         elif kind == ORDER:
             theta = forward_rate[j] * math.log(max(c[param_species[p]], 1e-300))
+        elif kind == LN_ADS:
+            theta = adsorption_sensitivity(j, param_species[p], c, net[6], net[7], rate)
         else:
             theta = 0.0
         for i in range(n):
@@ -696,10 +702,12 @@ def predict_measurements(
     time_offsets,
     k_runs,
     inv_eq_runs,
+    ads_runs,
     stoichiometry,
     forward,
     reverse,
     reversible,
+    inhibition,
     params,
     rtol,
     atol,
@@ -728,7 +736,7 @@ def predict_measurements(
         status = integrate_run(
             initial[r].copy(),
             times,
-            (k_runs[r], inv_eq_runs[r], stoichiometry, forward, reverse, reversible),
+            (k_runs[r], inv_eq_runs[r], stoichiometry, forward, reverse, reversible, ads_runs[r], inhibition),
             params,
             rtol,
             atol,

@@ -5,9 +5,11 @@ Sensitivity parameters of a run are described by ``kinds``:
 - ``LN_K`` (0): ln k_j of reaction j in that run;
 - ``LN_EQ`` (1): ln K_j, the equilibrium constant of reversible reaction j in that run;
 - ``ORDER`` (2): the forward order of reaction j in species i (shared by all runs);
-- ``INITIAL`` (3): the initial concentration of species i in that run (sensitivity starts as a unit vector).
+- ``INITIAL`` (3): the initial concentration of species i in that run (sensitivity starts as a unit vector);
+- ``LN_ADS`` (4): ln K_ji, the adsorption constant of species i in the saturation term of reaction j.
 
-Rates: r_j = k_j prod_i c_i^a_ji - (k_j / K_j) prod_i c_i^b_ji (second term only for reversible steps);
+Rates: r_j = [k_j prod_i c_i^a_ji - (k_j / K_j) prod_i c_i^b_ji] / D_j^n_j (second term only for reversible
+steps), with D_j = 1 + sum_i K_ji c_i for saturating laws (n_j > 0) and D_j = 1 otherwise;
 dc/dt = stoichiometry^T r. Negative concentrations (solver overshoot) are read as zero by the callers.
 """
 
@@ -15,7 +17,7 @@ from __future__ import annotations
 
 import numba
 
-LN_K, LN_EQ, ORDER, INITIAL = 0, 1, 2, 3
+LN_K, LN_EQ, ORDER, INITIAL, LN_ADS = 0, 1, 2, 3, 4
 
 
 @numba.njit(cache=True)
@@ -30,8 +32,26 @@ def _power(c: float, order: float) -> float:
 
 
 @numba.njit(cache=True)
-def _rates_and_jacobian(c, k, inv_eq, forward, reverse, reversible, rate, forward_rate, reverse_rate, dr_dc):
-    """Fill rate[j], forward_rate[j], reverse_rate[j] and dr_dc[j, m] for one run at concentrations c."""
+def saturation_denominator(j, c, ads):
+    """D_j = 1 + sum_i K_ji c_i."""
+    total = 1.0
+    for i in range(c.shape[0]):
+        total += ads[j, i] * c[i]
+    return total
+
+
+@numba.njit(cache=True)
+def adsorption_sensitivity(j, i, c, ads, inhibition, rate):
+    """d r_j / d ln K_ji = -n_j r_j K_ji c_i / D_j."""
+    return -inhibition[j] * rate[j] * ads[j, i] * c[i] / saturation_denominator(j, c, ads)
+
+
+@numba.njit(cache=True)
+def _rates_and_jacobian(
+    c, k, inv_eq, forward, reverse, reversible, ads, inhibition, rate, forward_rate, reverse_rate, dr_dc
+):
+    """Fill rate[j], forward_rate[j], reverse_rate[j] (both divided by D_j^n_j) and dr_dc[j, m] for one run at
+    concentrations c; ``ads`` (R, N) holds the adsorption constants K_ji, ``inhibition`` (R,) the n_j."""
     n_reactions, n_species = forward.shape
     for j in range(n_reactions):
         value = k[j]
@@ -60,3 +80,11 @@ def _rates_and_jacobian(c, k, inv_eq, forward, reverse, reversible, rate, forwar
                         part *= _power(c[i], reverse[j, i])
                 derivative -= part
             dr_dc[j, m] = derivative
+        if inhibition[j] != 0.0:
+            denominator = saturation_denominator(j, c, ads)
+            scale = denominator ** -inhibition[j]
+            for m in range(n_species):
+                dr_dc[j, m] = scale * (dr_dc[j, m] - inhibition[j] * rate[j] * ads[j, m] / denominator)
+            rate[j] *= scale
+            forward_rate[j] *= scale
+            reverse_rate[j] *= scale

@@ -7,6 +7,12 @@ of about unit scale. Variables in the posterior, with their units:
 - ``Ea[reaction]``: activation energy, J/mol;
 - ``ln_K_ref[reversible]``, ``dH[reversible]``: ln of the equilibrium constant K_c at T_ref, reaction enthalpy
   in J/mol (reversible steps only);
+- ``temperature_exponent[reaction]``: n of the extended Arrhenius form (only when some n is fitted);
+- ``ln_K_ads_ref[adsorption_site]``, ``dH_ads[adsorption_site]``: ln of a saturating law's adsorption constant
+  at T_ref (K in 1/concentration) and its van 't Hoff enthalpy, J/mol;
+- ``ln_k_spread[varying_reaction]``, ``run_effect[group, varying_reaction]``: between-run sd of ln k and each
+  group's shift of ln k (``run_variability`` only; non-centred);
+- ``temperature[run]``: each run's true temperature, K (``temperature_uncertainty`` only);
 - ``order[fitted_order]``: fitted reaction orders (power laws only);
 - ``initial[run, uncertain_species]``: initial concentrations given a prior (``initial_uncertainty`` only);
 - ``sigma`` or ``sigma[observed_species]``: noise scale (on the log of values for proportional and robust
@@ -49,6 +55,26 @@ def _arrhenius_parameters(study: Study) -> tuple:
     return ln_k_ref, ea
 
 
+def _temperature_exponents(study: Study):
+    """n of (T/T_ref)^n per reaction: fixed numbers, or a vector with the fitted ones sampled standardised."""
+    fixed = np.array([r.temperature_exponent for r in study.reactions])
+    fitted = [j for j, r in enumerate(study.reactions) if r.exponent_sd is not None]
+    if not fitted:
+        return fixed if np.any(fixed) else 0.0
+    sd = np.array([study.reactions[j].exponent_sd for j in fitted])
+    z = pm.Normal("z_temperature_exponent", 0.0, 1.0, dims="fitted_exponent")
+    exponents = pt.set_subtensor(pt.as_tensor_variable(fixed)[fitted], fixed[fitted] + sd * z)
+    return pm.Deterministic("temperature_exponent", exponents, dims="reaction")
+
+
+def _true_temperatures(study: Study, nominal_K: np.ndarray, dims: str):
+    """Nominal temperatures, or latent true ones N(nominal, sd) when the study states a temperature error."""
+    if study.temperature_sd_K is None:
+        return nominal_K
+    z = pm.Normal("z_temperature", 0.0, 1.0, dims=dims)
+    return pm.Deterministic("temperature", nominal_K + study.temperature_sd_K * z, dims=dims)
+
+
 def _likelihood(noise: Noise, predicted, sigma, observed: np.ndarray) -> None:
     """The observation node. ``predicted`` is on the data scale; proportional and robust noise act on its log,
     and their densities are of the values themselves, so log-likelihoods compare across noise models."""
@@ -71,10 +97,14 @@ def _likelihood(noise: Noise, predicted, sigma, observed: np.ndarray) -> None:
 def build_rate_constant_model(study: Study, data: RateConstantData, temperature_ref: float) -> pm.Model:
     """k_obs lognormal (or log-Student-t for ``robust`` noise) about k(T), all reactions in one model."""
     coords = {"reaction": list(study.reaction_names), "measurement": np.arange(data.k.size)}
+    coords |= _exponent_coords(study)
     with pm.Model(coords=coords) as model:
         ln_k_ref, ea = _arrhenius_parameters(study)
+        exponents = _temperature_exponents(study)
         idx = data.reaction_index
-        predicted = pt.exp(ln_rate_constant(data.temperature_K, ln_k_ref[idx], ea[idx], temperature_ref))
+        temperature = _true_temperatures(study, data.temperature_K, "measurement")
+        exponent = exponents[idx] if not isinstance(exponents, float) else 0.0
+        predicted = pt.exp(ln_rate_constant(temperature, ln_k_ref[idx], ea[idx], temperature_ref, exponent))
         sigma = data.ln_k_sd if data.ln_k_sd is not None else pm.HalfNormal("sigma", sigma=study.noise.sigma.scale)
         _likelihood(study.noise, predicted, sigma, data.k)
     return model
@@ -106,6 +136,43 @@ def _equilibrium_parameters(study: Study):
     return ln_eq_ref, dh
 
 
+def _exponent_coords(study: Study) -> dict:
+    fitted = [r.name for r in study.reactions if r.exponent_sd is not None]
+    return {"fitted_exponent": fitted} if fitted else {}
+
+
+def _adsorption_parameters(study: Study):
+    """ln K_ads at T_ref and dH_ads of every adsorption site, sampled standardised (None without sites)."""
+    sites = [site for r in study.reactions for site in r.adsorption]
+    if not sites:
+        return None, None
+    z_ln = pm.Normal("z_ln_K_ads_ref", 0.0, 1.0, dims="adsorption_site")
+    z_dh = pm.Normal("z_dH_ads", 0.0, 1.0, dims="adsorption_site")
+    ln_ref = pm.Deterministic(
+        "ln_K_ads_ref",
+        np.array([s.ln_ref_mean for s in sites]) + np.array([s.ln_ref_sd for s in sites]) * z_ln,
+        dims="adsorption_site",
+    )
+    dh = pm.Deterministic(
+        "dH_ads",
+        np.array([s.dh_mean for s in sites]) + np.array([s.dh_sd for s in sites]) * z_dh,
+        dims="adsorption_site",
+    )
+    return ln_ref, dh
+
+
+def _run_effects(study: Study, obs: Observations, ln_k):
+    """ln k plus each group's non-centred shift tau_j z_gj for the reactions that vary from run to run."""
+    spec = study.run_variability
+    if spec is None:
+        return ln_k
+    varying = list(spec.reactions)
+    spread = pm.HalfNormal("ln_k_spread", sigma=spec.scale, dims="varying_reaction")
+    z = pm.Normal("z_run_effect", 0.0, 1.0, dims=("group", "varying_reaction"))
+    effect = pm.Deterministic("run_effect", spread * z, dims=("group", "varying_reaction"))
+    return pt.inc_subtensor(ln_k[:, varying], effect[obs.group_index])
+
+
 def network_coords(study: Study, obs: Observations) -> dict:
     """Named coordinates of a network model."""
     coords = {
@@ -122,7 +189,13 @@ def network_coords(study: Study, obs: Observations) -> dict:
         coords["fitted_order"] = fitted
     if study.initial_uncertainty:
         coords["uncertain_species"] = [name for name, _ in study.initial_uncertainty]
-    return coords
+    sites = [f"{r.name}:{site.species}" for r in study.reactions for site in r.adsorption]
+    if sites:
+        coords["adsorption_site"] = sites
+    if study.run_variability is not None:
+        coords["varying_reaction"] = [study.reaction_names[j] for j in study.run_variability.reactions]
+        coords["group"] = list(obs.group_names)
+    return coords | _exponent_coords(study)
 
 
 def build_network_model(
@@ -131,10 +204,13 @@ def build_network_model(
     """All runs of a network study in one model: Arrhenius (and van 't Hoff) per reaction, profiles from the
     closed form where one is exact, otherwise from the ODE solver with forward sensitivities."""
     network = study.network
-    temperature = obs.temperature_K[:, None]
     with pm.Model(coords=network_coords(study, obs)) as model:
+        temperature = _true_temperatures(study, obs.temperature_K, "run")[:, None]
         ln_k_ref, ea = _arrhenius_parameters(study)
-        ln_k = ln_rate_constant(temperature, ln_k_ref[None, :], ea[None, :], temperature_ref)
+        exponents = _temperature_exponents(study)
+        exponent = exponents[None, :] if not isinstance(exponents, float) else 0.0
+        ln_k = ln_rate_constant(temperature, ln_k_ref[None, :], ea[None, :], temperature_ref, exponent)
+        ln_k = _run_effects(study, obs, ln_k)
         ln_eq_ref, dh = _equilibrium_parameters(study)
         ln_eq = (
             ln_rate_constant(temperature, ln_eq_ref[None, :], dh[None, :], temperature_ref)
@@ -162,6 +238,12 @@ def build_network_model(
         else:
             initial_free = pt.zeros((len(obs.run_ids), 0))
 
+        ln_ads_ref, dh_ads = _adsorption_parameters(study)
+        ln_ads = (
+            ln_rate_constant(temperature, ln_ads_ref[None, :], dh_ads[None, :], temperature_ref)
+            if ln_ads_ref is not None
+            else pt.zeros((len(obs.run_ids), 0))
+        )
         kind = closed_form.closed_form_kind(network)
         if kind is not None and not study.initial_uncertainty:
             k = pt.exp(ln_k[obs.run_index, 0])
@@ -169,7 +251,7 @@ def build_network_model(
             predicted = profiles[pt.arange(obs.value.size), obs.species_index]
         else:
             op = NetworkPrediction(network_solver(study, obs), obs, network.forward_orders, failure_log)
-            raw, _ = op(ln_k, ln_eq, orders, initial_free)
+            raw, _ = op(ln_k, ln_eq, ln_ads, orders, initial_free)
             failed = pt.any(pt.isnan(raw))
             # A failed integration rejects the draw: the log-density is -inf there.
             pm.Potential("solver_guard", pt.switch(failed, -np.inf, 0.0))

@@ -75,7 +75,9 @@ class Network:
     stoichiometry[j, i]: net moles of species i made per unit extent of reaction j (negative if consumed);
     forward_orders[j, i]: order of the forward rate in species i (mass action: reactant coefficients);
     reverse_orders[j, i]: order of the reverse rate (mass action: product coefficients);
-    reversible[j]: whether reaction j has a reverse rate k_j / K_j.
+    reversible[j]: whether reaction j has a reverse rate k_j / K_j;
+    inhibition[j]: exponent n of the saturation term (1 + sum_m K_jm c_m)^n dividing reaction j's rate, 0 for
+    laws without one; adsorption_sites: the (reaction j, species m) pairs with an adsorption constant K_jm.
     """
 
     species: tuple[str, ...]
@@ -84,6 +86,18 @@ class Network:
     forward_orders: np.ndarray
     reverse_orders: np.ndarray
     reversible: np.ndarray
+    inhibition: np.ndarray | None = None
+    adsorption_sites: tuple[tuple[int, int], ...] = ()
+
+    def __post_init__(self) -> None:
+        if self.inhibition is None:
+            inhibition = np.zeros(len(self.reactions))
+            inhibition.setflags(write=False)
+            object.__setattr__(self, "inhibition", inhibition)
+
+    @property
+    def saturating(self) -> bool:
+        return bool(self.adsorption_sites)
 
     @property
     def overall_forward_order(self) -> np.ndarray:
@@ -100,11 +114,13 @@ def build_network(
     reactions: tuple[str, ...],
     equations: tuple[Equation, ...],
     orders: tuple[dict[str, float], ...] | None = None,
+    saturation: tuple[tuple[float, tuple[str, ...]], ...] | None = None,
 ) -> Network:
     """Matrices from parsed equations; every species named must be in ``species`` (checked by the caller).
 
     ``orders`` optionally gives each reaction's forward orders by species (power laws); by default they are
-    the reactants' stoichiometric coefficients (mass action).
+    the reactants' stoichiometric coefficients (mass action). ``saturation`` gives, per reaction, the
+    inhibition exponent and the species with adsorption constants (exponent 0 and no species: none).
     """
     index = {name: i for i, name in enumerate(species)}
     shape = (len(equations), len(species))
@@ -123,9 +139,14 @@ def build_network(
                 forward[j, index[name]] = order
     reversible = np.array([e.reversible for e in equations], dtype=bool)
     reverse[~reversible] = 0.0
-    for matrix in (stoichiometry, forward, reverse, reversible):
+    inhibition = np.zeros(len(equations))
+    sites: list[tuple[int, int]] = []
+    for j, (exponent, adsorbed) in enumerate(saturation or ()):
+        inhibition[j] = exponent
+        sites += [(j, index[name]) for name in adsorbed]
+    for matrix in (stoichiometry, forward, reverse, reversible, inhibition):
         matrix.setflags(write=False)
-    return Network(species, reactions, stoichiometry, forward, reverse, reversible)
+    return Network(species, reactions, stoichiometry, forward, reverse, reversible, inhibition, tuple(sites))
 
 
 _FORMULA_TOKEN = re.compile(r"([A-Z][a-z]?|\(|\)|\d+)")

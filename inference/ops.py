@@ -20,8 +20,9 @@ from .solution import MeasurementSolver, NetworkSolver, SolverFailure
 
 
 class NetworkPrediction(Op):
-    """Inputs: ln_k (runs, reactions), ln_eq (runs, reversible), free orders (F,), free initial (runs, G).
-    Outputs: predicted concentration per measurement (M,), and d(prediction)/d(inputs, flattened) (M, P).
+    """Inputs: ln_k (runs, reactions), ln_eq (runs, reversible), ln_ads (runs, adsorption sites), free orders
+    (F,), free initial (runs, G). Outputs: predicted concentration per measurement (M,), and
+    d(prediction)/d(inputs, flattened) (M, P).
 
     A failed integration returns NaN predictions (the model turns them into a log-density of -inf), is
     counted, and, with ``failure_log``, appended to that file as one line."""
@@ -42,18 +43,22 @@ class NetworkPrediction(Op):
         self.fixed_orders = np.array(fixed_orders, dtype=float)
         self.failures = 0
         n_runs = len(observations.run_ids)
-        n_reactions = len(solver.network.reactions)
-        n_rev = solver.reversible_index.size
-        n_orders, n_initial = len(solver.free_orders), len(solver.free_initial)
-        self.shapes = ((n_runs, n_reactions), (n_runs, n_rev), (n_orders,), (n_runs, n_initial))
+        # (count, per run) of each input, in the order of the solver's sensitivity parameters.
+        blocks = (
+            (len(solver.network.reactions), True),
+            (solver.reversible_index.size, True),
+            (len(solver.network.adsorption_sites), True),
+            (len(solver.free_orders), False),
+            (len(solver.free_initial), True),
+        )
+        self.shapes = tuple((n_runs, count) if per_run else (count,) for count, per_run in blocks)
         self.sizes = [int(np.prod(s)) for s in self.shapes]
-        columns = self._jacobian_columns(n_runs, n_reactions, n_rev, n_orders, n_initial)
         self.measurements = MeasurementSolver(
             solver,
             observations.run_index,
             observations.time_index,
             observations.species_index,
-            columns,
+            self._jacobian_columns(n_runs, blocks),
             sum(self.sizes),
         )
 
@@ -64,21 +69,19 @@ class NetworkPrediction(Op):
         return self is other
 
     @staticmethod
-    def _jacobian_columns(n_runs: int, n_reactions: int, n_rev: int, n_orders: int, n_initial: int) -> np.ndarray:
+    def _jacobian_columns(n_runs: int, blocks: tuple[tuple[int, bool], ...]) -> np.ndarray:
         """columns[r, p]: the flattened input that sensitivity parameter p of run r belongs to."""
-        offset_eq = n_runs * n_reactions
-        offset_orders = offset_eq + n_runs * n_rev
-        offset_initial = offset_orders + n_orders
-        columns = np.zeros((n_runs, n_reactions + n_rev + n_orders + n_initial), dtype=int)
-        for r in range(n_runs):
-            columns[r, :n_reactions] = r * n_reactions + np.arange(n_reactions)
-            columns[r, n_reactions : n_reactions + n_rev] = offset_eq + r * n_rev + np.arange(n_rev)
-            columns[r, n_reactions + n_rev : n_reactions + n_rev + n_orders] = offset_orders + np.arange(n_orders)
-            columns[r, n_reactions + n_rev + n_orders :] = offset_initial + r * n_initial + np.arange(n_initial)
+        columns = np.zeros((n_runs, sum(count for count, _ in blocks)), dtype=int)
+        offset, first = 0, 0
+        for count, per_run in blocks:
+            for r in range(n_runs):
+                columns[r, first : first + count] = offset + (r * count if per_run else 0) + np.arange(count)
+            offset += count * (n_runs if per_run else 1)
+            first += count
         return columns
 
-    def make_node(self, ln_k, ln_eq, orders, initial) -> Apply:
-        inputs = [pt.as_tensor_variable(x).astype("float64") for x in (ln_k, ln_eq, orders, initial)]
+    def make_node(self, ln_k, ln_eq, ln_ads, orders, initial) -> Apply:
+        inputs = [pt.as_tensor_variable(x).astype("float64") for x in (ln_k, ln_eq, ln_ads, orders, initial)]
         outputs = [pt.dvector(), pt.dmatrix()]
         return Apply(self, inputs, outputs)
 
@@ -95,12 +98,12 @@ class NetworkPrediction(Op):
         return initial
 
     def perform(self, node: Apply, inputs: list, outputs: list) -> None:
-        ln_k, ln_eq, free_orders, free_initial = inputs
+        ln_k, ln_eq, ln_ads, free_orders, free_initial = inputs
         obs = self.observations
         n_total = sum(self.sizes)
         try:
             prediction, jacobian = self.measurements.solve(
-                ln_k, ln_eq, self.full_orders(free_orders), self.full_initial(free_initial)
+                ln_k, ln_eq, self.full_orders(free_orders), self.full_initial(free_initial), ln_ads
             )
         except SolverFailure as failure:
             self.failures += 1

@@ -454,7 +454,7 @@ def _measured_range(study: Study, attrs: dict) -> tuple[float, float]:
     if "temperature_range_K" in attrs:
         low, high = attrs["temperature_range_K"]
         return float(low), float(high)
-    _, kelvin, _, _ = read_runs(study)
+    kelvin = read_runs(study).temperature_K
     return float(kelvin.min()), float(kelvin.max())
 
 

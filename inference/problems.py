@@ -21,7 +21,7 @@ from . import closed_form, plots, units
 from .arrhenius import ln_rate_constant
 from .config import Z95
 from .data import Observations, RateConstantData, read_observations, read_rate_constants
-from .draws import parameter_draws, pick_draws
+from .draws import parameter_draws, pick_draws, prior_centre_draws
 from .solution import NetworkSolver, SolverFailure
 from .study import Study
 from .summaries import classical_table, network_fit_checks, rate_constant_fit_checks
@@ -264,21 +264,17 @@ class NetworkProblem:
     def failing_run_at_prior_centre(self, temperature_ref: float) -> str | None:
         """The first run whose profiles cannot be integrated with every parameter at its prior's centre."""
         study, obs = self.study, self.obs
-        ln_k_ref = np.array([r.prior.ln_k_ref_mean for r in study.reactions])
-        ea = np.array([r.prior.ea_mean for r in study.reactions])
-        equilibria = [r.equilibrium for r in study.reactions if r.equilibrium is not None]
-        ln_eq_ref = np.array([q.ln_eq_ref_mean for q in equilibria])
-        dh = np.array([q.dh_mean for q in equilibria])
-        orders = np.array(study.network.forward_orders)
+        centre = prior_centre_draws(study, temperature_ref)
         for r, run in enumerate(obs.run_ids):
             kelvin = obs.temperature_K[r]
             solver = NetworkSolver(study.network, [obs.times[r]])
             try:
                 solver.solve(
-                    ln_rate_constant(kelvin, ln_k_ref, ea, temperature_ref)[None, :],
-                    ln_rate_constant(kelvin, ln_eq_ref, dh, temperature_ref)[None, :],
-                    orders,
+                    centre.ln_k(kelvin),
+                    centre.ln_eq(kelvin),
+                    centre.orders[0],
                     obs.initial[r : r + 1],
+                    ln_ads=centre.ln_ads(kelvin),
                     sensitivities=False,
                 )
             except SolverFailure:
@@ -316,18 +312,25 @@ class NetworkProblem:
         network = study.network
         kind = closed_form.closed_form_kind(network)
         solver = None if kind is not None and draws.initial is None else NetworkSolver(network, times)
-        temperature = obs.temperature_K[:, None]
         out = [np.full((draws.size, t.size, len(study.species)), np.nan) for t in times]
         for d in range(draws.size):
-            ln_k = ln_rate_constant(temperature, draws.ln_k_ref[d][None, :], draws.ea[d][None, :], temperature_ref)
+            ln_k = draws.fitted_run_ln_k(d, obs.temperature_K, obs.group_index)
             initial = obs.initial if draws.initial is None else draws.initial[d]
             if solver is None:
                 for r, t in enumerate(times):
                     out[r][d] = closed_form.concentrations(kind, network, initial[r], math.exp(ln_k[r, 0]), t)
                 continue
-            ln_eq = ln_rate_constant(temperature, draws.ln_eq_ref[d][None, :], draws.dh[d][None, :], temperature_ref)
+            kelvin = obs.temperature_K if draws.run_temperature is None else draws.run_temperature[d]
+            ln_eq = ln_rate_constant(
+                kelvin[:, None], draws.ln_eq_ref[d][None, :], draws.dh[d][None, :], temperature_ref
+            )
+            ln_ads = None
+            if draws.ln_ads_ref is not None:
+                ln_ads = ln_rate_constant(
+                    kelvin[:, None], draws.ln_ads_ref[d][None, :], draws.dh_ads[d][None, :], temperature_ref
+                )
             try:
-                solution = solver.solve(ln_k, ln_eq, draws.orders[d], initial, sensitivities=False)
+                solution = solver.solve(ln_k, ln_eq, draws.orders[d], initial, ln_ads=ln_ads, sensitivities=False)
             except SolverFailure:
                 continue
             for r in range(len(times)):

@@ -23,21 +23,29 @@ from scipy.optimize import root
 from .draws import ParameterDraws
 from .integrator import _evaluate
 from .network import Network
-from .solution import NetworkSolver, SolverFailure
+from .solution import NetworkSolver, SolverFailure, rate_arrays
 
 
 def _rate_terms(
-    network: Network, orders: np.ndarray, ln_k: np.ndarray, ln_eq: np.ndarray, c: np.ndarray, reversible: np.ndarray
+    network: Network, draws: ParameterDraws, d: int, kelvin: float, c: np.ndarray
 ) -> tuple[np.ndarray, np.ndarray]:
-    """dc/dt = S^T r(c) and its Jacobian for one parameter draw (negative c read as zero)."""
-    n_reactions, n = orders.shape
-    k = np.exp(ln_k)
-    inv_eq = np.zeros(n_reactions)
-    inv_eq[reversible] = np.exp(-ln_eq)
+    """dc/dt = S^T r(c) and its Jacobian for draw d at ``kelvin`` (negative c read as zero)."""
+    one = draws.draw(d)
+    k, inv_eq, ads = rate_arrays(network, one.ln_k(kelvin), one.ln_eq(kelvin), one.ln_ads(kelvin))
+    n_reactions, n = network.forward_orders.shape
     f, jac = np.empty(n), np.empty((n, n))
     _evaluate(
         np.ascontiguousarray(c, dtype=float),
-        (k, inv_eq, network.stoichiometry, np.ascontiguousarray(orders), network.reverse_orders, network.reversible),
+        (
+            k[0],
+            inv_eq[0],
+            network.stoichiometry,
+            np.ascontiguousarray(one.orders[0]),
+            network.reverse_orders,
+            network.reversible,
+            ads[0],
+            network.inhibition,
+        ),
         f,
         jac,
         np.empty(n_reactions),
@@ -54,14 +62,19 @@ def batch_profiles(
 ) -> np.ndarray:
     """Isothermal batch (or PFR) profiles of every draw: (draws, times, species); NaN where a draw failed."""
     n = initial.size
-    ln_k, ln_eq = draws.ln_k(kelvin), draws.ln_eq(kelvin)
+    ln_k, ln_eq, ln_ads = draws.ln_k(kelvin), draws.ln_eq(kelvin), draws.ln_ads(kelvin)
     out = np.full((draws.size, times.size, n), np.nan)
     if not draws.orders_vary:
         # Each draw is a "run" of one solver call: one compiled loop for every draw.
         solver = NetworkSolver(network, [times] * draws.size)
         try:
             solution = solver.solve(
-                ln_k, ln_eq, draws.orders[0], np.repeat(initial[None], draws.size, axis=0), sensitivities=False
+                ln_k,
+                ln_eq,
+                draws.orders[0],
+                np.repeat(initial[None], draws.size, axis=0),
+                ln_ads=ln_ads,
+                sensitivities=False,
             )
             return np.stack(solution.concentrations)
         except SolverFailure:
@@ -70,7 +83,12 @@ def batch_profiles(
     for d in range(draws.size):
         try:
             solution = solver.solve(
-                ln_k[d : d + 1], ln_eq[d : d + 1], draws.orders[d], initial[None], sensitivities=False
+                ln_k[d : d + 1],
+                ln_eq[d : d + 1],
+                draws.orders[d],
+                initial[None],
+                ln_ads=None if ln_ads is None else ln_ads[d : d + 1],
+                sensitivities=False,
             )
             out[d] = solution.concentrations[0]
         except SolverFailure:
@@ -109,19 +127,17 @@ def cstr_steady_states(
     shape = (draws.size, residence_times.size)
     concentrations = np.full((*shape, n), np.nan)
     multiple, unstable, failed = np.zeros(shape, bool), np.zeros(shape, bool), np.zeros(shape, bool)
-    ln_k, ln_eq = draws.ln_k(kelvin), draws.ln_eq(kelvin)
     grid = np.unique(np.concatenate([[0.0], residence_times, 20 * residence_times]))
     batch = batch_profiles(network, draws, kelvin, feed, grid)
     at_tau = batch[:, np.searchsorted(grid, residence_times)]
     at_long = batch[:, np.searchsorted(grid, 20 * residence_times)]
     scale = max(float(feed.max()), 1e-300)
-    reversible = network.reversible
     reachable = _reachable_guesses(network, feed) if thorough else []
     for d in range(draws.size):
         for q, tau in enumerate(residence_times):
 
             def residual(c: np.ndarray, d: int = d, tau: float = tau) -> tuple[np.ndarray, np.ndarray]:
-                f, jac = _rate_terms(network, draws.orders[d], ln_k[d], ln_eq[d], c, reversible)
+                f, jac = _rate_terms(network, draws, d, kelvin, c)
                 return (feed - c) / tau + f, jac - np.eye(n) / tau
 
             found: list[tuple[np.ndarray, bool]] = []
@@ -189,20 +205,15 @@ def programmed_batch_profiles(
     edges = edges[edges <= times[-1]]
     if edges[0] > 0.0:
         edges = np.concatenate([[0.0], edges])
-    reversible = network.reversible
     for d in range(draws.size):
 
         def rhs(t: float, c: np.ndarray, d: int = d) -> np.ndarray:
             kelvin = float(programme_temperature(programme, np.array([t]))[0])
-            return _rate_terms(network, draws.orders[d], draws.ln_k(kelvin)[d], draws.ln_eq(kelvin)[d], c, reversible)[
-                0
-            ]
+            return _rate_terms(network, draws, d, kelvin, c)[0]
 
         def jacobian(t: float, c: np.ndarray, d: int = d) -> np.ndarray:
             kelvin = float(programme_temperature(programme, np.array([t]))[0])
-            return _rate_terms(network, draws.orders[d], draws.ln_k(kelvin)[d], draws.ln_eq(kelvin)[d], c, reversible)[
-                1
-            ]
+            return _rate_terms(network, draws, d, kelvin, c)[1]
 
         state = initial.astype(float)
         for start, stop in itertools.pairwise(edges):

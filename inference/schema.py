@@ -95,23 +95,50 @@ class OrderPrior(Strict):
 Order = Annotated[float, Field(ge=0.0, le=10.0)] | OrderPrior
 
 
+class AdsorptionPrior(Strict):
+    """An adsorption (binding) constant of a saturating rate law: K at T_ref (1/concentration) and the
+    adsorption enthalpy of its van 't Hoff dependence (energy unit; negative for exothermic adsorption)."""
+
+    K_ref: LogNormalPrior
+    dH: NormalPrior
+
+
+class ExponentPrior(Strict):
+    """Normal prior of the temperature exponent n in k = k_ref (T/T_ref)^n exp(-(Ea/R)(1/T - 1/T_ref))."""
+
+    mean: Annotated[float, Field(ge=-10.0, le=10.0)]
+    sd: Annotated[float, Field(gt=0.0, le=10.0)]
+
+
+RATE_LAWS = ("mass_action", "power_law", "saturating", "michaelis_menten")
+
+
 class Reaction(Strict):
     """One reaction: name, equation, rate law and the priors of its parameters.
 
     ``k_ref`` is k at T_ref in the units its order implies (concentration^(1-order) / time). Reversible
     steps (``<=>``) also take ``K_ref`` (equilibrium constant K_c at T_ref, concentration^(sum of
     stoichiometric coefficients)) and ``dH`` (reaction enthalpy for van 't Hoff, energy unit). ``power_law``
-    takes ``orders``: per reactant a fixed number or ``{lower, upper}`` to fit it.
+    takes ``orders``: per reactant a fixed number or ``{lower, upper}`` to fit it. ``saturating`` divides the
+    rate by (1 + sum_j K_j c_j)^inhibition_exponent with one ``adsorption`` entry per species j;
+    ``michaelis_menten`` is its one-substrate case with exponent 1, given by ``K_M`` (concentration) and
+    ``K_M_dH``. ``temperature_exponent`` (any law): n of (T/T_ref)^n, a fixed number or ``{mean, sd}``.
+    Which keys a law takes is declared in ``inference.rate_laws``.
     """
 
     name: Name
     equation: str | None = None
-    rate_law: Literal["mass_action", "power_law"] = "mass_action"
+    rate_law: Literal[RATE_LAWS] = "mass_action"  # type: ignore[valid-type]
     k_ref: LogNormalPrior
     Ea: PositiveNormalPrior
     K_ref: LogNormalPrior | None = None
     dH: NormalPrior | None = None
     orders: dict[str, Order] | None = None
+    adsorption: dict[str, AdsorptionPrior] | None = None
+    inhibition_exponent: Annotated[float, Field(gt=0.0, le=4.0)] | None = None
+    K_M: LogNormalPrior | None = None
+    K_M_dH: NormalPrior | None = None
+    temperature_exponent: Annotated[float, Field(ge=-10.0, le=10.0)] | ExponentPrior | None = None
 
 
 class Noise(Strict):
@@ -224,6 +251,25 @@ class Scenario(Strict):
         return self
 
 
+class RunVariability(Strict):
+    """Run-to-run scatter of ln k beyond measurement error: ln k of each listed reaction in group g is shifted
+    by tau * z_g, z_g ~ N(0, 1), tau ~ half-normal(``sd.scale``). ``by`` names a column of the runs file
+    (day, catalyst lot); without it every run is its own group. ``reactions`` defaults to all."""
+
+    sd: HalfNormalPrior = HalfNormalPrior(scale=0.3)
+    by: Annotated[str, Field(pattern=NAME_PATTERN, max_length=64)] | None = None
+    reactions: tuple[Name, ...] | None = None
+
+
+class TransitionState(Strict):
+    """How Ea and k become Eyring's activation enthalpy and entropy. ``phase``: ``solution`` (dH = Ea - RT) or
+    ``gas`` (dH = Ea - m RT for molecularity m); ``standard_concentration`` c° in the study's concentration
+    unit (default 1 mol/L)."""
+
+    phase: Literal["solution", "gas"] = "solution"
+    standard_concentration: PositiveFloat | None = None
+
+
 class StudyFile(Strict):
     """A whole study file as written by the user."""
 
@@ -240,6 +286,9 @@ class StudyFile(Strict):
     sampling: Sampling = Sampling()
     report: Report = Report()
     scenarios: tuple[Scenario, ...] = ()
+    run_variability: RunVariability | None = None
+    temperature_uncertainty: Annotated[float, Field(gt=0.0, le=50.0)] | None = None
+    transition_state: TransitionState | None = None
 
     @model_validator(mode="after")
     def _unique_names(self) -> StudyFile:

@@ -2,7 +2,7 @@
 
 ``NetworkSolver`` integrates every run of a study with the compiled Radau IIA integrator of ``integrator``
 (each run with its own step sizes), returning the concentrations and their sensitivities to ln k, ln K,
-fitted orders and uncertain initial concentrations. No PyMC here.
+fitted orders, uncertain initial concentrations and adsorption constants. No PyMC here.
 """
 
 from __future__ import annotations
@@ -38,11 +38,33 @@ class Solution:
     sensitivities: list[np.ndarray] | None
 
 
+def rate_arrays(
+    network: Network, ln_k: np.ndarray, ln_eq: np.ndarray, ln_ads: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """k (runs, reactions), 1/K (runs, reactions; zero for irreversible steps) and the adsorption constants
+    (runs, reactions, species; zero where none) from ln_ads (runs, sites); SolverFailure on overflow."""
+    with np.errstate(over="ignore"):
+        k_runs = np.exp(np.atleast_2d(np.asarray(ln_k, dtype=float)))
+        inv_eq = np.zeros_like(k_runs)
+        reversible = np.flatnonzero(network.reversible)
+        if reversible.size:
+            inv_eq[:, reversible] = np.exp(-np.atleast_2d(np.asarray(ln_eq, dtype=float)))
+        ads = np.zeros((k_runs.shape[0], len(network.reactions), len(network.species)))
+        if network.adsorption_sites:
+            values = np.exp(np.atleast_2d(np.asarray(ln_ads, dtype=float)))
+            for s, (j, i) in enumerate(network.adsorption_sites):
+                ads[:, j, i] = values[:, s]
+    if not (np.all(np.isfinite(k_runs)) and np.all(np.isfinite(inv_eq)) and np.all(np.isfinite(ads))):
+        raise SolverFailure("a rate, equilibrium or adsorption constant overflows")
+    return k_runs, inv_eq, ads
+
+
 class NetworkSolver:
     """Solves one network for a fixed set of runs and sampling times.
 
     Parameters with sensitivities, in order: ln k of every reaction; ln K of every reversible reaction;
-    each free forward order ``(reaction, species)``; each species whose initial concentration is uncertain.
+    ln K of every adsorption site ``(reaction, species)`` of a saturating law; each free forward order
+    ``(reaction, species)``; each species whose initial concentration is uncertain.
     """
 
     def __init__(
@@ -63,6 +85,10 @@ class NetworkSolver:
         kinds = [kinetics.LN_K] * n_reactions + [kinetics.LN_EQ] * self.reversible_index.size
         reaction = list(range(n_reactions)) + list(self.reversible_index)
         species = [0] * (n_reactions + self.reversible_index.size)
+        for j, i in network.adsorption_sites:
+            kinds.append(kinetics.LN_ADS)
+            reaction.append(j)
+            species.append(i)
         for j, i in self.free_orders:
             kinds.append(kinetics.ORDER)
             reaction.append(j)
@@ -87,20 +113,15 @@ class NetworkSolver:
         net = self.network
         names = [f"ln_k[{r}]" for r in net.reactions]
         names += [f"ln_K[{net.reactions[j]}]" for j in self.reversible_index]
+        names += [f"ln_K_ads[{net.reactions[j]}, {net.species[i]}]" for j, i in net.adsorption_sites]
         names += [f"order[{net.reactions[j]}, {net.species[i]}]" for j, i in self.free_orders]
         names += [f"c0[{net.species[i]}]" for i in self.free_initial]
         return names
 
-    def rate_arrays(self, ln_k: np.ndarray, ln_eq: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """k (runs, reactions) and 1/K (runs, reactions; zero for irreversible steps); SolverFailure on overflow."""
-        with np.errstate(over="ignore"):
-            k_runs = np.exp(np.asarray(ln_k, dtype=float))
-            inv_eq = np.zeros_like(k_runs)
-            if self.reversible_index.size:
-                inv_eq[:, self.reversible_index] = np.exp(-np.asarray(ln_eq, dtype=float))
-        if not (np.all(np.isfinite(k_runs)) and np.all(np.isfinite(inv_eq))):
-            raise SolverFailure("a rate or equilibrium constant overflows")
-        return k_runs, inv_eq
+    def rate_arrays(
+        self, ln_k: np.ndarray, ln_eq: np.ndarray, ln_ads: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        return rate_arrays(self.network, ln_k, ln_eq, ln_ads)
 
     def tolerances(self, initial: np.ndarray) -> tuple[float, float]:
         scale = float(np.max(initial)) if np.max(initial) > 0 else 1.0
@@ -113,14 +134,16 @@ class NetworkSolver:
         forward_orders: np.ndarray,
         initial: np.ndarray,
         *,
+        ln_ads: np.ndarray | None = None,
         sensitivities: bool = True,
     ) -> Solution:
         """Integrate all runs. ``ln_k`` is (runs, reactions); ``ln_eq`` (runs, reversible reactions);
-        ``forward_orders`` (reactions, species); ``initial`` (runs, species). Raises ``SolverFailure``."""
+        ``forward_orders`` (reactions, species); ``initial`` (runs, species); ``ln_ads`` (runs, adsorption
+        sites) for saturating laws. Raises ``SolverFailure``."""
         net = self.network
         n_runs, n_species = initial.shape
         n_params = self.n_params if sensitivities else 0
-        k_runs, inv_eq = self.rate_arrays(ln_k, ln_eq)
+        k_runs, inv_eq, ads = self.rate_arrays(ln_k, ln_eq, ln_ads)
         kinds = self.kinds if sensitivities else self.kinds[:0]
         orders = np.ascontiguousarray(forward_orders, dtype=float)
         rtol, atol = self.tolerances(initial)
@@ -133,7 +156,16 @@ class NetworkSolver:
             status = integrate_run(
                 np.ascontiguousarray(initial[r], dtype=float),
                 times,
-                (k_runs[r], inv_eq[r], net.stoichiometry, orders, net.reverse_orders, net.reversible),
+                (
+                    k_runs[r],
+                    inv_eq[r],
+                    net.stoichiometry,
+                    orders,
+                    net.reverse_orders,
+                    net.reversible,
+                    ads[r],
+                    net.inhibition,
+                ),
                 (kinds, self.param_reaction[:n_params], self.param_species[:n_params]),
                 rtol,
                 atol,
@@ -175,12 +207,17 @@ class MeasurementSolver:
         self.n_inputs = n_inputs
 
     def solve(
-        self, ln_k: np.ndarray, ln_eq: np.ndarray, forward_orders: np.ndarray, initial: np.ndarray
+        self,
+        ln_k: np.ndarray,
+        ln_eq: np.ndarray,
+        forward_orders: np.ndarray,
+        initial: np.ndarray,
+        ln_ads: np.ndarray | None = None,
     ) -> tuple[np.ndarray, np.ndarray]:
         """(prediction (M,), jacobian (M, inputs)); raises ``SolverFailure``."""
         solver = self.solver
         net = solver.network
-        k_runs, inv_eq = solver.rate_arrays(ln_k, ln_eq)
+        k_runs, inv_eq, ads = solver.rate_arrays(ln_k, ln_eq, ln_ads)
         rtol, atol = solver.tolerances(initial)
         prediction = np.empty(self.run_index.size)
         jacobian = np.empty((self.run_index.size, self.n_inputs))
@@ -191,10 +228,12 @@ class MeasurementSolver:
             self.time_offsets,
             k_runs,
             inv_eq,
+            ads,
             net.stoichiometry,
             np.ascontiguousarray(forward_orders, dtype=float),
             net.reverse_orders,
             net.reversible,
+            net.inhibition,
             (solver.kinds, solver.param_reaction, solver.param_species),
             rtol,
             atol,

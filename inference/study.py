@@ -54,8 +54,28 @@ class FittedOrder:
 
 
 @dataclass(frozen=True)
+class AdsorptionSite:
+    """An adsorption constant of a saturating law, van 't Hoff about T_ref.
+
+    ln K_ref ~ Normal(ln_ref_mean, ln_ref_sd), K in 1/concentration; dH ~ Normal(dh_mean, dh_sd), J/mol.
+    """
+
+    species: str
+    ln_ref_mean: float
+    ln_ref_sd: float
+    dh_mean: float
+    dh_sd: float
+
+
+@dataclass(frozen=True)
 class ReactionSpec:
-    """One reaction of the study; ``k_unit`` is the unit of its k_ref and A."""
+    """One reaction of the study; ``k_unit`` is the unit of its k_ref and A.
+
+    ``temperature_exponent`` is n of (T/T_ref)^n (its prior mean when fitted); ``exponent_sd`` its prior sd,
+    or None when n is fixed. ``inhibition_exponent`` is the power of a saturating law's denominator (0: none)
+    and ``adsorption`` its adsorption constants. ``molecularity`` is the overall forward order when it is a
+    fixed number (None for fitted orders).
+    """
 
     name: str
     equation: str | None
@@ -65,6 +85,29 @@ class ReactionSpec:
     equilibrium: EquilibriumPrior | None = None
     eq_unit: str = ""
     fitted_orders: tuple[FittedOrder, ...] = ()
+    temperature_exponent: float = 0.0
+    exponent_sd: float | None = None
+    inhibition_exponent: float = 0.0
+    adsorption: tuple[AdsorptionSite, ...] = ()
+    molecularity: float | None = None
+
+
+@dataclass(frozen=True)
+class RunVariabilitySpec:
+    """Between-run scatter of ln k: tau ~ half-normal(scale) for each reaction in ``reactions`` (indices),
+    groups from the runs-file column ``by`` (None: each run its own group)."""
+
+    reactions: tuple[int, ...]
+    scale: float
+    by: str | None
+
+
+@dataclass(frozen=True)
+class TransitionStateSpec:
+    """Settings of the Eyring analysis: ``phase`` and the standard concentration in mol/m^3 (SI)."""
+
+    phase: str
+    standard_concentration_si: float
 
 
 @dataclass(frozen=True)
@@ -88,6 +131,9 @@ class Study:
     initial_uncertainty: tuple[tuple[str, float], ...] = ()
     warnings: tuple[str, ...] = ()
     scenarios: tuple[Scenario, ...] = ()
+    run_variability: RunVariabilitySpec | None = None
+    temperature_sd_K: float | None = None
+    transition_state: TransitionStateSpec | None = None
 
     @property
     def reaction_names(self) -> tuple[str, ...]:

@@ -119,3 +119,20 @@ def kelvin_to(values: np.ndarray | float, unit: str) -> np.ndarray:
     """Convert kelvin to a (validated) temperature unit, for reporting in the study's units."""
     ureg = registry()
     return np.asarray(ureg.Quantity(np.asarray(values, dtype=float), ureg.kelvin).to(unit).magnitude)
+
+
+def kelvin_per_degree(unit: str) -> float:
+    """Size of one degree of ``unit`` in kelvin (1 for K and degC, 5/9 for degF and degR): for differences."""
+    ureg = registry()
+    return float(ureg.Quantity(1.0, ureg.Unit(unit)).to(ureg.kelvin).magnitude - ureg.Quantity(0.0, unit).to("K").m)
+
+
+def si_factor(unit: str) -> float:
+    """The number that turns a value in ``unit`` into SI base units (a rate constant into (mol/m^3)^(1-m)/s)."""
+    return float(registry().Quantity(1.0, unit).to_base_units().magnitude)
+
+
+def rate_constant_order(unit: str) -> float:
+    """The overall reaction order m implied by a rate-constant unit, concentration^(1-m)/time."""
+    dims = dict(registry().Unit(unit).dimensionality)
+    return 1.0 - float(dims.get("[substance]", 0))
