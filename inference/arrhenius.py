@@ -25,9 +25,47 @@ def ln_rate_constant(temperature, ln_k_ref, ea, temperature_ref, exponent=0.0):
     return value + exponent * np.log(temperature / temperature_ref)
 
 
-def ln_pre_exponential(ln_k_ref, ea, temperature_ref):
-    """ln A of k = A exp(-Ea/(R T)), from k at T_ref: ln A = ln k_ref + Ea/(R T_ref)."""
-    return ln_k_ref + ea / (R * temperature_ref)
+def ln_pre_exponential(ln_k_ref, ea, temperature_ref, exponent=0.0):
+    """ln A of k = A T^n exp(-Ea/(R T)), from k at T_ref: ln A = ln k_ref + Ea/(R T_ref) - n ln T_ref
+    (A in the rate-constant unit per K^n; n = 0 is the plain law)."""
+    return ln_k_ref + ea / (R * temperature_ref) - exponent * np.log(temperature_ref)
+
+
+#: Boltzmann and Planck constants (CODATA, exact in the 2019 SI), from scipy.constants.
+BOLTZMANN, PLANCK = constants.k, constants.h
+
+
+@dataclass(frozen=True)
+class ActivationParameters:
+    """Eyring's activation enthalpy and Gibbs energy (J/mol) and entropy (J/(mol K)) at one temperature."""
+
+    enthalpy: np.ndarray
+    entropy: np.ndarray
+    gibbs: np.ndarray
+
+
+def eyring_activation(
+    ln_k_si,
+    ea,
+    temperature: float,
+    molecularity: float,
+    phase: str,
+    standard_concentration_si: float,
+    exponent=0.0,
+) -> ActivationParameters:
+    """Transition-state parameters from k and Ea at ``temperature`` (K), with transmission coefficient 1.
+
+    Eyring: k = (k_B T / h) (c°)^(1-m) exp(dS/R) exp(-dH/(R T)), k in SI units ((mol/m^3)^(1-m)/s) and c°
+    in mol/m^3. From the local activation energy Ea_T = Ea + n R T (n: temperature exponent):
+    dH = Ea_T - R T in solution, dH = Ea_T - m R T in the gas phase (m: molecularity); IUPAC Gold Book,
+    "Eyring equation" and "enthalpy of activation" (from memory).
+    """
+    local_ea = ea + exponent * R * temperature
+    enthalpy = local_ea - (1.0 if phase == "solution" else molecularity) * R * temperature
+    ln_frequency = np.log(BOLTZMANN * temperature / PLANCK)
+    ln_standard = (1.0 - molecularity) * np.log(standard_concentration_si)
+    entropy = R * (ln_k_si - ln_standard - ln_frequency) + enthalpy / temperature
+    return ActivationParameters(enthalpy, entropy, enthalpy - temperature * entropy)
 
 
 def auto_reference_temperature(temperature_K: np.ndarray) -> float:

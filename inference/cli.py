@@ -84,6 +84,27 @@ def _parser() -> argparse.ArgumentParser:
     fit.add_argument("study", type=Path)
     fit.add_argument("--out", type=Path, help="results folder (default: results/<study>)")
     fit_options(fit)
+
+    batch = commands.add_parser("batch", help="fit many studies at once on a local Dask cluster or a scheduler")
+    batch.add_argument("studies", type=Path, nargs="+", help="study files")
+    batch.add_argument(
+        "--root",
+        type=Path,
+        default=Path("results"),
+        help="one results folder per study below this (default: %(default)s)",
+    )
+    where = batch.add_mutually_exclusive_group()
+    where.add_argument("--workers", type=int, help="worker processes of the local cluster (default: one per core)")
+    where.add_argument("--scheduler", metavar="ADDRESS", help="a running Dask scheduler, e.g. tcp://head:8786")
+    for name, text in (
+        ("--draws", "draws per chain after tuning"),
+        ("--tune", "tuning steps per chain"),
+        ("--chains", "number of chains"),
+        ("--seed", "the one integer seed of every fit"),
+    ):
+        batch.add_argument(name, type=int, help=text)
+    batch.add_argument("--overwrite", action="store_true", help="refit studies whose results folder does not match")
+    batch.add_argument("--quiet", action="store_true", help="print nothing but errors")
     return parser
 
 
@@ -177,6 +198,29 @@ def _run(args: argparse.Namespace) -> int:
         return ExitCode.DONE
     if args.command == "compare":
         return _compare_and_report(args.candidates, args, args.out, args.root)
+    if args.command == "batch":
+        from .batch import run_batch
+
+        if args.workers is not None and args.workers < 1:
+            raise StudyError("--workers", f"{args.workers} is not a number of workers", "give 1 or more")
+        result = run_batch(
+            args.studies,
+            root=args.root,
+            workers=args.workers,
+            scheduler=args.scheduler,
+            overwrite=args.overwrite,
+            quiet=args.quiet,
+            draws=args.draws,
+            tune=args.tune,
+            chains=args.chains,
+            seed=args.seed,
+        )
+        if not args.quiet:
+            counts = result.table["status"].value_counts()
+            print(
+                ", ".join(f"{count} {status}" for status, count in counts.items()) + f"; table in {result.summary_path}"
+            )
+        return result.exit_code
     if args.command == "demo":
         from . import predictions, reporting
         from .demo import ALTERNATIVE_STUDY_FILE, SCENARIOS_FILE, write_demo

@@ -245,7 +245,7 @@ def _resolve_rate_constant_reactions(file: StudyFile, where: str) -> tuple[React
     if file.species or file.initial_uncertainty or file.formulas:
         key = "species" if file.species else ("initial_uncertainty" if file.initial_uncertainty else "formulas")
         raise StudyError(f"{where}: {key}", "is for concentration data (data.runs), not for rate constants")
-    for extra in ("run_variability", "temperature_uncertainty"):
+    for extra in ("run_variability",):
         if getattr(file, extra) is not None:
             raise StudyError(f"{where}: {extra}", "is for batch runs (data.runs), not for rate constants")
     specs = []

@@ -12,7 +12,8 @@ of about unit scale. Variables in the posterior, with their units:
   at T_ref (K in 1/concentration) and its van 't Hoff enthalpy, J/mol;
 - ``ln_k_spread[varying_reaction]``, ``run_effect[group, varying_reaction]``: between-run sd of ln k and each
   group's shift of ln k (``run_variability`` only; non-centred);
-- ``temperature[run]``: each run's true temperature, K (``temperature_uncertainty`` only);
+- ``temperature[run]`` (``temperature[set_point]`` for rate constants): true temperatures, K
+  (``temperature_uncertainty`` only);
 - ``order[fitted_order]``: fitted reaction orders (power laws only);
 - ``initial[run, uncertain_species]``: initial concentrations given a prior (``initial_uncertainty`` only);
 - ``sigma`` or ``sigma[observed_species]``: noise scale (on the log of values for proportional and robust
@@ -98,11 +99,16 @@ def build_rate_constant_model(study: Study, data: RateConstantData, temperature_
     """k_obs lognormal (or log-Student-t for ``robust`` noise) about k(T), all reactions in one model."""
     coords = {"reaction": list(study.reaction_names), "measurement": np.arange(data.k.size)}
     coords |= _exponent_coords(study)
+    # One true temperature per set point: replicates at one nominal temperature share the thermostat's error,
+    # and a latent temperature per point would let the points fit their own noise away (sigma -> 0).
+    set_points, set_point_index = np.unique(data.temperature_K, return_inverse=True)
+    if study.temperature_sd_K is not None:
+        coords["set_point"] = [f"{t:.6g} K" for t in set_points]
     with pm.Model(coords=coords) as model:
         ln_k_ref, ea = _arrhenius_parameters(study)
         exponents = _temperature_exponents(study)
         idx = data.reaction_index
-        temperature = _true_temperatures(study, data.temperature_K, "measurement")
+        temperature = _true_temperatures(study, set_points, "set_point")[set_point_index]
         exponent = exponents[idx] if not isinstance(exponents, float) else 0.0
         predicted = pt.exp(ln_rate_constant(temperature, ln_k_ref[idx], ea[idx], temperature_ref, exponent))
         sigma = data.ln_k_sd if data.ln_k_sd is not None else pm.HalfNormal("sigma", sigma=study.noise.sigma.scale)

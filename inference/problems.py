@@ -95,7 +95,27 @@ def _prior_lines(study: Study) -> list[str]:
             )
         for fitted in spec.fitted_orders:
             line += f"; order in {fitted.species} ~ uniform({fitted.lower:g}, {fitted.upper:g})"
+        if spec.exponent_sd is not None:
+            line += f"; (T/T_ref)^n with n ~ normal({spec.temperature_exponent:g}, sd {spec.exponent_sd:g})"
+        elif spec.temperature_exponent:
+            line += f"; (T/T_ref)^n with n = {spec.temperature_exponent:g}"
+        for site in spec.adsorption:
+            line += (
+                f"; K_{site.species} ~ lognormal(median {math.exp(site.ln_ref_mean):.4g} per "
+                f"{study.units.concentration}), dH_ads ~ normal({units.joule_per_mol_to(site.dh_mean, energy):.4g}, "
+                f"sd {units.joule_per_mol_to(site.dh_sd, energy):.4g} {energy})"
+            )
+        if spec.inhibition_exponent:
+            line += f"; denominator power {spec.inhibition_exponent:g}"
         lines.append(line)
+    if study.run_variability is not None:
+        spec = study.run_variability
+        lines.append(
+            f"    run-to-run spread of ln k ({', '.join(study.reaction_names[j] for j in spec.reactions)}) ~ "
+            f"half-normal(scale {spec.scale:g}), groups: {'column ' + spec.by if spec.by else 'each run'}"
+        )
+    if study.temperature_sd_K is not None:
+        lines.append(f"    true temperatures ~ normal(stated, sd {study.temperature_sd_K:.3g} K)")
     return lines
 
 
@@ -157,7 +177,8 @@ class RateConstantProblem:
         return None  # no integration in a rate-constant model
 
     def kinetic_var_names(self, idata: az.InferenceData) -> list[str]:
-        return [n for n in ("ln_k_ref", "Ea", "sigma") if n in idata.posterior]
+        names = ("ln_k_ref", "Ea", "temperature_exponent", "sigma")
+        return [n for n in names if n in idata.posterior]
 
     def fit_checks(self, idata: az.InferenceData) -> pd.DataFrame:
         return rate_constant_fit_checks(self.study, self.data, idata)
@@ -289,7 +310,20 @@ class NetworkProblem:
         )
 
     def kinetic_var_names(self, idata: az.InferenceData) -> list[str]:
-        names = ("ln_k_ref", "Ea", "ln_K_ref", "dH", "order", "initial", "sigma")
+        names = (
+            "ln_k_ref",
+            "Ea",
+            "temperature_exponent",
+            "ln_K_ref",
+            "dH",
+            "ln_K_ads_ref",
+            "dH_ads",
+            "order",
+            "initial",
+            "ln_k_spread",
+            "temperature",
+            "sigma",
+        )
         return [n for n in names if n in idata.posterior]
 
     def fit_checks(self, idata: az.InferenceData) -> pd.DataFrame:

@@ -13,9 +13,10 @@ import pandas as pd
 import xarray as xr
 
 from . import units
-from .arrhenius import linearised_fit, ln_pre_exponential, ln_rate_constant, two_point_estimate
+from .arrhenius import eyring_activation, linearised_fit, ln_pre_exponential, ln_rate_constant, two_point_estimate
 from .data import Observations, RateConstantData
-from .study import Study
+from .network import parse_equation
+from .study import ReactionSpec, Study
 
 SUMMARY_COLUMNS = ["parameter", "unit", "mean", "sd", "median", "q05", "q95", "ess_bulk", "ess_tail", "r_hat"]
 
@@ -35,16 +36,28 @@ def derived_quantities(
     """
     energy = study.units.energy
     quantities: dict[str, tuple[str, xr.DataArray]] = {}
-    for spec in study.reactions:
+    for j, spec in enumerate(study.reactions):
         name = spec.name
         ln_k_ref = posterior["ln_k_ref"].sel(reaction=name, drop=True)
         ea = posterior["Ea"].sel(reaction=name, drop=True)
+        exponent = (
+            posterior["temperature_exponent"].sel(reaction=name, drop=True)
+            if "temperature_exponent" in posterior
+            else spec.temperature_exponent
+        )
+        a_unit = spec.k_unit + (f"/K^{spec.temperature_exponent:g}" if spec.exponent_sd is None and exponent else "")
         quantities[f"k_ref[{name}]"] = (spec.k_unit, np.exp(ln_k_ref))
         quantities[f"Ea[{name}]"] = (energy, units.joule_per_mol_to(ea, energy))
-        quantities[f"A[{name}]"] = (spec.k_unit, np.exp(ln_pre_exponential(ln_k_ref, ea, temperature_ref)))
+        if spec.exponent_sd is not None:
+            quantities[f"n[{name}]"] = ("", exponent)
+            a_unit = f"{spec.k_unit}/K^n"
+        quantities[f"A[{name}]"] = (a_unit, np.exp(ln_pre_exponential(ln_k_ref, ea, temperature_ref, exponent)))
         for kelvin in study.k_at_K:
             label = f"k[{name}, {temperature_label(kelvin, study.units.temperature)}]"
-            quantities[label] = (spec.k_unit, np.exp(ln_rate_constant(kelvin, ln_k_ref, ea, temperature_ref)))
+            quantities[label] = (
+                spec.k_unit,
+                np.exp(ln_rate_constant(kelvin, ln_k_ref, ea, temperature_ref, exponent)),
+            )
         if spec.equilibrium is not None:
             quantities[f"K_ref[{name}]"] = (spec.eq_unit, np.exp(posterior["ln_K_ref"].sel(reversible=name, drop=True)))
             quantities[f"dH[{name}]"] = (
@@ -54,6 +67,19 @@ def derived_quantities(
         for fitted in spec.fitted_orders:
             label = f"{name}:{fitted.species}"
             quantities[f"order[{label}]"] = ("", posterior["order"].sel(fitted_order=label, drop=True))
+        quantities |= _saturation_quantities(study, spec, posterior, ln_k_ref)
+        if study.run_variability is not None and j in study.run_variability.reactions:
+            spread = posterior["ln_k_spread"].sel(varying_reaction=name, drop=True)
+            quantities[f"ln_k_spread[{name}]"] = ("log units", spread)
+        if study.transition_state is not None and spec.molecularity is not None:
+            quantities |= _activation_quantities(study, spec, ln_k_ref, ea, exponent, temperature_ref)
+    if "temperature" in posterior:
+        unit = study.units.temperature
+        fitted = posterior["temperature"]
+        dim = fitted.dims[-1]  # "run" for batch runs, "set_point" for rate constants
+        for label in fitted.coords[dim].values:
+            kelvin = fitted.sel({dim: label}, drop=True)
+            quantities[f"temperature[{label}]"] = (unit, kelvin.copy(data=units.kelvin_to(kelvin.values, unit)))
     if "initial" in posterior:
         for run in posterior["initial"].coords["run"].values:
             for species in posterior["initial"].coords["uncertain_species"].values:
@@ -68,6 +94,45 @@ def derived_quantities(
         else:
             quantities["sigma"] = (unit or "", sigma)
     return quantities
+
+
+def _saturation_quantities(study: Study, spec: ReactionSpec, posterior: xr.Dataset, ln_k_ref: xr.DataArray) -> dict:
+    """Adsorption constants at T_ref and their enthalpies; for Michaelis-Menten, K_M and k K_M instead."""
+    out: dict[str, tuple[str, xr.DataArray]] = {}
+    conc, energy = study.units.concentration or "", study.units.energy
+    for site in spec.adsorption:
+        label = f"{spec.name}:{site.species}"
+        ln_ref = posterior["ln_K_ads_ref"].sel(adsorption_site=label, drop=True)
+        dh = posterior["dH_ads"].sel(adsorption_site=label, drop=True)
+        if spec.rate_law == "michaelis_menten":
+            # r = k c_S (...) / (1 + c_S / K_M) = (k K_M) c_S (...) / (K_M + c_S): k K_M is k_cat (per enzyme
+            # concentration when the enzyme is in the equation) or V_max.
+            out[f"K_M[{spec.name}]"] = (conc, np.exp(-ln_ref))
+            out[f"K_M_dH[{spec.name}]"] = (energy, units.joule_per_mol_to(-dh, energy))
+            equation = parse_equation(spec.equation)
+            catalysed = bool({n for n, _ in equation.reactants} & {n for n, _ in equation.products})
+            label = "k_cat" if catalysed else "V_max"
+            unit = f"1/{study.units.time}" if catalysed else f"{conc}/{study.units.time}"
+            out[f"{label}[{spec.name}]"] = (unit, np.exp(ln_k_ref - ln_ref))
+        else:
+            out[f"K_ads_ref[{label}]"] = (f"1/({conc})", np.exp(ln_ref))
+            out[f"dH_ads[{label}]"] = (energy, units.joule_per_mol_to(dh, energy))
+    return out
+
+
+def _activation_quantities(study: Study, spec: ReactionSpec, ln_k_ref, ea, exponent, temperature_ref: float) -> dict:
+    """Eyring's dH, dS and dG of activation at T_ref, with k converted to SI units first."""
+    setting = study.transition_state
+    ln_k_si = ln_k_ref + np.log(units.si_factor(spec.k_unit))
+    values = eyring_activation(
+        ln_k_si, ea, temperature_ref, spec.molecularity, setting.phase, setting.standard_concentration_si, exponent
+    )
+    energy = study.units.energy
+    return {
+        f"dH_activation[{spec.name}]": (energy, units.joule_per_mol_to(values.enthalpy, energy)),
+        f"dS_activation[{spec.name}]": ("J/(mol*K)", values.entropy),
+        f"dG_activation[{spec.name}]": (energy, units.joule_per_mol_to(values.gibbs, energy)),
+    }
 
 
 def extrapolation_notes(study: Study, measured_K: np.ndarray) -> list[str]:
