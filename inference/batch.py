@@ -106,8 +106,13 @@ class Executor:
             self.workers = max(1, len(self.client.scheduler_info().get("workers", {})))
             return
         self.workers = workers or os.cpu_count() or 1
-        # Non-daemonic workers may start processes of their own: chains run in parallel there when cores allow.
-        with dask.config.set({"distributed.worker.daemon": False}):
+        settings = {
+            # Non-daemonic workers may start processes of their own: chains run in parallel when cores allow.
+            "distributed.worker.daemon": False,
+            # The worker's statistical profiler takes the GIL every few ms from the sampler's Python loop.
+            "distributed.worker.profile.enabled": False,
+        }
+        with dask.config.set(settings):
             self.cluster = LocalCluster(
                 n_workers=self.workers,
                 threads_per_worker=1,

@@ -70,6 +70,7 @@ def _parser() -> argparse.ArgumentParser:
         default=Path("results"),
         help="where candidate study files are fitted, one folder each (default: %(default)s)",
     )
+    compare.add_argument("--workers", type=int, help="fit the candidates side by side on this many Dask workers")
     fit_options(compare)
 
     predict = commands.add_parser("predict", help="reactor predictions from a saved posterior (no refit)")
@@ -136,7 +137,8 @@ def _fit_and_report(study_path: Path, args: argparse.Namespace, out: Path | None
 def _compare_and_report(candidates: list[Path], args: argparse.Namespace, out: Path | None, root: Path) -> int:
     from . import pipeline, reporting
 
-    result = pipeline.compare_studies(candidates, out=out, root=root, **_run_options(args))
+    workers = getattr(args, "workers", None)
+    result = pipeline.compare_studies(candidates, out=out, root=root, workers=workers, **_run_options(args))
     if not args.quiet:
         print(reporting.comparison_report(result))
     trusted = all(verdict == "pass" for verdict in result.verdicts.values())

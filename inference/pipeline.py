@@ -348,6 +348,11 @@ class ComparisonResult:
     verdicts: dict[str, str]
 
 
+def _fit_overrides(sampling: dict) -> dict:
+    """The batch's share of the sampling overrides (a batch chooses cores itself)."""
+    return {k: v for k, v in sampling.items() if k != "cores" and v is not None}
+
+
 def _candidate(
     source: Path, root: Path, overwrite: bool, quiet: bool, sampling: dict, steps: Steps
 ) -> tuple[str, dict, az.InferenceData, Path]:
@@ -387,12 +392,14 @@ def compare_studies(
     chains: int | None = None,
     seed: int | None = None,
     cores: int | None = None,
+    workers: int | None = None,
     command_line: str | None = None,
 ) -> ComparisonResult:
     """Compare two or more candidate studies (files or saved results folders) that share the same data.
 
-    Study files are fitted into ``root/<study>/`` (a matching earlier fit there is reused); the comparison is
-    written to ``out`` (default ``root/comparison``). Raises ``StudyError`` when candidates' data differ.
+    Study files are fitted into ``root/<study>/`` (a matching earlier fit there is reused), side by side on a
+    local Dask cluster with ``workers`` > 1; the comparison is written to ``out`` (default
+    ``root/comparison``). Raises ``StudyError`` when candidates' data differ.
     """
     from . import comparison
 
@@ -402,6 +409,19 @@ def compare_studies(
     sampling = {"draws": draws, "tune": tune, "chains": chains, "seed": seed, "cores": cores}
     target = Path(out) if out is not None else Path(root) / "comparison"
     check_target(target, overwrite)
+    if workers is not None and workers > 1:
+        from .batch import run_batch
+
+        files = [Path(s) for s in sources if not Path(s).is_dir()]
+        steps.say(f"fitting {len(files)} candidate(s) on a local Dask cluster of {workers} workers")
+        batch = run_batch(
+            files, root=root, workers=workers, overwrite=overwrite, quiet=quiet, **_fit_overrides(sampling)
+        )
+        failed = batch.table[~batch.table["status"].isin(["fitted", "up to date", "not converged"])]
+        if not failed.empty:
+            row = failed.iloc[0]
+            raise StudyError(str(row["study"]), f"could not be fitted: {row['message']}")
+        sampling = dict.fromkeys(sampling)  # the fits just made are the ones asked for: reuse them
     loaded = [_candidate(Path(s), Path(root), overwrite, quiet, sampling, steps) for s in sources]
     names = [name for name, *_ in loaded]
     if len(set(names)) != len(names):

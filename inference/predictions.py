@@ -230,6 +230,11 @@ class _Predictor:
         self.draws = draws
         self.measured = measured_K
         self.notes: list[str] = []
+        if study.run_variability is not None:
+            self.notes.append(
+                "Predictions are for a new run: each draw adds a between-run shift of ln k drawn with the fitted "
+                "spread (run_variability), so intervals include run-to-run scatter."
+            )
         #: The unit temperatures are quoted in (the scenarios file's).
         self.display_temperature = study.units.temperature
 
@@ -384,6 +389,12 @@ class _Predictor:
         study, name = self.study, scenario.name
         study_time = study.units.time
         out = []
+        if conversion is not None:
+            # The plain answer first: how far the key reactant got by the end of each case.
+            label = axis_name.replace("_", " ")
+            ends = [(i, f"at {label} {float(a):g} {study_time}") for i, a in enumerate(axis)]
+            for index, where_at in ends if scenario.reactor == "cstr" else ends[-1:]:
+                out.append(_scalar(name, f"conversion of {scenario.key_reactant} {where_at}", "", conversion[:, index]))
         if scenario.target_conversion is not None and conversion is not None:
             target = scenario.target_conversion
             if scenario.reactor == "cstr":

@@ -90,3 +90,15 @@ def test_an_unreachable_scheduler_is_a_one_line_error(tmp_path, capsys):
     code = main(["batch", str(study), "--root", str(tmp_path / "r"), "--scheduler", "tcp://127.0.0.1:9", "--quiet"])
     assert code == ExitCode.BAD_INPUT
     assert "cannot reach the Dask scheduler" in capsys.readouterr().err
+
+
+def test_compare_fits_its_candidates_as_a_batch(tmp_path):
+    from inference import compare_studies
+
+    first = write(tmp_path, "lot-a", 3)
+    (tmp_path / "wide.yaml").write_text(
+        first.read_text().replace("study: lot-a", "study: lot-a-wide").replace("sd: 40", "sd: 80")
+    )
+    result = compare_studies([first, tmp_path / "wide.yaml"], root=tmp_path / "r", workers=2, quiet=True)
+    assert set(result.table["candidate"]) == {"lot-a", "lot-a-wide"}
+    assert (tmp_path / "r" / "batch_summary.csv").exists()
