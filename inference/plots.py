@@ -260,6 +260,36 @@ def prior_posterior_plot(study: Study, posterior: xr.Dataset, path: Path) -> Non
     plt.close(fig)
 
 
+def rank_histograms(result, path: Path) -> None:
+    """Rank histograms of a calibration, one panel per quantity, with the band that holds 99 % of bin counts
+    when ranks are uniform (binomial; the display of Talts et al. 2018)."""
+    from scipy import stats
+
+    from .calibration import rank_bins
+
+    quantities = result.quantities
+    columns = min(4, len(quantities))
+    rows = -(-len(quantities) // columns)
+    figure, axes = plt.subplots(rows, columns, figsize=(3.2 * columns, 2.6 * rows), squeeze=False)
+    count = len(result.ranks)
+    bins = rank_bins(count, result.ranked_draws)
+    low, high = stats.binom.ppf([0.005, 0.995], count, 1.0 / bins)
+    edges = np.linspace(0, result.ranked_draws + 1, bins + 1)
+    for axis, quantity in zip(axes.ravel(), quantities, strict=False):
+        axis.axhspan(low, high, color="0.85", zorder=0)
+        axis.axhline(count / bins, color="0.5", lw=0.8)
+        axis.hist(result.ranks[f"rank:{quantity}"], bins=edges, color="#4477aa", edgecolor="white")
+        axis.set_title(quantity, fontsize=8)
+        axis.set_xlabel("rank of the true value", fontsize=7)
+        axis.tick_params(labelsize=7)
+    for axis in axes.ravel()[len(quantities) :]:
+        axis.set_visible(False)
+    figure.suptitle(f"simulation-based calibration: {count} simulations, L = {result.ranked_draws}", fontsize=9)
+    figure.tight_layout()
+    figure.savefig(path, dpi=110)
+    plt.close(figure)
+
+
 def caption(name: str) -> str:
     """The caption of a figure file we write."""
     if name == "arrhenius.png":

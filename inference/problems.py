@@ -9,7 +9,7 @@ the ``StagedFolder`` it is handed.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Protocol
 
@@ -66,6 +66,8 @@ class Problem(Protocol):
     def figures(
         self, folder: StagedFolder, idata: az.InferenceData, temperature_ref: float, fit_checks: pd.DataFrame
     ) -> None: ...
+
+    def with_measurements(self, values: np.ndarray) -> Problem: ...
 
 
 def open_problem(study: Study) -> Problem:
@@ -192,6 +194,10 @@ class RateConstantProblem:
 
     def extra_tables(self) -> dict[str, pd.DataFrame]:
         return {"classical.csv": classical_table(self.study, self.data)}
+
+    def with_measurements(self, values: np.ndarray) -> RateConstantProblem:
+        """The same design with other measured rate constants (simulated data, for calibration)."""
+        return replace(self, data=replace(self.data, k=np.asarray(values, dtype=float)))
 
     def figures(
         self, folder: StagedFolder, idata: az.InferenceData, temperature_ref: float, fit_checks: pd.DataFrame
@@ -335,6 +341,10 @@ class NetworkProblem:
 
     def extra_tables(self) -> dict[str, pd.DataFrame]:
         return {}
+
+    def with_measurements(self, values: np.ndarray) -> NetworkProblem:
+        """The same runs and sampling times with other measured values (simulated data, for calibration)."""
+        return replace(self, obs=replace(self.obs, value=np.asarray(values, dtype=float)))
 
     def profiles(
         self, posterior: xr.Dataset, temperature_ref: float, times: list[np.ndarray], n_draws: int = PROFILE_DRAWS

@@ -115,9 +115,15 @@ def non_finite_start(model: pm.Model) -> tuple[list[str], np.ndarray]:
 
 
 def sample_posterior(
-    model: pm.Model, settings: Sampling, *, progress: bool, failure_log: Path | None = None
+    model: pm.Model,
+    settings: Sampling,
+    *,
+    progress: bool,
+    failure_log: Path | None = None,
+    predictive: bool = True,
 ) -> tuple[az.InferenceData, int]:
-    """Run NUTS and add the pointwise log-likelihood and the posterior predictive of the observations.
+    """Run NUTS and add the pointwise log-likelihood and (unless ``predictive`` is False) the posterior
+    predictive of the observations.
 
     Chains get seeds derived by PyMC from ``settings.seed``; the predictive draws use ``seed + 1``, so one
     integer fixes every number. Returns the InferenceData and the number of failed integrations during
@@ -148,7 +154,8 @@ def sample_posterior(
             # PyMC answers Ctrl-C by returning the draws made so far; a partial posterior is never a result.
             raise KeyboardInterrupt("sampling was interrupted")
         failures = len(failure_log.read_text().splitlines()) if failure_log is not None else 0
-        pm.sample_posterior_predictive(
-            idata, extend_inferencedata=True, random_seed=settings.seed + 1, progressbar=False
-        )
+        if predictive:
+            pm.sample_posterior_predictive(
+                idata, extend_inferencedata=True, random_seed=settings.seed + 1, progressbar=False
+            )
     return idata, failures

@@ -1,0 +1,61 @@
+"""Simulation-based calibration: the rank statistics against an exact conjugate case, then a small real run."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from inference.calibration import CalibrationSettings, calibrate, rank_bins, uniformity_tests, write_calibration
+
+
+def conjugate_ranks(posterior_sd_scale: float, simulations: int = 400, ranked: int = 99, seed: int = 7) -> np.ndarray:
+    # theta ~ N(0, 1), y | theta ~ N(theta, 1): the exact posterior is N(y/2, 1/2) (normal-normal conjugacy;
+    # Gelman et al., Bayesian Data Analysis, 3rd ed., sec. 2.5). Scaling its sd mimics a wrong posterior.
+    rng = np.random.default_rng(seed)
+    theta = rng.standard_normal(simulations)
+    y = theta + rng.standard_normal(simulations)
+    draws = y[:, None] / 2 + posterior_sd_scale * np.sqrt(0.5) * rng.standard_normal((simulations, ranked))
+    return np.sum(draws < theta[:, None], axis=1)
+
+
+def test_rank_tests_accept_the_exact_posterior_and_reject_wrong_ones():
+    # Exact posterior: ranks uniform (Talts et al. 2018, Theorem 1), so neither test should reject at 0.1 %.
+    calibrated = uniformity_tests(conjugate_ranks(1.0), 99)
+    assert calibrated["chi2_p"] > 1e-3 and calibrated["ks_p"] > 1e-3
+    # Too narrow (U-shaped histogram) and too wide (a hump): both clearly non-uniform (Talts et al. 2018, sec. 4).
+    for scale in (0.5, 2.0):
+        wrong = uniformity_tests(conjugate_ranks(scale), 99)
+        assert wrong["chi2_p"] < 1e-6 and wrong["ks_p"] < 1e-6, scale
+
+
+def test_rank_bins_divide_the_ranks_evenly():
+    assert rank_bins(400, 99) == 20 and rank_bins(40, 99) == 5 and rank_bins(6, 99) == 2
+
+
+def test_calibration_of_the_rate_constant_model(tmp_path):
+    # A small real SBC of the rate-constant demo's design and priors: 40 simulated datasets, each fitted with
+    # 2 chains x 150 draws. A failure here means a posterior that is clearly off, not a 1-in-20 fluke: each
+    # test rejects at p < 0.001, and coverage must lie within 3.5 binomial standard errors of its level.
+    settings = CalibrationSettings(simulations=40, draws=150, tune=200, chains=2, ranked_draws=99, seed=3)
+    result = calibrate("data_demo/rate_constants.yaml", settings, workers=2)
+    assert set(result.quantities) == {"ln_k_ref[closure]", "Ea[closure]", "sigma", "log_likelihood"}
+    assert len(result.ranks) == 40
+    assert (result.uniformity["chi2_p"] > 1e-3).all(), result.uniformity
+    assert (result.uniformity["ks_p"] > 1e-3).all(), result.uniformity
+    assert (result.coverage["z"].abs() < 3.5).all(), result.coverage
+    folder = write_calibration(result, tmp_path / "sbc")
+    for name in ("ranks.csv", "uniformity.csv", "coverage.csv", "figures/ranks.png"):
+        assert (folder / name).is_file(), name
+    assert pd.read_csv(folder / "coverage.csv").shape[0] == 2 * len(result.quantities)
+
+
+@pytest.mark.parametrize("level", [50, 90])
+def test_coverage_uses_the_binomial_standard_error(level):
+    from inference.calibration import summarise
+
+    ranks = pd.DataFrame({"simulation": range(100), "rank:x": np.arange(100) % 100, f"in{level}:x": [True] * 100})
+    ranks[f"in{140 - level}:x"] = True
+    row = summarise(ranks, 99).coverage.set_index("level").loc[level]
+    # se of a share under Binomial(n, p): sqrt(p (1 - p) / n) (common practice).
+    assert row["binomial_se"] == pytest.approx(np.sqrt(level / 100 * (1 - level / 100) / 100))
