@@ -23,7 +23,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from inference.calibration import CalibrationSettings, calibrate, write_calibration  # noqa: E402
+from inference.calibration import CalibrationSettings, calibrate, write_calibration
 
 
 def main() -> None:
