@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import difflib
 import math
+import re
 from pathlib import Path
 from typing import Any, get_args
 
@@ -45,6 +46,15 @@ class _NoAliasLoader(yaml.SafeLoader):
                 None, None, "anchors and aliases (&name, *name) are not allowed in a study file", event.start_mark
             )
         return super().compose_node(parent, index)
+
+
+# PyYAML follows YAML 1.1, which reads 1e6 and 2.5e-3 without a dot or an exponent sign as strings; YAML 1.2
+# (and every user) reads them as numbers. This resolver adds the 1.2 float forms to our loader only.
+_NoAliasLoader.add_implicit_resolver(
+    "tag:yaml.org,2002:float",
+    re.compile(r"^[-+]?(?:[0-9][0-9_]*)(?:\.[0-9_]*)?[eE][-+]?[0-9]+$"),
+    list("-+0123456789"),
+)
 
 
 def read_yaml(path: Path) -> Any:
