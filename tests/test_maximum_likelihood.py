@@ -149,7 +149,7 @@ def test_network_mode_matches_least_squares_with_scipy_lsoda(tmp_path):
 
     ours = [mode["ln_k_ref"][0], mode["Ea"][0] / 1000, mode["ln_k_ref"][1], mode["Ea"][1] / 1000]
     # Started well away from our mode (many posterior sd), so agreement is not inherited from the start.
-    start = np.array(ours) + [0.3, 8.0, -0.3, -8.0]
+    start = np.array(ours) + np.array([0.3, 8.0, -0.3, -8.0])
     fit = least_squares(residuals, x0=start, xtol=1e-12, ftol=1e-12, x_scale=[0.1, 1.0, 0.1, 1.0])
     sd = gauss_newton_sd(fit)
     # Within 5 % of a posterior sd: the two solvers differ by their tolerances (Arrhenia's rtol is 1e-6).
