@@ -1,7 +1,9 @@
 """Regenerate the demo data in this folder: ``python data_demo/generate.py``.
 
-The scenario, its true parameters and its seed are stated in ``inference/demo.py`` (seed 20261201; true
-Ea = 78 kJ/mol, k(65 degC) = 0.012 1/min, 8 % lognormal scatter). ``arrhenia demo`` writes the same files.
+The invented scenarios, their true parameters and seeds are stated in ``inference/demo.py``: the network
+A + B -> C, C -> D (seed 20261202), the ring-closure rate constants (seed 20261201; true Ea = 78 kJ/mol,
+k(65 degC) = 0.012 1/min) and the saturating conversion on three catalyst lots (seed 20261203).
+``arrhenia demo`` writes the same files.
 """
 
 from pathlib import Path
@@ -10,4 +12,4 @@ from inference.demo import write_demo
 
 if __name__ == "__main__":
     study = write_demo(Path(__file__).resolve().parent)
-    print(f"wrote {study} and its data")
+    print(f"wrote {study} and the other demo studies with their data")

@@ -480,7 +480,9 @@ def _run_variability(file: StudyFile, where: str) -> RunVariabilitySpec | None:
             raise StudyError(f"{where}: run_variability.reactions[{position}]", f"no reaction is named '{name}'", hint)
     if len(set(chosen)) != len(chosen) or not chosen:
         raise StudyError(f"{where}: run_variability.reactions", "list each reaction once, at least one")
-    return RunVariabilitySpec(tuple(names.index(name) for name in chosen), given.sd.scale, given.by)
+    return RunVariabilitySpec(
+        tuple(names.index(name) for name in chosen), given.sd.scale, given.by, given.parameterisation == "centred"
+    )
 
 
 def _transition_state(file: StudyFile, reactions: tuple[ReactionSpec, ...], where: str) -> TransitionStateSpec | None:

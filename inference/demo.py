@@ -9,6 +9,10 @@ rtol 1e-10), independently of Arrhenia's own solver.
 Rate-constant scenario (invented): the first-order ring closure of a substrate "Z-17", k measured in
 triplicate at six temperatures from 40 to 90 degC with 8 % lognormal scatter.
 
+Catalyst scenario (invented): a reactant A converts to P on a supported catalyst, r = k c_A / (1 + K_A c_A)
+(Langmuir-Hinshelwood with A adsorbed), three catalyst lots whose activity differs (ln k shifted per lot by
+tau z, tau = 0.25), runs at 50 and 70 degC from 0.5 and 2.0 mol/L; A and P sampled with 3 % lognormal error.
+
 ``data_demo/generate.py`` calls ``write_demo`` to regenerate the committed copy in ``data_demo/``;
 ``arrhenia demo`` calls it to write the same files wherever the user asks.
 """
@@ -46,6 +50,12 @@ RELATIVE_NOISE = 0.08
 TEMPERATURES_DEGC = (40.0, 50.0, 60.0, 70.0, 80.0, 90.0)
 REPLICATES = 3
 
+CATALYST_SEED = 20261203
+TRUE_CATALYST = {"k_ref": 0.06, "Ea": 70_000.0, "K_ref": 1.5, "dH_ads": -25_000.0, "tau": 0.25}  # at 60 degC
+CATALYST_LOTS = ("lot-A", "lot-B", "lot-C")
+CATALYST_CONDITIONS = ((50.0, 0.5), (50.0, 2.0), (70.0, 0.5), (70.0, 2.0))  # degC, A0 in mol/L
+CATALYST_NOISE = 0.03
+
 STUDY_FILE = "study.yaml"
 RUNS_FILE = "runs.csv"
 MEASUREMENTS_FILE = "measurements.csv"
@@ -53,6 +63,34 @@ ALTERNATIVE_STUDY_FILE = "study_first_order.yaml"
 SCENARIOS_FILE = "scenarios.yaml"
 RATE_STUDY_FILE = "rate_constants.yaml"
 RATE_CONSTANTS_FILE = "rate_constants.csv"
+CATALYST_STUDY_FILE = "catalyst_study.yaml"
+CATALYST_RUNS_FILE = "catalyst_runs.csv"
+CATALYST_MEASUREMENTS_FILE = "catalyst_measurements.csv"
+
+CATALYST_STUDY_TEXT = """\
+# Demo study of Arrhenia: an invented catalytic conversion A -> P, saturating in A, on three catalyst lots.
+# Data simulated by inference/demo.py (seed 20261203). True values at 60 degC: k = 0.06 1/min, Ea = 70 kJ/mol,
+# K_A = 1.5 L/mol with adsorption enthalpy -25 kJ/mol, lot-to-lot sd of ln k 0.25.
+study: demo-catalyst-lots
+title: Saturating conversion of A on three catalyst lots (invented demo data)
+units: {time: min, temperature: degC, concentration: mol/L, energy: kJ/mol}
+data:
+  runs: catalyst_runs.csv                  # run, temperature, initial A and P, catalyst lot
+  measurements: catalyst_measurements.csv  # wide layout: run, time, A, P
+species: [A, P]
+reactions:
+  - name: conversion
+    equation: A -> P
+    rate_law: saturating                   # r = k c_A / (1 + K_A c_A)
+    adsorption:
+      A: {K_ref: {median: 1.0, factor: 10}, dH: {mean: -20, sd: 20}}   # L/mol at T_ref; kJ/mol
+    k_ref: {median: 0.05, factor: 10}      # 1/min at T_ref
+    Ea: {mean: 70, sd: 30}                 # kJ/mol
+run_variability: {sd: {scale: 0.5}, by: lot, parameterisation: centred}  # ln k varies by lot
+reference_temperature: 60                  # degC
+noise: {model: proportional, sigma: {scale: 0.2}}
+sampling: {draws: 500, tune: 500, chains: 4, seed: 1, target_accept: 0.95}
+"""
 
 STUDY_TEXT = """\
 # Demo study of Arrhenia: an invented coupling A + B -> C with consecutive degradation C -> D.
@@ -217,8 +255,41 @@ def simulate_network(seed: int = NETWORK_SEED) -> tuple[list[str], list[str]]:
     return runs, measurements
 
 
+def simulate_catalyst(seed: int = CATALYST_SEED) -> tuple[list[str], list[str]]:
+    """Lines of catalyst_runs.csv and catalyst_measurements.csv, from the true values and the seed."""
+    rng = np.random.default_rng(seed)
+    true = TRUE_CATALYST
+    shifts = true["tau"] * rng.standard_normal(len(CATALYST_LOTS))
+    runs = ["run,temperature,A,P,lot"]
+    measurements = ["run,time,A,P"]
+    for lot, shift in zip(CATALYST_LOTS, shifts, strict=True):
+        for celsius, a0 in CATALYST_CONDITIONS:
+            kelvin = celsius + 273.15
+            k = float(np.exp(ln_rate_constant(kelvin, np.log(true["k_ref"]), true["Ea"], T_REF_K) + shift))
+            big_k = float(np.exp(ln_rate_constant(kelvin, np.log(true["K_ref"]), true["dH_ads"], T_REF_K)))
+            run = f"{lot}-{celsius:g}C-{a0:g}M"
+            runs.append(f"{run},{celsius:g},{a0:g},0,{lot}")
+            # Sampled until 80 % of A is gone, from the integrated law t = (ln(c0/c) + K (c0 - c)) / k.
+            horizon = (np.log(5.0) + big_k * 0.8 * a0) / k
+            times = np.round(horizon * np.geomspace(0.05, 1.0, 8), 2)
+            solution = solve_ivp(
+                lambda t, c, k=k, big_k=big_k: [-k * c[0] / (1 + big_k * c[0]), k * c[0] / (1 + big_k * c[0])],
+                (0.0, float(times[-1])),
+                [a0, 0.0],
+                t_eval=times,
+                method="Radau",
+                rtol=1e-10,
+                atol=1e-13,
+            )
+            for t, (a, p) in zip(times, solution.y.T, strict=True):
+                noisy = np.array([a, p]) * np.exp(CATALYST_NOISE * rng.standard_normal(2))
+                measurements.append(f"{run},{t:g}," + ",".join(f"{v:.5g}" for v in noisy))
+    return runs, measurements
+
+
 def write_demo(folder: Path) -> Path:
-    """Write the demo studies (network, its competing candidate, rate constants) and their data into ``folder``;
+    """Write the demo studies (network, its competing candidate, rate constants, catalyst lots) and their data
+    into ``folder``;
     returns the network study's path."""
     folder.mkdir(parents=True, exist_ok=True)
     runs, measurements = simulate_network()
@@ -230,4 +301,8 @@ def write_demo(folder: Path) -> Path:
     lines = ["temperature,k"] + [f"{t:g},{k:.6g}" for t, k in simulate_rate_constants()]
     (folder / RATE_CONSTANTS_FILE).write_text("\n".join(lines) + "\n")
     (folder / RATE_STUDY_FILE).write_text(RATE_STUDY_TEXT)
+    catalyst_runs, catalyst_measurements = simulate_catalyst()
+    (folder / CATALYST_RUNS_FILE).write_text("\n".join(catalyst_runs) + "\n")
+    (folder / CATALYST_MEASUREMENTS_FILE).write_text("\n".join(catalyst_measurements) + "\n")
+    (folder / CATALYST_STUDY_FILE).write_text(CATALYST_STUDY_TEXT)
     return folder / STUDY_FILE

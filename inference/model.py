@@ -168,14 +168,18 @@ def _adsorption_parameters(study: Study):
 
 
 def _run_effects(study: Study, obs: Observations, ln_k):
-    """ln k plus each group's non-centred shift tau_j z_gj for the reactions that vary from run to run."""
+    """ln k plus each group's shift for the reactions that vary from run to run: tau_j z_gj (non-centred) or
+    drawn from N(0, tau_j) directly (centred)."""
     spec = study.run_variability
     if spec is None:
         return ln_k
     varying = list(spec.reactions)
     spread = pm.HalfNormal("ln_k_spread", sigma=spec.scale, dims="varying_reaction")
-    z = pm.Normal("z_run_effect", 0.0, 1.0, dims=("group", "varying_reaction"))
-    effect = pm.Deterministic("run_effect", spread * z, dims=("group", "varying_reaction"))
+    if spec.centred:  # data-rich groups: the shifts themselves decorrelate from the spread
+        effect = pm.Normal("run_effect", 0.0, spread, dims=("group", "varying_reaction"))
+    else:
+        z = pm.Normal("z_run_effect", 0.0, 1.0, dims=("group", "varying_reaction"))
+        effect = pm.Deterministic("run_effect", spread * z, dims=("group", "varying_reaction"))
     return pt.inc_subtensor(ln_k[:, varying], effect[obs.group_index])
 
 

@@ -254,11 +254,14 @@ class Scenario(Strict):
 class RunVariability(Strict):
     """Run-to-run scatter of ln k beyond measurement error: ln k of each listed reaction in group g is shifted
     by tau * z_g, z_g ~ N(0, 1), tau ~ half-normal(``sd.scale``). ``by`` names a column of the runs file
-    (day, catalyst lot); without it every run is its own group. ``reactions`` defaults to all."""
+    (day, catalyst lot); without it every run is its own group. ``reactions`` defaults to all.
+    ``parameterisation``: ``non_centred`` (default; best when each group has little data) samples z_g,
+    ``centred`` samples the shifts themselves (better when every group has many runs or measurements)."""
 
     sd: HalfNormalPrior = HalfNormalPrior(scale=0.3)
     by: Annotated[str, Field(pattern=NAME_PATTERN, max_length=64)] | None = None
     reactions: tuple[Name, ...] | None = None
+    parameterisation: Literal["non_centred", "centred"] = "non_centred"
 
 
 class TransitionState(Strict):

@@ -100,6 +100,7 @@ class RunVariabilitySpec:
     reactions: tuple[int, ...]
     scale: float
     by: str | None
+    centred: bool = False
 
 
 @dataclass(frozen=True)

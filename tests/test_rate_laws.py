@@ -135,11 +135,13 @@ reference_temperature: 330 K
 """
 
 
-def test_model_with_every_new_term_has_an_exact_gradient(tmp_path):
+@pytest.mark.parametrize("parameterisation", ["non_centred", "centred"])
+def test_model_with_every_new_term_has_an_exact_gradient(tmp_path, parameterisation):
     # The log density's gradient (PyTensor graph + the compiled sensitivities) against central differences.
     runs = "run,temperature,A,B,C,lot\nr1,50,1.0,1.2,0,L1\nr2,70,0.8,1.0,0,L2\nr3,60,1.0,1.0,0,L1\n"
     meas = "run,time,A,C\nr1,2,0.85,0.14\nr1,6,0.6,0.38\nr2,1,0.6,0.2\nr2,4,0.3,0.5\nr3,3,0.6,0.4\n"
-    problem = open_problem(load_study(write_study(tmp_path, EVERYTHING, runs, meas)))
+    body = EVERYTHING.replace("by: lot}", f"by: lot, parameterisation: {parameterisation}}}")
+    problem = open_problem(load_study(write_study(tmp_path, body, runs, meas)))
     model = problem.build_model(T_REF)
     assert {"ln_K_ads_ref", "temperature_exponent", "ln_k_spread", "run_effect", "temperature"} <= set(model.named_vars)
     _gradient_check(model)
