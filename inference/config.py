@@ -16,7 +16,7 @@ from .errors import StudyError
 from .network import Equation, EquationError, Network, build_network, element_counts, imbalance, parse_equation
 from .rate_laws import REGISTRY, missing_keys, undeclared_keys
 from .scenarios import check_scenario
-from .schema import ExponentPrior, OrderPrior, Reaction, StudyFile
+from .schema import ExponentPrior, LogNormalPrior, NormalPrior, OrderPrior, Reaction, StudyFile
 from .study import (
     AdsorptionSite,
     ArrheniusPrior,
@@ -286,6 +286,18 @@ def _resolve_rate_constant_reactions(file: StudyFile, where: str) -> tuple[React
     return tuple(specs)
 
 
+def _van_t_hoff_prior(
+    constant: LogNormalPrior, enthalpy: NormalPrior, energy: str, where: str
+) -> tuple[float, float, float, float]:
+    """(mean and sd of ln K at T_ref, mean and sd of its enthalpy in J/mol) from a constant's priors."""
+    return (
+        math.log(constant.median),
+        math.log(constant.factor) / Z95,
+        float(units.energy_to_joule_per_mol(enthalpy.mean, energy, where)),
+        float(units.energy_to_joule_per_mol(enthalpy.sd, energy, where)),
+    )
+
+
 def _adsorption(
     reaction: Reaction, equation: Equation, species: tuple[str, ...], energy: str, key: str
 ) -> tuple[float, tuple[AdsorptionSite, ...]]:
@@ -300,16 +312,9 @@ def _adsorption(
                 "write the enzyme on both sides, e.g. 'S + E -> P + E', or use rate_law: saturating",
             )
         assert reaction.K_M is not None and reaction.K_M_dH is not None  # required by the registry
-        dh = units.energy_to_joule_per_mol
+        ln_mean, ln_sd, dh_mean, dh_sd = _van_t_hoff_prior(reaction.K_M, reaction.K_M_dH, energy, f"{key}.K_M_dH")
         # K = 1/K_M: a lognormal stays lognormal with the median inverted; dH of binding is -dH of K_M.
-        site = AdsorptionSite(
-            substrates[0],
-            -math.log(reaction.K_M.median),
-            math.log(reaction.K_M.factor) / Z95,
-            -float(dh(reaction.K_M_dH.mean, energy, f"{key}.K_M_dH")),
-            float(dh(reaction.K_M_dH.sd, energy, f"{key}.K_M_dH")),
-        )
-        return 1.0, (site,)
+        return 1.0, (AdsorptionSite(substrates[0], -ln_mean, ln_sd, -dh_mean, dh_sd),)
     if reaction.rate_law != "saturating":
         return 0.0, ()
     sites = []
@@ -318,16 +323,8 @@ def _adsorption(
             close = difflib.get_close_matches(name, species, n=1)
             hint = f"did you mean '{close[0]}'?" if close else "adsorbing species must be in the species list"
             raise StudyError(f"{key}.adsorption.{name}", f"'{name}' is not in species ({', '.join(species)})", hint)
-        dh_where = f"{key}.adsorption.{name}.dH"
-        sites.append(
-            AdsorptionSite(
-                name,
-                math.log(prior.K_ref.median),
-                math.log(prior.K_ref.factor) / Z95,
-                float(units.energy_to_joule_per_mol(prior.dH.mean, energy, dh_where)),
-                float(units.energy_to_joule_per_mol(prior.dH.sd, energy, dh_where)),
-            )
-        )
+        where = f"{key}.adsorption.{name}.dH"
+        sites.append(AdsorptionSite(name, *_van_t_hoff_prior(prior.K_ref, prior.dH, energy, where)))
     return (reaction.inhibition_exponent or 1.0), tuple(sites)
 
 
@@ -381,12 +378,7 @@ def _resolve_network(file: StudyFile, where: str) -> tuple[tuple[ReactionSpec, .
             )
         equilibrium, eq_unit = None, ""
         if reaction.K_ref is not None and reaction.dH is not None:
-            equilibrium = EquilibriumPrior(
-                ln_eq_ref_mean=math.log(reaction.K_ref.median),
-                ln_eq_ref_sd=math.log(reaction.K_ref.factor) / Z95,
-                dh_mean=float(units.energy_to_joule_per_mol(reaction.dH.mean, energy, f"{key}.dH")),
-                dh_sd=float(units.energy_to_joule_per_mol(reaction.dH.sd, energy, f"{key}.dH")),
-            )
+            equilibrium = EquilibriumPrior(*_van_t_hoff_prior(reaction.K_ref, reaction.dH, energy, f"{key}.dH"))
             delta_n = sum(c for _, c in equation.products) - sum(c for _, c in equation.reactants)
             eq_unit = _concentration_power(conc, delta_n)
         order_maps.append(reactant_orders)

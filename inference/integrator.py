@@ -208,6 +208,8 @@ def radau_run(
     d1 = _rms(f0, scale)
     h = 1e-6 * times[-1] if (d0 < 1e-5 or d1 < 1e-5) else 0.01 * d0 / d1
     h = min(h, times[-1])
+    if not (h > 0.0 and math.isfinite(h)):  # rates that overflow (extreme parameters) leave no usable step
+        return FAILED
     steps = 0
     error_old = -1.0
     h_old = -1.0
@@ -536,6 +538,8 @@ def dopri_run(
     d1 = math.sqrt(d1 / size)
     h = 1e-6 * times[-1] if (d0 < 1e-5 or d1 < 1e-5) else 0.01 * d0 / d1
     h = min(h, times[-1])
+    if not (h > 0.0 and math.isfinite(h)):  # rates that overflow (extreme parameters) leave no usable step
+        return FAILED
     for i in range(size):
         trial[i] = u[i] + h * stages[0, i]
     _augmented_rhs(
@@ -558,6 +562,8 @@ def dopri_run(
     d2 = math.sqrt(d2 / size) / h
     h1 = max(1e-6 * h, h * 1e-3) if max(d1, d2) <= 1e-15 else (0.01 / max(d1, d2)) ** 0.2
     h = min(100.0 * h, h1, times[-1])
+    if not (h > 0.0 and math.isfinite(h)):
+        return FAILED
 
     t = 0.0
     t_end = times[-1]

@@ -11,19 +11,16 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-#: Reaction keys every law accepts; the rest must be declared by the law that uses them.
-COMMON_KEYS = frozenset({"name", "equation", "rate_law", "k_ref", "Ea", "K_ref", "dH", "temperature_exponent"})
-
 
 @dataclass(frozen=True)
 class RateLaw:
-    """One law of the registry: ``takes`` the optional keys it uses, ``requires`` those it cannot do without."""
+    """One law of the registry: ``takes`` the optional keys it uses, ``requires`` those it cannot do without.
+    Every law takes name, equation, k_ref, Ea, temperature_exponent, and K_ref with dH for ``<=>`` steps."""
 
     name: str
     description: str
     takes: frozenset[str] = frozenset()
     requires: frozenset[str] = frozenset()
-    orders_from_equation: bool = True
     saturating: bool = False
 
 
@@ -35,7 +32,6 @@ REGISTRY: dict[str, RateLaw] = {
             "power_law",
             "r = k prod c_i^a_i with orders given or fitted per reactant",
             takes=frozenset({"orders"}),
-            orders_from_equation=False,
         ),
         RateLaw(
             "saturating",

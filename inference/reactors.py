@@ -26,11 +26,8 @@ from .network import Network
 from .solution import NetworkSolver, SolverFailure, rate_arrays
 
 
-def _rate_terms(
-    network: Network, draws: ParameterDraws, d: int, kelvin: float, c: np.ndarray
-) -> tuple[np.ndarray, np.ndarray]:
-    """dc/dt = S^T r(c) and its Jacobian for draw d at ``kelvin`` (negative c read as zero)."""
-    one = draws.draw(d)
+def _rate_terms(network: Network, one: ParameterDraws, kelvin: float, c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """dc/dt = S^T r(c) and its Jacobian for a single draw ``one`` at ``kelvin`` (negative c read as zero)."""
     k, inv_eq, ads = rate_arrays(network, one.ln_k(kelvin), one.ln_eq(kelvin), one.ln_ads(kelvin))
     n_reactions, n = network.forward_orders.shape
     f, jac = np.empty(n), np.empty((n, n))
@@ -134,10 +131,11 @@ def cstr_steady_states(
     scale = max(float(feed.max()), 1e-300)
     reachable = _reachable_guesses(network, feed) if thorough else []
     for d in range(draws.size):
+        one = draws.draw(d)
         for q, tau in enumerate(residence_times):
 
-            def residual(c: np.ndarray, d: int = d, tau: float = tau) -> tuple[np.ndarray, np.ndarray]:
-                f, jac = _rate_terms(network, draws, d, kelvin, c)
+            def residual(c: np.ndarray, one: ParameterDraws = one, tau: float = tau) -> tuple[np.ndarray, np.ndarray]:
+                f, jac = _rate_terms(network, one, kelvin, c)
                 return (feed - c) / tau + f, jac - np.eye(n) / tau
 
             found: list[tuple[np.ndarray, bool]] = []
@@ -206,14 +204,15 @@ def programmed_batch_profiles(
     if edges[0] > 0.0:
         edges = np.concatenate([[0.0], edges])
     for d in range(draws.size):
+        one = draws.draw(d)
 
-        def rhs(t: float, c: np.ndarray, d: int = d) -> np.ndarray:
+        def rhs(t: float, c: np.ndarray, one: ParameterDraws = one) -> np.ndarray:
             kelvin = float(programme_temperature(programme, np.array([t]))[0])
-            return _rate_terms(network, draws, d, kelvin, c)[0]
+            return _rate_terms(network, one, kelvin, c)[0]
 
-        def jacobian(t: float, c: np.ndarray, d: int = d) -> np.ndarray:
+        def jacobian(t: float, c: np.ndarray, one: ParameterDraws = one) -> np.ndarray:
             kelvin = float(programme_temperature(programme, np.array([t]))[0])
-            return _rate_terms(network, draws, d, kelvin, c)[1]
+            return _rate_terms(network, one, kelvin, c)[1]
 
         state = initial.astype(float)
         for start, stop in itertools.pairwise(edges):

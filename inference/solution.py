@@ -153,27 +153,30 @@ class NetworkSolver:
             times = self.times[r]
             out_c = np.empty((times.size, n_species))
             out_s = np.empty((times.size, n_species, n_params))
-            status = integrate_run(
-                np.ascontiguousarray(initial[r], dtype=float),
-                times,
-                (
-                    k_runs[r],
-                    inv_eq[r],
-                    net.stoichiometry,
-                    orders,
-                    net.reverse_orders,
-                    net.reversible,
-                    ads[r],
-                    net.inhibition,
-                ),
-                (kinds, self.param_reaction[:n_params], self.param_species[:n_params]),
-                rtol,
-                atol,
-                self.settings.max_steps,
-                out_c,
-                out_s,
-                self.stats,
-            )
+            try:
+                status = integrate_run(
+                    np.ascontiguousarray(initial[r], dtype=float),
+                    times,
+                    (
+                        k_runs[r],
+                        inv_eq[r],
+                        net.stoichiometry,
+                        orders,
+                        net.reverse_orders,
+                        net.reversible,
+                        ads[r],
+                        net.inhibition,
+                    ),
+                    (kinds, self.param_reaction[:n_params], self.param_species[:n_params]),
+                    rtol,
+                    atol,
+                    self.settings.max_steps,
+                    out_c,
+                    out_s,
+                    self.stats,
+                )
+            except ArithmeticError:  # numba raises Python's errors (x / 0) where extreme parameters lead
+                status = -1
             if status != DONE or not np.all(np.isfinite(out_c)):
                 raise SolverFailure(f"the integration of run {r} did not reach t = {times[-1]:g}")
             concentrations.append(out_c)
@@ -222,30 +225,33 @@ class MeasurementSolver:
         prediction = np.empty(self.run_index.size)
         jacobian = np.empty((self.run_index.size, self.n_inputs))
         solver.stats[:] = 0
-        failed = predict_measurements(
-            np.ascontiguousarray(initial, dtype=float),
-            self.all_times,
-            self.time_offsets,
-            k_runs,
-            inv_eq,
-            ads,
-            net.stoichiometry,
-            np.ascontiguousarray(forward_orders, dtype=float),
-            net.reverse_orders,
-            net.reversible,
-            net.inhibition,
-            (solver.kinds, solver.param_reaction, solver.param_species),
-            rtol,
-            atol,
-            solver.settings.max_steps,
-            self.run_index,
-            self.time_index,
-            self.species_index,
-            self.columns,
-            prediction,
-            jacobian,
-            solver.stats,
-        )
+        try:
+            failed = predict_measurements(
+                np.ascontiguousarray(initial, dtype=float),
+                self.all_times,
+                self.time_offsets,
+                k_runs,
+                inv_eq,
+                ads,
+                net.stoichiometry,
+                np.ascontiguousarray(forward_orders, dtype=float),
+                net.reverse_orders,
+                net.reversible,
+                net.inhibition,
+                (solver.kinds, solver.param_reaction, solver.param_species),
+                rtol,
+                atol,
+                solver.settings.max_steps,
+                self.run_index,
+                self.time_index,
+                self.species_index,
+                self.columns,
+                prediction,
+                jacobian,
+                solver.stats,
+            )
+        except ArithmeticError as error:  # numba raises Python's errors (x / 0) where extreme parameters lead
+            raise SolverFailure(f"the integration failed ({type(error).__name__})") from None
         if failed >= 0:
             raise SolverFailure(f"the integration of run {failed} did not reach its last time")
         return prediction, jacobian

@@ -45,12 +45,14 @@ def derived_quantities(
             if "temperature_exponent" in posterior
             else spec.temperature_exponent
         )
-        a_unit = spec.k_unit + (f"/K^{spec.temperature_exponent:g}" if spec.exponent_sd is None and exponent else "")
         quantities[f"k_ref[{name}]"] = (spec.k_unit, np.exp(ln_k_ref))
         quantities[f"Ea[{name}]"] = (energy, units.joule_per_mol_to(ea, energy))
+        a_unit = spec.k_unit  # A of k = A T^n exp(-Ea/RT) is per K^n
         if spec.exponent_sd is not None:
             quantities[f"n[{name}]"] = ("", exponent)
             a_unit = f"{spec.k_unit}/K^n"
+        elif spec.temperature_exponent:
+            a_unit = f"{spec.k_unit}/K^{spec.temperature_exponent:g}"
         quantities[f"A[{name}]"] = (a_unit, np.exp(ln_pre_exponential(ln_k_ref, ea, temperature_ref, exponent)))
         for kelvin in study.k_at_K:
             label = f"k[{name}, {temperature_label(kelvin, study.units.temperature)}]"
@@ -111,9 +113,9 @@ def _saturation_quantities(study: Study, spec: ReactionSpec, posterior: xr.Datas
             out[f"K_M_dH[{spec.name}]"] = (energy, units.joule_per_mol_to(-dh, energy))
             equation = parse_equation(spec.equation)
             catalysed = bool({n for n, _ in equation.reactants} & {n for n, _ in equation.products})
-            label = "k_cat" if catalysed else "V_max"
+            turnover = "k_cat" if catalysed else "V_max"
             unit = f"1/{study.units.time}" if catalysed else f"{conc}/{study.units.time}"
-            out[f"{label}[{spec.name}]"] = (unit, np.exp(ln_k_ref - ln_ref))
+            out[f"{turnover}[{spec.name}]"] = (unit, np.exp(ln_k_ref - ln_ref))
         else:
             out[f"K_ads_ref[{label}]"] = (f"1/({conc})", np.exp(ln_ref))
             out[f"dH_ads[{label}]"] = (energy, units.joule_per_mol_to(dh, energy))

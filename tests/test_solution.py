@@ -174,3 +174,29 @@ def test_formulas_and_element_balance():
     for bad in ("C2h4", "(CH3", "CH3)", "2C"):
         with pytest.raises(EquationError):
             element_counts(bad)
+
+
+@pytest.mark.parametrize("ln_k", [700.0, -745.0])
+def test_extreme_rate_constants_fail_cleanly(ln_k):
+    # Found by simulation-based calibration: prior draws far in the tails made the rates overflow, and a zero
+    # step size then divided by zero inside the compiled integrator. Either way is now a SolverFailure (or a
+    # finite answer), never an arithmetic exception.
+    from inference.solution import MeasurementSolver, SolverFailure
+
+    net = network("ABCD", "A + B -> C", "C -> D")
+    times = np.array([1.0, 5.0])
+    solver = NetworkSolver(net, [times])
+    initial = np.array([[1.0, 1.2, 0.0, 0.0]])
+    measurements = MeasurementSolver(
+        solver, np.array([0, 0]), np.array([0, 1]), np.array([0, 2]), np.array([[0, 1]]), 2
+    )
+    for call in (
+        lambda: solver.solve(np.array([[ln_k, ln_k]]), np.zeros((1, 0)), net.forward_orders, initial),
+        lambda: measurements.solve(np.array([[ln_k, ln_k]]), np.zeros((1, 0)), net.forward_orders, initial),
+    ):
+        try:
+            result = call()
+        except SolverFailure:
+            continue
+        values = result.concentrations[0] if hasattr(result, "concentrations") else result[0]
+        assert np.all(np.isfinite(values))
