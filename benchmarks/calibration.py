@@ -43,10 +43,27 @@ def main() -> None:
     started = time.perf_counter()
     result = calibrate(args.study, settings, workers=args.workers)
     folder = write_calibration(result, args.out, overwrite=args.overwrite)
-    print(f"{args.simulations} simulations of {args.study} in {time.perf_counter() - started:.0f} s -> {folder}")
-    print(result.uniformity.to_string(index=False, float_format=lambda x: f"{x:.3g}"))
-    print(result.coverage.to_string(index=False, float_format=lambda x: f"{x:.3g}"))
-    print(f"divergent transitions over all fits: {int(result.ranks['divergences'].sum())}")
+    print(f"{args.simulations} simulations of {args.study} in {time.perf_counter() - started:.0f} s -> {folder}\n")
+    print(markdown_tables(result))
+    print(f"\ndivergent transitions over all fits: {int(result.ranks['divergences'].sum())}")
+
+
+def markdown_tables(result) -> str:
+    """The uniformity and coverage tables as Markdown (as pasted into docs/calibration.md)."""
+    lines = ["| quantity | bins | chi-square p | KS p |", "| --- | ---: | ---: | ---: |"]
+    for row in result.uniformity.itertuples():
+        lines.append(f"| `{row.quantity}` | {row.bins} | {row.chi2_p:.3f} | {row.ks_p:.3f} |")
+    lines += [
+        "",
+        "| quantity | level | covered | share | binomial se | z |",
+        "| --- | ---: | ---: | ---: | ---: | ---: |",
+    ]
+    for row in result.coverage.itertuples():
+        lines.append(
+            f"| `{row.quantity}` | {row.level} % | {row.covered}/{row.simulations} | {row.share:.3f} | "
+            f"{row.binomial_se:.3f} | {row.z:+.2f} |"
+        )
+    return "\n".join(lines)
 
 
 if __name__ == "__main__":

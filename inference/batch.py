@@ -117,7 +117,7 @@ class Executor:
                 n_workers=self.workers,
                 threads_per_worker=1,
                 processes=True,
-                dashboard_address=None,
+                dashboard_address=":0",  # any free port: several batches may run at once
                 silence_logs=logging.ERROR,
             )
         self.client = Client(self.cluster)

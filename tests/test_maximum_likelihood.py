@@ -39,10 +39,10 @@ def posterior_mode(model, hessian: bool = True) -> dict:
         return -float(logp(point(x))), -np.asarray(dlogp(point(x)))
 
     if hessian:
-        d2logp = model.compile_d2logp(jacobian=False)  # PyMC negates it: the Hessian of -log p
+        d2logp = model.compile_d2logp(jacobian=False, negate_output=False)
 
         def curvature(x):
-            return np.asarray(d2logp(point(x)))
+            return -np.asarray(d2logp(point(x)))  # the Hessian of -log p
 
     else:  # the ODE Op has exact first derivatives only: central differences of the exact gradient
 
