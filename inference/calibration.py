@@ -132,7 +132,9 @@ def rank_one(
         true_value = float(np.asarray(truth[name])[position])
         _record(row, label, draws, true_value, picks)
     log_likelihood = idata.log_likelihood["observation"].sum(dim="measurement").values.reshape(total)
-    observed_logp = model.compile_logp(vars=[model["observation"]], jacobian=False)
+    observed_logp = model.compile_fn(
+        model.logp(vars=[model["observation"]], jacobian=False), inputs=model.value_vars, on_unused_input="ignore"
+    )
     _record(row, LOG_LIKELIHOOD, log_likelihood, float(observed_logp(_value_point(model, truth))), picks)
     return row
 

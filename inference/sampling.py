@@ -110,7 +110,9 @@ def non_finite_start(model: pm.Model) -> tuple[list[str], np.ndarray]:
         if not bad and not np.isfinite(float(model.compile_logp()(start))):
             # point_logps leaves out Potentials; the only one is the guard against failed integrations.
             bad = ["solver_guard"]
-        pointwise = np.asarray(model.compile_fn(model.logp(vars=[model["observation"]], sum=False)[0])(start))
+        observation_logp = model.logp(vars=[model["observation"]], sum=False)[0]
+        pointwise_logp = model.compile_fn(observation_logp, inputs=model.value_vars, on_unused_input="ignore")
+        pointwise = np.asarray(pointwise_logp(start))
     return bad, np.flatnonzero(~np.isfinite(np.atleast_1d(pointwise)))
 
 
