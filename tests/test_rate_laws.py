@@ -145,6 +145,11 @@ def test_model_with_every_new_term_has_an_exact_gradient(tmp_path, parameterisat
     model = problem.build_model(T_REF)
     assert {"ln_K_ads_ref", "temperature_exponent", "ln_k_spread", "run_effect", "temperature"} <= set(model.named_vars)
     _gradient_check(model)
+    # The start check compiles the likelihood alone, which need not depend on every variable (centred effects).
+    from inference.sampling import non_finite_start
+
+    terms, measurements = non_finite_start(model)
+    assert terms == [] and measurements.size == 0
 
 
 @pytest.mark.parametrize(
