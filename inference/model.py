@@ -124,22 +124,23 @@ def network_solver(study: Study, obs: Observations) -> NetworkSolver:
     return NetworkSolver(study.network, list(obs.times), free_orders=free_orders, free_initial=free_initial)
 
 
+def _van_t_hoff_pair(ln_name: str, dh_name: str, dims: str, priors: np.ndarray):
+    """ln K at T_ref and its enthalpy, sampled standardised; ``priors`` rows are (ln mean, ln sd, dH mean,
+    dH sd) with dH in J/mol."""
+    z_ln = pm.Normal(f"z_{ln_name}", 0.0, 1.0, dims=dims)
+    z_dh = pm.Normal(f"z_{dh_name}", 0.0, 1.0, dims=dims)
+    ln_ref = pm.Deterministic(ln_name, priors[:, 0] + priors[:, 1] * z_ln, dims=dims)
+    dh = pm.Deterministic(dh_name, priors[:, 2] + priors[:, 3] * z_dh, dims=dims)
+    return ln_ref, dh
+
+
 def _equilibrium_parameters(study: Study):
-    reversible = [r for r in study.reactions if r.equilibrium is not None]
-    if not reversible:
+    """ln K_c at T_ref and dH of every reversible step (None without any)."""
+    equilibria = [r.equilibrium for r in study.reactions if r.equilibrium is not None]
+    if not equilibria:
         return None, None
-    priors = [r.equilibrium for r in reversible]
-    z_ln_eq = pm.Normal("z_ln_K_ref", 0.0, 1.0, dims="reversible")
-    z_dh = pm.Normal("z_dH", 0.0, 1.0, dims="reversible")
-    ln_eq_ref = pm.Deterministic(
-        "ln_K_ref",
-        np.array([p.ln_eq_ref_mean for p in priors]) + np.array([p.ln_eq_ref_sd for p in priors]) * z_ln_eq,
-        dims="reversible",
-    )
-    dh = pm.Deterministic(
-        "dH", np.array([p.dh_mean for p in priors]) + np.array([p.dh_sd for p in priors]) * z_dh, dims="reversible"
-    )
-    return ln_eq_ref, dh
+    rows = np.array([(q.ln_eq_ref_mean, q.ln_eq_ref_sd, q.dh_mean, q.dh_sd) for q in equilibria])
+    return _van_t_hoff_pair("ln_K_ref", "dH", "reversible", rows)
 
 
 def _exponent_coords(study: Study) -> dict:
@@ -148,23 +149,12 @@ def _exponent_coords(study: Study) -> dict:
 
 
 def _adsorption_parameters(study: Study):
-    """ln K_ads at T_ref and dH_ads of every adsorption site, sampled standardised (None without sites)."""
+    """ln K_ads at T_ref and dH_ads of every adsorption site (None without sites)."""
     sites = [site for r in study.reactions for site in r.adsorption]
     if not sites:
         return None, None
-    z_ln = pm.Normal("z_ln_K_ads_ref", 0.0, 1.0, dims="adsorption_site")
-    z_dh = pm.Normal("z_dH_ads", 0.0, 1.0, dims="adsorption_site")
-    ln_ref = pm.Deterministic(
-        "ln_K_ads_ref",
-        np.array([s.ln_ref_mean for s in sites]) + np.array([s.ln_ref_sd for s in sites]) * z_ln,
-        dims="adsorption_site",
-    )
-    dh = pm.Deterministic(
-        "dH_ads",
-        np.array([s.dh_mean for s in sites]) + np.array([s.dh_sd for s in sites]) * z_dh,
-        dims="adsorption_site",
-    )
-    return ln_ref, dh
+    rows = np.array([(a.ln_ref_mean, a.ln_ref_sd, a.dh_mean, a.dh_sd) for a in sites])
+    return _van_t_hoff_pair("ln_K_ads_ref", "dH_ads", "adsorption_site", rows)
 
 
 def _run_effects(study: Study, obs: Observations, ln_k):

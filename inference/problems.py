@@ -32,6 +32,22 @@ if TYPE_CHECKING:
 
     from .results import StagedFolder
 
+#: Posterior variables the convergence verdict looks at, in this order (those present in a model).
+KINETIC_VARIABLES = (
+    "ln_k_ref",
+    "Ea",
+    "temperature_exponent",
+    "ln_K_ref",
+    "dH",
+    "ln_K_ads_ref",
+    "dH_ads",
+    "order",
+    "initial",
+    "ln_k_spread",
+    "temperature",
+    "sigma",
+)
+
 #: Posterior draws used for the profile bands of the run figures.
 PROFILE_DRAWS = 200
 PROFILE_POINTS = 121
@@ -179,8 +195,7 @@ class RateConstantProblem:
         return None  # no integration in a rate-constant model
 
     def kinetic_var_names(self, idata: az.InferenceData) -> list[str]:
-        names = ("ln_k_ref", "Ea", "temperature_exponent", "sigma")
-        return [n for n in names if n in idata.posterior]
+        return [n for n in KINETIC_VARIABLES if n in idata.posterior]
 
     def fit_checks(self, idata: az.InferenceData) -> pd.DataFrame:
         return rate_constant_fit_checks(self.study, self.data, idata)
@@ -316,21 +331,7 @@ class NetworkProblem:
         )
 
     def kinetic_var_names(self, idata: az.InferenceData) -> list[str]:
-        names = (
-            "ln_k_ref",
-            "Ea",
-            "temperature_exponent",
-            "ln_K_ref",
-            "dH",
-            "ln_K_ads_ref",
-            "dH_ads",
-            "order",
-            "initial",
-            "ln_k_spread",
-            "temperature",
-            "sigma",
-        )
-        return [n for n in names if n in idata.posterior]
+        return [n for n in KINETIC_VARIABLES if n in idata.posterior]
 
     def fit_checks(self, idata: az.InferenceData) -> pd.DataFrame:
         return network_fit_checks(self.study, self.obs, idata)
