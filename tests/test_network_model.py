@@ -20,8 +20,8 @@ from inference.problems import open_problem
 T_REF = 330.0
 
 
-def arrhenius_k(k_ref, ea, celsius):
-    return float(np.exp(ln_rate_constant(celsius + 273.15, np.log(k_ref), ea, T_REF)))
+def arrhenius_k(k_ref, ea, celsius, t_ref=T_REF):
+    return float(np.exp(ln_rate_constant(celsius + 273.15, np.log(k_ref), ea, t_ref)))
 
 
 def write_study(folder, body, runs, measurements):

@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from scipy import constants
 from scipy.integrate import solve_ivp
-from test_network_model import _gradient_check, assert_recovered, write_study
+from test_network_model import _gradient_check, arrhenius_k, assert_recovered, write_study
 
 from inference import closed_form, fit_study
 from inference.arrhenius import R, eyring_activation, ln_rate_constant
@@ -351,7 +351,7 @@ def test_michaelis_menten_fit_recovers_k_m_and_k_cat(tmp_path):
     k_m, k_cat, ea, enzyme = 0.3, 2.0, 50_000.0, 0.01
     runs, meas = ["run,temperature,S,E,P"], ["run,time,S,P"]
     for index, (celsius, s0) in enumerate([(40, 0.2), (40, 2.0), (60, 0.2), (60, 2.0)]):
-        k = arrhenius_k_local(k_cat / k_m, ea, celsius)
+        k = arrhenius_k(k_cat / k_m, ea, celsius, t_ref=323.15)
         rate = lambda t, c, k=k: [-k * c[1] * c[0] / (1 + c[0] / k_m), 0.0, k * c[1] * c[0] / (1 + c[0] / k_m)]  # noqa: E731
         horizon = 3.0 * (s0 + k_m) / (k * enzyme * k_m)
         times = np.linspace(horizon / 10, horizon, 10)
@@ -381,10 +381,6 @@ def test_michaelis_menten_fit_recovers_k_m_and_k_cat(tmp_path):
     assert_recovered(summary, "K_M[turnover]", k_m)
     assert_recovered(summary, "k_cat[turnover]", k_cat)
     assert_recovered(summary, "Ea[turnover]", ea / 1000)
-
-
-def arrhenius_k_local(k_ref, ea, celsius, t_ref=323.15):
-    return math.exp(ln_rate_constant(celsius + 273.15, math.log(k_ref), ea, t_ref))
 
 
 def test_transition_state_table_follows_the_posterior(tmp_path):
