@@ -11,5 +11,5 @@ from pathlib import Path
 from inference.demo import write_demo
 
 if __name__ == "__main__":
-    study = write_demo(Path(__file__).resolve().parent)
+    study = write_demo(Path(__file__).resolve().parent, replace=True)
     print(f"wrote {study} and the other demo studies with their data")

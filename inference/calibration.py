@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from . import __version__
 from .config import load_study
 from .problems import KINETIC_VARIABLES
 
@@ -238,4 +239,5 @@ def write_calibration(result: CalibrationResult, out: str | Path, overwrite: boo
         folder.write_csv("uniformity.csv", result.uniformity)
         folder.write_csv("coverage.csv", result.coverage)
         plots.rank_histograms(result, folder.path("figures/ranks.png"))
+        folder.write_manifest({"arrhenia_version": __version__, "kind": "simulation-based calibration"})
     return target

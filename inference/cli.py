@@ -4,10 +4,13 @@ from __future__ import annotations
 
 import argparse
 import os
+import select
+import shlex
 import signal
 import sys
 import traceback
 from pathlib import Path
+from typing import NoReturn
 
 from .errors import ExitCode, StudyError
 
@@ -25,8 +28,15 @@ def _on_sigterm(signum: int, frame: object) -> None:
     raise _Terminated
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with its usage errors on one line and exit 2, like every other mistake in the input."""
+
+    def error(self, message: str) -> NoReturn:
+        self.exit(ExitCode.BAD_INPUT, f"{self.prog}: error: {' '.join(message.split())} (see '{self.prog} --help')\n")
+
+
 def _parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="arrhenia", description="Bayesian inference of chemical kinetics.")
+    parser = _Parser(prog="arrhenia", description="Bayesian inference of chemical kinetics.")
     commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     def fit_options(command: argparse.ArgumentParser) -> None:
@@ -109,6 +119,24 @@ def _parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _check_numbers(args: argparse.Namespace) -> None:
+    """Every number on the command line checked as input, before anything is read or written; the limits are
+    the schema's (``Sampling`` for sampler settings and prior draws, ``ScenarioFile`` for predictive draws)."""
+    from .batch import check_count, sampling_overrides, schema_limits
+    from .schema import Sampling, ScenarioFile
+
+    if args.command == "predict":
+        if args.draws is not None:
+            check_count("--draws", args.draws, "number of posterior draws", *schema_limits(ScenarioFile, "draws"))
+    elif args.command == "check":
+        check_count("--draws", args.draws, "number of prior draws", *schema_limits(Sampling, "draws"))
+    else:
+        names = ("draws", "tune", "chains", "seed", "cores")
+        sampling_overrides({name: getattr(args, name, None) for name in names}, prefix="--")
+    if getattr(args, "workers", None) is not None:
+        check_count("--workers", args.workers, "number of workers", 1, None)
+
+
 def _run_options(args: argparse.Namespace) -> dict:
     """The fit options every fitting command shares, as keyword arguments of the API."""
     return {
@@ -119,7 +147,7 @@ def _run_options(args: argparse.Namespace) -> dict:
         "cores": args.cores,
         "overwrite": args.overwrite,
         "quiet": args.quiet,
-        "command_line": " ".join(["arrhenia", *sys.argv[1:]]),
+        "command_line": args.command_line,
     }
 
 
@@ -141,13 +169,13 @@ def _compare_and_report(candidates: list[Path], args: argparse.Namespace, out: P
     result = pipeline.compare_studies(candidates, out=out, root=root, workers=workers, **_run_options(args))
     if not args.quiet:
         print(reporting.comparison_report(result))
-    trusted = all(verdict == "pass" for verdict in result.verdicts.values())
-    return ExitCode.DONE if trusted else ExitCode.UNTRUSTED
+    return ExitCode.DONE if result.trusted else ExitCode.UNTRUSTED
 
 
 def _run(args: argparse.Namespace) -> int:
     from .config import load_study
 
+    _check_numbers(args)
     if args.command == "schema":
         import json
 
@@ -193,7 +221,7 @@ def _run(args: argparse.Namespace) -> int:
             overwrite=args.overwrite,
             quiet=args.quiet,
             draws=args.draws,
-            command_line=" ".join(["arrhenia", *sys.argv[1:]]),
+            command_line=args.command_line,
         )
         if not args.quiet:
             print(reporting.prediction_report(result))
@@ -203,8 +231,6 @@ def _run(args: argparse.Namespace) -> int:
     if args.command == "batch":
         from .batch import run_batch
 
-        if args.workers is not None and args.workers < 1:
-            raise StudyError("--workers", f"{args.workers} is not a number of workers", "give 1 or more")
         result = run_batch(
             args.studies,
             root=args.root,
@@ -216,6 +242,7 @@ def _run(args: argparse.Namespace) -> int:
             tune=args.tune,
             chains=args.chains,
             seed=args.seed,
+            command_line=args.command_line,
         )
         if not args.quiet:
             counts = result.table["status"].value_counts()
@@ -226,13 +253,16 @@ def _run(args: argparse.Namespace) -> int:
     if args.command == "demo":
         from . import predictions, reporting
         from .demo import ALTERNATIVE_STUDY_FILE, SCENARIOS_FILE, write_demo
-        from .results import check_target
+        from .results import check_target, check_writable_parent
 
         out: Path = args.out
         if out.exists() and not out.is_dir():
             raise StudyError(str(out), "is a file, not a folder", "choose another --out")
         results = out / "results"
-        check_target(results, args.overwrite)
+        if args.overwrite:  # each of the demo's results folders is checked by its own writer
+            check_writable_parent(results)
+        else:
+            check_target(results, overwrite=False)
         study_path = write_demo(out)
         if not args.quiet:
             print(f"wrote the demo studies into {out}; fitting {study_path.name}")
@@ -253,10 +283,17 @@ def _run(args: argparse.Namespace) -> int:
     raise AssertionError(args.command)  # argparse allows only the commands above
 
 
+def _what_was_written(stop: BaseException) -> str:
+    """What an interrupted command leaves: a batch notes which studies it finished; other commands write
+    nothing (their folders are staged and never half-written)."""
+    return "; ".join(getattr(stop, "__notes__", ())) or "no results were written"
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point of the console script; returns the exit code."""
     global _MAIN_PID
     args = _parser().parse_args(argv)
+    args.command_line = shlex.join(["arrhenia", *(sys.argv[1:] if argv is None else argv)])
     _MAIN_PID = os.getpid()
     signal.signal(signal.SIGTERM, _on_sigterm)
     try:
@@ -264,23 +301,40 @@ def main(argv: list[str] | None = None) -> int:
     except StudyError as error:
         print(f"arrhenia: error: {error}", file=sys.stderr)
         return ExitCode.BAD_INPUT
-    except BrokenPipeError:  # the reader of our output went away (e.g. "| head"): not an error of anyone's
+    except BrokenPipeError:
+        if not _reader_gone():  # another pipe (a chain process's) broke: that is a fault, not "| head"
+            return _fault()
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return ExitCode.DONE
-    except KeyboardInterrupt:
-        print("arrhenia: interrupted; no results were written", file=sys.stderr)
+    except KeyboardInterrupt as stop:
+        print(f"arrhenia: interrupted; {_what_was_written(stop)}", file=sys.stderr)
         return ExitCode.INTERRUPTED
-    except _Terminated:
-        print("arrhenia: terminated; no results were written", file=sys.stderr)
+    except _Terminated as stop:
+        print(f"arrhenia: terminated; {_what_was_written(stop)}", file=sys.stderr)
         return ExitCode.TERMINATED
     except Exception:
-        traceback.print_exc()
-        print(
-            "arrhenia: internal error: this is a fault of Arrhenia, not of your input; please report it "
-            "with the lines above",
-            file=sys.stderr,
-        )
-        return ExitCode.FAULT
+        return _fault()
+
+
+def _fault() -> int:
+    """Print the exception being handled and say it is Arrhenia's fault."""
+    traceback.print_exc()
+    print(
+        "arrhenia: internal error: this is a fault of Arrhenia, not of your input; please report it "
+        "with the lines above",
+        file=sys.stderr,
+    )
+    return ExitCode.FAULT
+
+
+def _reader_gone() -> bool:
+    """Whether standard output is a pipe whose reader went away (e.g. "| head"): its write end polls POLLERR."""
+    try:
+        poller = select.poll()
+        poller.register(sys.stdout.fileno(), select.POLLOUT)
+        return any(events & select.POLLERR for _, events in poller.poll(0))
+    except (AttributeError, OSError, ValueError):  # no poll on this system, or stdout is not a real file
+        return False
 
 
 if __name__ == "__main__":

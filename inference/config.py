@@ -13,6 +13,7 @@ import yaml
 
 from . import units
 from .errors import StudyError
+from .files import excerpt, read_text, resolve, shown_path
 from .network import Equation, EquationError, Network, build_network, element_counts, imbalance, parse_equation
 from .rate_laws import REGISTRY, missing_keys, undeclared_keys
 from .scenarios import check_scenario
@@ -35,9 +36,27 @@ MAX_STUDY_BYTES = 1_000_000
 Z95 = 1.959963984540054
 
 
+#: YAML nested deeper than this is refused while it is composed (a study file needs about 5 levels), long
+#: before Python's recursion limit could be reached.
+MAX_YAML_DEPTH = 50
+
+
+class _Refusal(yaml.YAMLError):
+    """YAML that parses but that we refuse: a repeated or non-text key, too deep a nesting, a non-finite number."""
+
+    def __init__(self, problem: str, mark: Any, hint: str | None = None) -> None:
+        super().__init__(problem)
+        self.problem, self.problem_mark, self.hint = problem, mark, hint
+
+
 class _NoAliasLoader(yaml.SafeLoader):
-    """``yaml.SafeLoader`` that refuses anchors and aliases: study files never need them, and refusing them
-    makes "billion laughs" inputs fail at once instead of exhausting memory."""
+    """``yaml.SafeLoader`` that refuses anchors and aliases (study files never need them, and refusing them makes
+    "billion laughs" inputs fail at once instead of exhausting memory), repeated keys (PyYAML keeps the last one
+    silently), keys that are not text, nesting deeper than ``MAX_YAML_DEPTH`` and numbers that are not finite."""
+
+    def __init__(self, stream: str) -> None:
+        super().__init__(stream)
+        self._depth = 0
 
     def compose_node(self, parent: Any, index: Any) -> Any:
         if self.check_event(yaml.AliasEvent):
@@ -45,8 +64,57 @@ class _NoAliasLoader(yaml.SafeLoader):
             raise yaml.constructor.ConstructorError(
                 None, None, "anchors and aliases (&name, *name) are not allowed in a study file", event.start_mark
             )
-        return super().compose_node(parent, index)
+        self._depth += 1
+        try:
+            if self._depth > MAX_YAML_DEPTH:
+                raise _Refusal(f"nested more than {MAX_YAML_DEPTH} levels deep", self.peek_event().start_mark)
+            return super().compose_node(parent, index)
+        finally:
+            self._depth -= 1
 
+    def construct_mapping(self, node: yaml.MappingNode, deep: bool = False) -> dict:
+        first_line: dict[str, int] = {}
+        for key_node, _ in node.value:
+            if key_node.tag == "tag:yaml.org,2002:merge":
+                continue
+            if not isinstance(key_node, yaml.ScalarNode):
+                raise _Refusal("a key is a list or a mapping", key_node.start_mark, "keys are names")
+            key = self.construct_object(key_node)
+            if not isinstance(key, str):
+                read_as = "empty (null)" if key is None else f"{type(key).__name__} {key!r}"
+                raise _Refusal(
+                    f"key '{excerpt(key_node.value)}' is read as {read_as}, not as a name",
+                    key_node.start_mark,
+                    "put the key in quotes",
+                )
+            line = key_node.start_mark.line + 1
+            if key in first_line:
+                first = "earlier on the same line" if first_line[key] == line else f"first on line {first_line[key]}"
+                raise _Refusal(f"key '{excerpt(key)}' appears twice ({first})", key_node.start_mark)
+            first_line[key] = line
+        return super().construct_mapping(node, deep)
+
+
+def _finite_float(loader: _NoAliasLoader, node: yaml.ScalarNode) -> float:
+    """A float that is finite (YAML reads .inf, .nan and 1e999 as numbers that no prior or setting can use)."""
+    value = loader.construct_yaml_float(node)
+    if not math.isfinite(value):
+        raise _Refusal(f"'{excerpt(node.value)}' is not a finite number", node.start_mark)
+    return value
+
+
+def _float_sized_int(loader: _NoAliasLoader, node: yaml.ScalarNode) -> int:
+    """An integer that a float can hold (every number here ends up as one)."""
+    try:
+        value = loader.construct_yaml_int(node)
+        float(value)
+    except (ValueError, OverflowError):
+        raise _Refusal(f"'{excerpt(node.value)}' is too large a number", node.start_mark) from None
+    return value
+
+
+_NoAliasLoader.add_constructor("tag:yaml.org,2002:float", _finite_float)
+_NoAliasLoader.add_constructor("tag:yaml.org,2002:int", _float_sized_int)
 
 # PyYAML follows YAML 1.1, which reads 1e6 and 2.5e-3 without a dot or an exponent sign as strings; YAML 1.2
 # (and every user) reads them as numbers. This resolver adds the 1.2 float forms to our loader only.
@@ -58,27 +126,15 @@ _NoAliasLoader.add_implicit_resolver(
 
 
 def read_yaml(path: Path) -> Any:
-    """Read a YAML file safely, turning every reading problem into a one-line ``StudyError``."""
-    where = str(path)
-    if not path.exists():
-        raise StudyError(where, "file not found")
-    if path.is_dir():
-        raise StudyError(where, "is a folder, not a file")
-    try:
-        size = path.stat().st_size
-        if size > MAX_STUDY_BYTES:
-            raise StudyError(where, f"is {size} bytes; a study file is at most {MAX_STUDY_BYTES} bytes")
-        raw = path.read_bytes()
-    except PermissionError:
-        raise StudyError(where, "cannot be read (permission denied)") from None
-    try:
-        text = raw.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise StudyError(where, f"is not UTF-8 text (byte {exc.start})") from None
+    """Read a YAML file (study or scenarios) safely, turning every reading problem into a one-line ``StudyError``."""
+    where = shown_path(path)
+    text = read_text(path, "YAML file", MAX_STUDY_BYTES)
     if not text.strip():
         raise StudyError(where, "is empty")
     try:
         return yaml.load(text, Loader=_NoAliasLoader)
+    except _Refusal as exc:
+        raise StudyError(f"{where}: line {exc.problem_mark.line + 1}", exc.problem, exc.hint) from None
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         line = f"line {mark.line + 1}" if mark is not None else "YAML"
@@ -86,7 +142,7 @@ def read_yaml(path: Path) -> Any:
         hint = None
         if "\t" in text and ("tab" in str(exc).lower() or "found character" in str(exc)):
             hint = "YAML indentation must use spaces, not tabs"
-        raise StudyError(f"{where}: {line}", f"YAML syntax error: {problem}", hint) from None
+        raise StudyError(f"{where}: {line}", f"YAML syntax error: {excerpt(problem, 120)}", hint) from None
 
 
 def lists_to_tuples(value: Any) -> Any:
@@ -103,7 +159,7 @@ def _key_path(loc: tuple) -> str:
         if isinstance(part, int):
             text += f"[{part}]"
         else:
-            text += f".{part}" if text else str(part)
+            text += f".{excerpt(part)}" if text else excerpt(part)
     return text or "(top level)"
 
 
@@ -173,7 +229,7 @@ def format_validation_error(
         problem = str(first["msg"]).removeprefix("Value error, ")
     else:
         given = first.get("input")
-        shown = "" if isinstance(given, dict | tuple) else f" (got {given!r})"
+        shown = "" if isinstance(given, dict | tuple) else f" (got {excerpt(repr(given))})"
         problem = f"{first['msg']}{shown}"
     return StudyError(f"{where}: {path}", problem + more, hint)
 
@@ -200,8 +256,7 @@ def _resolve_paths(file: StudyFile, base: Path, where: str) -> tuple[tuple[str, 
         if name is None:
             continue
         path = Path(name)
-        path = (path if path.is_absolute() else base / path).resolve()
-        resolved.append((role, path))
+        resolved.append((role, resolve(path if path.is_absolute() else base / path)))
     return tuple(resolved)
 
 

@@ -6,7 +6,9 @@ are blank or not numbers, and values that cannot be right. Errors name the file,
 
 from __future__ import annotations
 
+import csv
 import difflib
+import io
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -15,54 +17,115 @@ import pandas as pd
 
 from . import units
 from .errors import StudyError
+from .files import excerpt, read_text, shown_path
 from .study import Study
 
-#: A data file larger than this is refused before it is read (a lab data set is kilobytes to megabytes).
+#: A data file larger than this (decompressed) is refused (a lab data set is kilobytes to megabytes).
 MAX_DATA_BYTES = 100_000_000
-#: Rows a data table may have; counted on the raw bytes before parsing, so huge files fail at once.
+#: Rows a data table may have; lines are counted while the file is read, so huge files fail at once.
 MAX_DATA_ROWS = 200_000
 #: Columns that every table may carry and that Arrhenia ignores.
 FREE_COLUMNS = frozenset({"comment", "note"})
 
 
+class _Lines:
+    """The lines of a CSV text for ``csv.reader``, skipping blank lines and whole-line ``#`` comments where a
+    record starts (never inside a quoted cell that spans lines), and counting the lines handed out."""
+
+    def __init__(self, text: str) -> None:
+        self._lines = io.StringIO(text, newline="").readlines()  # breaks at \n, \r\n and \r only, as csv does
+        self.consumed = 0
+        self.record_start = True
+        self.first = 0
+
+    def __iter__(self) -> _Lines:
+        return self
+
+    def __next__(self) -> str:
+        while self.consumed < len(self._lines):
+            line = self._lines[self.consumed]
+            self.consumed += 1
+            if self.record_start and (not line.strip() or line.lstrip().startswith("#")):
+                continue
+            if self.record_start:
+                self.record_start, self.first = False, self.consumed
+            return line
+        raise StopIteration
+
+
+def _records(text: str, where: str) -> list[tuple[int, list[str]]]:
+    """(line, cells) of every record of a CSV text, cells stripped; quoted cells may hold commas, ``#`` and line
+    breaks."""
+    lines = _Lines(text)
+    reader = csv.reader(lines, skipinitialspace=True)
+    records = []
+    while True:
+        lines.record_start = True
+        try:
+            cells = next(reader)
+        except StopIteration:
+            return records
+        except csv.Error as exc:
+            limit = csv.field_size_limit()
+            problem = f"a cell is longer than {limit} characters" if "field limit" in str(exc) else f"not CSV ({exc})"
+            raise StudyError(f"{where}: line {lines.consumed}", problem) from None
+        records.append((lines.first, [cell.strip() for cell in cells]))
+
+
+def _header(cells: list[str], line: int, where: str) -> list[str]:
+    """Check the header line's names: none empty, none twice."""
+    at = f"{where}: line {line}"
+    for position, name in enumerate(cells):
+        if name == "":
+            if position == len(cells) - 1 and position > 0:
+                raise StudyError(at, "the header line ends with a trailing comma (an empty column name)")
+            raise StudyError(at, f"column {position + 1} has an empty name")
+    first: dict[str, int] = {}
+    for position, name in enumerate(cells, start=1):
+        if name in first:
+            raise StudyError(at, f"column '{excerpt(name)}' appears twice (columns {first[name]} and {position})")
+        first[name] = position
+    return cells
+
+
 def read_table(path: Path, required: set[str], optional: set[str] = frozenset()) -> pd.DataFrame:
-    """Read a CSV as text, check its columns, and return it with a ``line`` column (1 = the header line)."""
-    where = str(path)
-    if not path.exists():
-        raise StudyError(where, "data file not found", "paths in a study file are relative to the study file")
-    if path.is_dir():
-        raise StudyError(where, "is a folder, not a data file")
-    try:
-        size = path.stat().st_size
-        if size > MAX_DATA_BYTES:
-            raise StudyError(where, f"is {size} bytes, more than the {MAX_DATA_BYTES} bytes a data file may have")
-        with path.open("rb") as handle:
-            lines = sum(block.count(b"\n") for block in iter(lambda: handle.read(1 << 20), b""))
-        if lines > MAX_DATA_ROWS + 1:
-            raise StudyError(where, f"has {lines} lines, more than the {MAX_DATA_ROWS} rows a data table may have")
-        frame = pd.read_csv(path, dtype=str, keep_default_na=False, skipinitialspace=True, comment="#")
-    except PermissionError:
-        raise StudyError(where, "cannot be read (permission denied)") from None
-    except pd.errors.EmptyDataError:
-        raise StudyError(where, "is empty", "the first line names the columns") from None
-    except (pd.errors.ParserError, UnicodeDecodeError) as exc:
-        raise StudyError(where, f"is not a readable CSV table ({str(exc).splitlines()[0]})") from None
-    frame.columns = [str(c).strip() for c in frame.columns]
+    """Read a CSV as text, check its columns and the number of cells on every line, and return it with a
+    ``line`` column (the line of each row in the file; 1 is the first line)."""
+    where = shown_path(path)
+    text = read_text(
+        path,
+        "data file",
+        MAX_DATA_BYTES,
+        max_rows=MAX_DATA_ROWS,
+        decompress=True,
+        missing_hint="paths in a study file are relative to the study file",
+    )
+    records = _records(text, where)
+    if not records:
+        raise StudyError(where, "is empty", "the first line names the columns")
+    header_line, header = records[0]
+    columns = _header(header, header_line, where)
     known = required | optional | FREE_COLUMNS
-    for column in frame.columns:
+    for column in columns:
         if column not in known:
             close = difflib.get_close_matches(column, sorted(required | optional), n=1, cutoff=0.6)
             hint = f"did you mean '{close[0]}'?" if close else f"known columns: {', '.join(sorted(known))}"
-            raise StudyError(where, f"unknown column '{column}'", hint)
-    if len(set(frame.columns)) != len(frame.columns):
-        raise StudyError(where, "a column name appears twice")
-    missing = sorted(required - set(frame.columns))
+            raise StudyError(where, f"unknown column '{excerpt(column)}'", hint)
+    missing = sorted(required - set(columns))
     if missing:
         raise StudyError(where, f"missing column '{missing[0]}'", f"the columns are: {', '.join(sorted(required))}")
-    if frame.empty:
+    rows = records[1:]
+    if not rows:
         raise StudyError(where, "has a header but no data rows")
-    frame = frame.map(lambda cell: cell.strip() if isinstance(cell, str) else cell)
-    frame.insert(0, "line", np.arange(2, len(frame) + 2))
+    for line, cells in rows:
+        if len(cells) != len(columns):
+            if len(cells) == len(columns) + 1 and cells[-1] == "":
+                problem = "ends with a trailing comma"
+            else:
+                problem = f"has {len(cells)} cell{'s' * (len(cells) != 1)} but the header names {len(columns)} columns"
+            raise StudyError(f"{where}: line {line}", problem, "every line has one cell per column of the header")
+    frame = pd.DataFrame([cells for _, cells in rows], columns=columns, dtype=str)
+    frame.insert(0, "line", np.array([line for line, _ in rows], dtype=int))
     return frame
 
 
@@ -79,9 +142,9 @@ def numeric_column(
                 continue
             raise StudyError(f"{where}: line {line}, column '{column}'", "cell is blank")
         if not np.isfinite(value):
-            raise StudyError(f"{where}: line {line}, column '{column}'", f"'{cell}' is not a finite number")
+            raise StudyError(f"{where}: line {line}, column '{column}'", f"'{excerpt(cell)}' is not a finite number")
         if positive and value <= 0:
-            raise StudyError(f"{where}: line {line}, column '{column}'", f"{cell} must be positive")
+            raise StudyError(f"{where}: line {line}, column '{column}'", f"{excerpt(cell)} must be positive")
     return values
 
 
@@ -135,7 +198,7 @@ def read_rate_constants(study: Study) -> RateConstantData:
                 hint = f"did you mean '{close[0]}'?" if close else f"the study's reactions: {', '.join(names)}"
                 raise StudyError(
                     f"{where}: line {frame['line'].iloc[row]}, column 'reaction'",
-                    f"'{label}' is not a reaction of the study",
+                    f"'{excerpt(label)}' is not a reaction of the study",
                     hint,
                 )
             index[row] = names.index(label)
@@ -251,7 +314,7 @@ def read_runs(study: Study) -> Runs:
         if label in seen:
             raise StudyError(
                 f"{where}: line {frame['line'].iloc[row]}, column 'run'",
-                f"run '{label}' appears twice (first on line {seen[label]})",
+                f"run '{excerpt(label)}' appears twice (first on line {seen[label]})",
             )
         seen[label] = int(frame["line"].iloc[row])
     raw = numeric_column(frame, "temperature", where)
@@ -311,7 +374,7 @@ def read_observations(study: Study) -> Observations:
             close = difflib.get_close_matches(label, run_ids, n=1)
             hint = f"did you mean '{close[0]}'?" if close else f"the runs file has: {', '.join(run_ids[:8])}"
             raise StudyError(
-                f"{where}: line {lines[row]}, column 'run'", f"run '{label}' is not in {runs_path.name}", hint
+                f"{where}: line {lines[row]}, column 'run'", f"run '{excerpt(label)}' is not in {runs_path.name}", hint
             )
         if time[row] < 0:
             raise StudyError(f"{where}: line {lines[row]}, column 'time'", "time cannot be negative")
@@ -324,7 +387,9 @@ def read_observations(study: Study) -> Observations:
                 close = difflib.get_close_matches(name, species, n=1)
                 hint = f"did you mean '{close[0]}'?" if close else f"the study's species: {', '.join(species)}"
                 raise StudyError(
-                    f"{where}: line {lines[row]}, column 'species'", f"'{name}' is not a species of the study", hint
+                    f"{where}: line {lines[row]}, column 'species'",
+                    f"'{excerpt(name)}' is not a species of the study",
+                    hint,
                 )
             records.append((run_ids.index(labels[row]), time[row], species.index(name), values[row], lines[row]))
     else:
@@ -355,7 +420,7 @@ def read_observations(study: Study) -> Observations:
     measured_runs = set(run_index.tolist())
     for r, label in enumerate(run_ids):
         if r not in measured_runs:
-            raise StudyError(f"{runs_path}", f"run '{label}' has no measurements in {path.name}")
+            raise StudyError(f"{runs_path}", f"run '{excerpt(label)}' has no measurements in {path.name}")
     times = tuple(np.unique([rec[1] for rec in records if rec[0] == r]) for r in range(len(run_ids)))
     time_index = np.array([int(np.searchsorted(times[rec[0]], rec[1])) for rec in records], dtype=int)
     return Observations(

@@ -25,6 +25,7 @@ import numpy as np
 from scipy.integrate import solve_ivp
 
 from .arrhenius import ln_rate_constant
+from .errors import StudyError
 
 NETWORK_SEED = 20261202
 T_REF_K = 333.15  # 60 degC, where the true k values below are stated
@@ -287,22 +288,35 @@ def simulate_catalyst(seed: int = CATALYST_SEED) -> tuple[list[str], list[str]]:
     return runs, measurements
 
 
-def write_demo(folder: Path) -> Path:
+def write_demo(folder: Path, replace: bool = False) -> Path:
     """Write the demo studies (network, its competing candidate, rate constants, catalyst lots) and their data
-    into ``folder``;
-    returns the network study's path."""
-    folder.mkdir(parents=True, exist_ok=True)
+    into ``folder``; returns the network study's path. A file of the same name with other content (the user's
+    own) is never replaced unless ``replace`` (the generator of ``data_demo/``): ``StudyError`` before anything
+    is written."""
     runs, measurements = simulate_network()
-    (folder / RUNS_FILE).write_text("\n".join(runs) + "\n")
-    (folder / MEASUREMENTS_FILE).write_text("\n".join(measurements) + "\n")
-    (folder / STUDY_FILE).write_text(STUDY_TEXT)
-    (folder / ALTERNATIVE_STUDY_FILE).write_text(ALTERNATIVE_STUDY_TEXT)
-    (folder / SCENARIOS_FILE).write_text(SCENARIOS_TEXT)
-    lines = ["temperature,k"] + [f"{t:g},{k:.6g}" for t, k in simulate_rate_constants()]
-    (folder / RATE_CONSTANTS_FILE).write_text("\n".join(lines) + "\n")
-    (folder / RATE_STUDY_FILE).write_text(RATE_STUDY_TEXT)
     catalyst_runs, catalyst_measurements = simulate_catalyst()
-    (folder / CATALYST_RUNS_FILE).write_text("\n".join(catalyst_runs) + "\n")
-    (folder / CATALYST_MEASUREMENTS_FILE).write_text("\n".join(catalyst_measurements) + "\n")
-    (folder / CATALYST_STUDY_FILE).write_text(CATALYST_STUDY_TEXT)
+    texts = {
+        RUNS_FILE: "\n".join(runs) + "\n",
+        MEASUREMENTS_FILE: "\n".join(measurements) + "\n",
+        STUDY_FILE: STUDY_TEXT,
+        ALTERNATIVE_STUDY_FILE: ALTERNATIVE_STUDY_TEXT,
+        SCENARIOS_FILE: SCENARIOS_TEXT,
+        RATE_CONSTANTS_FILE: "\n".join(["temperature,k"] + [f"{t:g},{k:.6g}" for t, k in simulate_rate_constants()])
+        + "\n",
+        RATE_STUDY_FILE: RATE_STUDY_TEXT,
+        CATALYST_RUNS_FILE: "\n".join(catalyst_runs) + "\n",
+        CATALYST_MEASUREMENTS_FILE: "\n".join(catalyst_measurements) + "\n",
+        CATALYST_STUDY_FILE: CATALYST_STUDY_TEXT,
+    }
+    for name, text in texts.items():
+        path = folder / name
+        if replace:
+            continue
+        if path.is_symlink() or (path.exists() and (not path.is_file() or path.read_bytes() != text.encode())):
+            raise StudyError(
+                str(path), "exists and is not the demo's file, so it is not replaced", "choose another --out"
+            )
+    folder.mkdir(parents=True, exist_ok=True)
+    for name, text in texts.items():
+        (folder / name).write_text(text)
     return folder / STUDY_FILE

@@ -11,7 +11,6 @@ import datetime as _dt
 import json
 import platform
 import sys
-import tempfile
 import time
 from dataclasses import dataclass, replace
 from importlib import metadata
@@ -29,8 +28,9 @@ from .diagnostics import Diagnostics, assess
 from .errors import StudyError
 from .problems import Problem, open_problem
 from .reporting import CAUTION
-from .results import StagedFolder, check_target, sha256_file, sha256_json
-from .sampling import sample_posterior
+from .results import StagedFolder, binding_differences, check_target, read_manifest, reserve, sha256_file, sha256_json
+from .sampling import sample_posterior, scratch_folder
+from .schema import Sampling
 from .study import Study
 from .summaries import correlation_table, derived_quantities, extrapolation_notes, summary_table
 
@@ -141,7 +141,18 @@ def fit_study(
     }
     sampling = study.sampling.model_validate({**study.sampling.model_dump(), **overrides})
     target = Path(out) if out is not None else default_results_dir(study)
-    check_target(target, overwrite)
+    with reserve(target, overwrite, study_inputs(study)):
+        return _fit(study, target, sampling, overwrite, quiet, command_line, steps)
+
+
+def study_inputs(study: Study) -> tuple[Path, ...]:
+    """The files a study reads: no results folder may be or contain one of them."""
+    return (study.path, *(path for _, path in study.data_files))
+
+
+def _fit(
+    study: Study, target: Path, sampling: Sampling, overwrite: bool, quiet: bool, command_line: str | None, steps: Steps
+) -> FitResult:
     problem = open_problem(study)
     temperature_ref = study.reference_temperature_K or auto_reference_temperature(problem.temperatures_K)
     steps.done("validated study and data", f"{problem.summary_line()}, T_ref = {temperature_ref:.2f} K")
@@ -149,15 +160,15 @@ def fit_study(
     for note in notes:
         steps.say(f"warning: {note}")
 
-    with tempfile.TemporaryDirectory(prefix="arrhenia-") as scratch:
-        failure_log = Path(scratch) / "solver-failures"
+    with scratch_folder() as scratch:
+        failure_log = scratch / "solver-failures"
         model = problem.build_model(temperature_ref, failure_log)
         _check_start(model, problem, temperature_ref)
         steps.done("built model")
         idata, failures = sample_posterior(model, sampling, progress=not quiet, failure_log=failure_log)
     steps.done("sampled", f"{sampling.chains} chains x {sampling.draws} draws after {sampling.tune} tuning")
 
-    diagnostics = assess(idata, problem.kinetic_var_names(idata), solver_failures=failures)
+    diagnostics = assess(idata, problem.kinetic_var_names(idata), solver_failures=failures, problem=problem)
     quantities = derived_quantities(study, idata.posterior, temperature_ref)
     result = FitResult(
         study=study,
@@ -266,7 +277,7 @@ def _write(
         "extrapolations": result.extrapolations,
         "warnings": [*study.warnings, *problem.warnings()],
     }
-    with StagedFolder(result.results_dir, overwrite) as folder:
+    with StagedFolder(result.results_dir, overwrite, study_inputs(study)) as folder:
         folder.write_csv("summary.csv", result.summary)
         for name, table in result.tables.items():
             folder.write_csv(name, table)
@@ -278,7 +289,6 @@ def _write(
         plots.pair_plot(_pair_columns(quantities), folder.path("figures/pair.png"), seed=sampling["seed"])
         plots.prior_posterior_plot(study, idata.posterior, folder.path("figures/prior_posterior.png"))
         folder.write_text("study.yaml", resolved_study_yaml(study, result.reference_temperature_K, sampling))
-        folder.write_json("manifest.json", manifest)
         order = ["arrhenius.png", "pair.png", "prior_posterior.png"]
         names = sorted(
             (p.name for p in folder.path("figures").iterdir()),
@@ -299,6 +309,7 @@ def _write(
                 figures=[(f"figures/{n}", plots.caption(n)) for n in names],
             ),
         )
+        folder.write_manifest(manifest)
 
 
 def provenance(study: Study) -> dict:
@@ -310,20 +321,27 @@ def provenance(study: Study) -> dict:
 
 
 def provenance_differences(folder: Path, study: Study) -> list[str]:
-    """What differs between the results in ``folder`` and this study with its data now (empty: they match)."""
+    """What differs between the results in ``folder`` and this study with its data now (empty: they match).
+
+    The folder's own files are checked too: a posterior or resolved study that is not the one the fit wrote
+    (by the sha256 its manifest recorded) is a difference.
+    """
+    folder = Path(folder)
+    if not folder.is_dir():
+        return [f"{folder} is not a folder (no results there)"]
     manifest_path = folder / "manifest.json"
     if not (manifest_path.is_file() and (folder / "posterior.nc").is_file()):
-        return [f"{folder} is not a complete results folder"]
+        return [f"{folder} is not a complete results folder (manifest.json or posterior.nc is missing)"]
+    manifest = read_manifest(folder)
     try:
-        manifest = json.loads(manifest_path.read_text())
         recorded = {
-            "config_sha256": manifest["config_sha256"],
-            "data": {role: entry["sha256"] for role, entry in manifest["data"].items()},
+            "config_sha256": str(manifest["config_sha256"]),
+            "data": {str(role): str(entry["sha256"]) for role, entry in manifest["data"].items()},
         }
-    except (ValueError, KeyError, TypeError):
-        return [f"{manifest_path} is not a manifest Arrhenia wrote"]
+    except (KeyError, TypeError, AttributeError):
+        return [f"{manifest_path} is not a fit manifest Arrhenia wrote"]
+    differences = binding_differences(folder, manifest)
     now = provenance(study)
-    differences = []
     if recorded["config_sha256"] != now["config_sha256"]:
         differences.append("the validated study differs (priors, reactions, units or sampling settings)")
     for role in sorted(set(recorded["data"]) | set(now["data"])):
@@ -346,6 +364,8 @@ class ComparisonResult:
     verdict: list[str]
     candidates: dict[str, Path]
     verdicts: dict[str, str]
+    notes: list[str]
+    trusted: bool
 
 
 def _fit_overrides(sampling: dict) -> dict:
@@ -408,14 +428,21 @@ def compare_studies(
         raise StudyError("compare", "needs two or more candidates")
     sampling = {"draws": draws, "tune": tune, "chains": chains, "seed": seed, "cores": cores}
     target = Path(out) if out is not None else Path(root) / "comparison"
-    check_target(target, overwrite)
+    inputs = tuple(Path(s) for s in sources)
+    check_target(target, overwrite, inputs)
     if workers is not None and workers > 1:
         from .batch import run_batch
 
         files = [Path(s) for s in sources if not Path(s).is_dir()]
         steps.say(f"fitting {len(files)} candidate(s) on a local Dask cluster of {workers} workers")
         batch = run_batch(
-            files, root=root, workers=workers, overwrite=overwrite, quiet=quiet, **_fit_overrides(sampling)
+            files,
+            root=root,
+            workers=workers,
+            overwrite=overwrite,
+            quiet=quiet,
+            command_line=command_line,
+            **_fit_overrides(sampling),
         )
         failed = batch.table[~batch.table["status"].isin(["fitted", "up to date", "not converged"])]
         if not failed.empty:
@@ -447,10 +474,8 @@ def compare_studies(
     table = comparison.compare(named, groups)
     sentences = comparison.verdict(table)
     steps.done("compared", f"{len(names)} candidates")
-    verdicts = {}
-    for name, _, _, folder in loaded:
-        verdicts[name] = json.loads((folder / "diagnostics.json").read_text()).get("verdict", "unknown")
-    result = ComparisonResult(target, table, sentences, {n: f for n, _, _, f in loaded}, verdicts)
+    verdicts, notes, trusted = _candidate_verdicts(loaded, table)
+    result = ComparisonResult(target, table, sentences, {n: f for n, _, _, f in loaded}, verdicts, notes, trusted)
     manifest = {
         "arrhenia_version": __version__,
         "created": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
@@ -465,29 +490,51 @@ def compare_studies(
         ),
         "versions": _versions(),
     }
-    with StagedFolder(target, overwrite) as folder:
+    with StagedFolder(target, overwrite, inputs) as folder:
         folder.write_csv("comparison.csv", table)
         folder.write_text("verdict.txt", "\n".join(sentences) + "\n")
         plots.comparison_plot(table, folder.path("figures/comparison.png"))
-        folder.write_json("manifest.json", manifest)
-        untrusted = [
-            f"The diagnostics of {n} are '{v}': its numbers are not to be trusted."
-            for n, v in verdicts.items()
-            if v != "pass"
-        ]
         folder.write_text(
             "report.html",
             report.simple_report(
                 folder.stage,
                 title="Arrhenia comparison: " + ", ".join(names),
-                intro=sentences + untrusted,
+                intro=sentences + notes,
                 tables=[("Comparison (PSIS-LOO; stacking weights)", table)],
                 figures=[("figures/comparison.png", plots.caption("comparison.png"))],
                 cautions=[],
             ),
         )
+        folder.write_manifest(manifest)
     steps.done("wrote comparison", str(target))
     return result
+
+
+def _candidate_verdicts(loaded: list, table: pd.DataFrame) -> tuple[dict[str, str], list[str], bool]:
+    """Each candidate's verdict, a sentence for each that is not 'pass', and whether the comparison is to be
+    trusted: every sampler converged and the preferred candidate describes the data. A losing candidate that
+    misfits is what a comparison is for, not a reason to distrust it."""
+    verdicts, notes, sampler_ok = {}, [], True
+    for name, _, _, folder in loaded:
+        try:
+            saved = json.loads((folder / "diagnostics.json").read_text())
+        except (OSError, ValueError):
+            saved = {}
+        verdicts[name] = str(saved.get("verdict", "unknown"))
+        sampler = str(saved.get("sampler_verdict", verdicts[name]))
+        if sampler != "pass":
+            sampler_ok = False
+            notes.append(
+                f"The sampler of {name} ended '{sampler}': its numbers, and this comparison, are not to be trusted."
+            )
+        elif verdicts[name] != "pass":
+            notes.append(f"{name} does not describe the data well (misfit; see its diagnostics.json).")
+    pointwise = table[table["level"] == "pointwise"].sort_values("rank")
+    best = str(pointwise["candidate"].iloc[0]) if not pointwise.empty else None
+    best_fits = best is None or verdicts.get(best) == "pass"
+    if sampler_ok and not best_fits:
+        notes.append(f"The preferred candidate {best} misfits too: none of the candidates describes the data.")
+    return verdicts, notes, sampler_ok and best_fits
 
 
 @dataclass(frozen=True)
@@ -515,7 +562,7 @@ def prior_predictive_check(
 
     quiet_backend_logs()
     target = Path(out) if out is not None else Path("results") / f"{study.name}-prior-predictive"
-    check_target(target, overwrite)
+    check_target(target, overwrite, study_inputs(study))
     problem = open_problem(study)
     temperature_ref = study.reference_temperature_K or auto_reference_temperature(problem.temperatures_K)
     model = problem.build_model(temperature_ref)
@@ -525,11 +572,22 @@ def prior_predictive_check(
     stand_in = az.InferenceData(posterior_predictive=prior.prior_predictive)
     table = problem.fit_checks(stand_in)
     inside = float(table["inside_90"].mean())
-    with StagedFolder(target, overwrite) as folder:
+    with StagedFolder(target, overwrite, study_inputs(study)) as folder:
         folder.write_csv("prior_predictive.csv", table)
         plots.predictive_check_plot(
             table,
             folder.path("figures/prior_predictive.png"),
             f"{study.name}: data against the priors' 90 % predictive intervals",
+        )
+        folder.write_manifest(
+            {
+                "arrhenia_version": __version__,
+                "kind": "prior predictive check",
+                "study": study.name,
+                "created": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
+                "config_sha256": sha256_json(study.canonical),
+                "draws": draws,
+                "seed": study.sampling.seed,
+            }
         )
     return PriorPredictiveCheck(target, draws, inside, table)

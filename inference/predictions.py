@@ -502,7 +502,8 @@ def predict(
         file = load_scenarios(Path(scenarios), study)
         source = {"path": str(Path(scenarios).resolve()), "sha256": sha256_file(Path(scenarios))}
     target = Path(out) if out is not None else results_dir / "predictions"
-    check_target(target, overwrite)
+    inputs = (results_dir,) if isinstance(scenarios, ScenarioFile) else (results_dir, Path(scenarios))
+    check_target(target, overwrite, inputs)
     attrs = json.loads(idata.posterior.attrs["arrhenia"])
     posterior = idata.posterior
     picks = pick_draws(posterior, draws or file.draws)
@@ -525,7 +526,7 @@ def predict(
     summary = pd.DataFrame(summary_rows, columns=SUMMARY_COLUMNS)
     notes = predictor.notes
     result = PredictionResult(target, profiles, summary, [n for n in notes if n.startswith("EXTRAPOLATED")])
-    with StagedFolder(target, overwrite) as folder:
+    with StagedFolder(target, overwrite, inputs) as folder:
         for name, table in profiles.items():
             folder.write_csv(f"{name}.csv", table)
             plots.prediction_plot(name, table, folder.path(f"{name}.png"), scenario_units.time)
@@ -545,14 +546,14 @@ def predict(
                 cautions=[*notes, CAUTION],
             ),
         )
-        folder.write_json(
-            "manifest.json",
+        folder.write_manifest(
             {
                 "arrhenia_version": __version__,
                 "created": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
                 "command_line": command_line or " ".join(sys.argv),
                 "results": str(results_dir),
                 "results_config_sha256": manifest.get("config_sha256"),
+                "results_posterior_sha256": manifest["files"]["posterior.nc"],
                 "scenarios": source,
                 "draws": int(parameter.size),
                 "fitted_temperature_range_K": list(predictor.measured),

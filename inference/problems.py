@@ -17,7 +17,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from . import closed_form, plots, units
+from . import closed_form, plausibility, plots, units
 from .arrhenius import ln_rate_constant
 from .config import Z95
 from .data import Observations, RateConstantData, read_observations, read_rate_constants
@@ -171,7 +171,8 @@ class RateConstantProblem:
         return f"{len(self.study.reactions)} reaction(s), {self.data.k.size} measured rate constants"
 
     def warnings(self) -> list[str]:
-        return []
+        """Values that are valid but almost surely wrong (units, typos, copies, stated errors)."""
+        return plausibility.rate_constant_warnings(self.study, self.data, self.measurement_label)
 
     def check_lines(self) -> list[str]:
         lines = [f"  data: {self.data.k.size} measured rate constants from {self.data.path}"]
@@ -243,7 +244,8 @@ class NetworkProblem:
         )
 
     def warnings(self) -> list[str]:
-        """Structural identifiability, as far as the network and the data show it."""
+        """Structural identifiability, as far as the network and the data show it, then values that are valid
+        but almost surely wrong (units, typos)."""
         study, obs = self.study, self.obs
         notes = []
         if np.unique(obs.temperature_K).size < 2:
@@ -267,7 +269,7 @@ class NetworkProblem:
                     f"reaction '{spec.name}' is linked to no measured species: its k_ref and Ea are set by "
                     "their priors alone"
                 )
-        return notes
+        return notes + plausibility.network_warnings(study, obs, self.measurement_label)
 
     def check_lines(self) -> list[str]:
         study, obs = self.study, self.obs

@@ -40,11 +40,18 @@ def fit_report(result: FitResult) -> str:
     lines = [
         "",
         f"diagnostics: {d.verdict.upper()}  (max R-hat {d.r_hat_max:.3f}, min ESS bulk {d.ess_bulk_min:.0f} / "
-        f"tail {d.ess_tail_min:.0f}, {d.divergences} divergences)",
+        f"tail {d.ess_tail_min:.0f}, {d.divergences} divergences, "
+        f"{result.fit_checks['inside_90'].mean():.0%} of measurements inside their 90 % predictive interval)",
     ]
     lines += [f"  - {advice}" for advice in d.advice]
+    if d.misfit:
+        lines.append(
+            f"  misfit: {len(d.misfit)} sign(s) that the model does not describe the data "
+            f"({', '.join(f['check'] for f in d.misfit)}); their numbers are under 'misfit' in diagnostics.json, "
+            "every measurement's check in fit_checks.csv"
+        )
     if d.verdict == "pass":
-        lines.append("  the sampler shows no sign of trouble")
+        lines.append("  the sampler shows no sign of trouble and the model describes the data")
     table = result.summary[["parameter", "unit", "median", "q05", "q95", "r_hat"]]
     lines += ["", "posterior (median and 90 % interval):", table.to_string(index=False, float_format="{:.4g}".format)]
     if "classical.csv" in result.tables:
@@ -74,9 +81,7 @@ def comparison_report(result: ComparisonResult) -> str:
         "",
     ]
     lines += result.verdict
-    for name, verdict in result.verdicts.items():
-        if verdict != "pass":
-            lines.append(f"warning: the diagnostics of {name} are '{verdict}'; its numbers are not to be trusted")
+    lines += [f"warning: {note}" for note in result.notes]
     lines += ["", f"comparison: {result.results_dir}"]
     return "\n".join(lines)
 

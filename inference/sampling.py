@@ -2,9 +2,18 @@
 
 from __future__ import annotations
 
+import ctypes
 import logging
+import multiprocessing.context
 import os
+import re
+import shutil
+import signal
+import sys
+import tempfile
 import warnings
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 
 import arviz as az
@@ -14,10 +23,97 @@ from pymc.blocking import DictToArrayBijection, RaveledVars
 from pymc.step_methods.hmc.quadpotential import QuadPotentialDiagAdapt
 from scipy.optimize import minimize
 
+from .results import HOST as _HOST
+from .results import pid_alive
 from .schema import Sampling
 
 #: Weight, in draws, of the Laplace variances in the first window of mass-matrix adaptation.
 LAPLACE_WEIGHT = 10
+
+_PR_SET_PDEATHSIG = 1  # from <linux/prctl.h>
+
+
+def _die_with_parent(creator: int) -> None:
+    """In a new chain process: ask Linux to SIGKILL it when its parent dies, so a ``kill -9`` of a fit leaves
+    no chain running on (each holds hundreds of MB). A no-op where prctl is missing."""
+    try:
+        prctl = ctypes.CDLL(None, use_errno=True).prctl
+    except (OSError, AttributeError):
+        return
+    if prctl(_PR_SET_PDEATHSIG, signal.SIGKILL, 0, 0, 0) != 0:
+        return
+    if os.getppid() != creator:  # the parent died before the request took effect
+        os._exit(1)
+
+
+class _ChainProcess(multiprocessing.context.ForkProcess):
+    """A forked chain process that dies with the process that forked it (Linux).
+
+    The death signal follows the *thread* that forked the child; PyMC forks from the thread that calls
+    ``pm.sample`` and waits in it until the chains end, so that thread outlives them.
+    """
+
+    def __init__(self, *args: object, **kwargs: object) -> None:
+        super().__init__(*args, **kwargs)
+        self._creator = os.getpid()
+        self._mask: set = set()
+
+    def start(self) -> None:
+        # Ctrl-C during the fork would land in at-fork hooks, where Python prints and drops it: the child dies, the
+        # parent samples on unaware and then fails on the child's closed pipe. So it waits until the fork is done.
+        self._mask = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT, signal.SIGTERM})
+        try:
+            super().start()
+        finally:
+            signal.pthread_sigmask(signal.SIG_SETMASK, self._mask)
+
+    def run(self) -> None:
+        _die_with_parent(self._creator)
+        try:
+            signal.pthread_sigmask(signal.SIG_SETMASK, self._mask)
+            super().run()
+        except KeyboardInterrupt:  # the Ctrl-C held back during the fork: the parent has it too and ends the fit
+            return
+
+
+class _ChainContext(multiprocessing.context.ForkContext):
+    Process = _ChainProcess
+
+
+def chain_context() -> multiprocessing.context.BaseContext | None:
+    """The multiprocessing context for PyMC's chain processes: the usual fork context whose processes die
+    with their parent on Linux; None (PyMC's own choice) elsewhere or where fork is not the default."""
+    if not sys.platform.startswith("linux") or multiprocessing.get_start_method(allow_none=False) != "fork":
+        return None
+    return _ChainContext()
+
+
+_SCRATCH = re.compile(r"^arrhenia-(?P<host>[A-Za-z0-9]*)-(?P<pid>\d+)-")
+
+
+@contextmanager
+def scratch_folder() -> Iterator[Path]:
+    """A temporary folder for one fit, ``arrhenia-<host>-<pid>-*`` in the temp folder, removed at its end.
+
+    Folders that fits killed outright (``kill -9``) left behind are removed first: those of this host whose
+    process no longer runs. The host is in the name because processes of other machines or containers that
+    share the temp folder have pids that mean nothing here; their folders are never touched.
+    """
+    root = Path(tempfile.gettempdir())
+    try:
+        entries = list(root.iterdir())
+    except OSError:
+        entries = []
+    for entry in entries:
+        match = _SCRATCH.match(entry.name)
+        if match and match["host"] == _HOST and not pid_alive(int(match["pid"])):
+            try:
+                if entry.is_dir() and not entry.is_symlink() and entry.stat().st_uid == os.getuid():
+                    shutil.rmtree(entry, ignore_errors=True)
+            except OSError:
+                continue
+    with tempfile.TemporaryDirectory(prefix=f"arrhenia-{_HOST}-{os.getpid()}-") as folder:
+        yield Path(folder)
 
 
 def quiet_backend_logs() -> None:
@@ -140,17 +236,24 @@ def sample_posterior(
         if laplace is not None:
             starts, potential = laplace
             extra = {"initvals": starts, "step": pm.NUTS(potential=potential, target_accept=settings.target_accept)}
-        idata = pm.sample(
-            draws=settings.draws,
-            tune=settings.tune,
-            chains=settings.chains,
-            cores=chains_in_parallel(settings.chains, settings.cores),
-            random_seed=settings.seed,
-            progressbar=progress,
-            compute_convergence_checks=False,
-            idata_kwargs={"log_likelihood": True},
-            **extra,
-        )
+        try:
+            idata = pm.sample(
+                draws=settings.draws,
+                tune=settings.tune,
+                chains=settings.chains,
+                cores=chains_in_parallel(settings.chains, settings.cores),
+                random_seed=settings.seed,
+                progressbar=progress,
+                compute_convergence_checks=False,
+                idata_kwargs={"log_likelihood": True},
+                mp_ctx=chain_context(),
+                **extra,
+            )
+        except ValueError as error:
+            # PyMC answers Ctrl-C before the first kept draw with this (draws are at least 10, so nothing else can).
+            if "Not enough samples to build a trace" in str(error):
+                raise KeyboardInterrupt("sampling was interrupted") from None
+            raise
         got = idata.posterior.sizes
         if got.get("chain", 0) < settings.chains or got.get("draw", 0) < settings.draws:
             # PyMC answers Ctrl-C by returning the draws made so far; a partial posterior is never a result.

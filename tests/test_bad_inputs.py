@@ -176,10 +176,10 @@ def test_unreadable_study_file(make_study, run_cli, monkeypatch):
     # CI runs as root, who can read any file, so the refusal of the operating system is simulated.
     path = make_study()
 
-    def refuse(self):
+    def refuse(path):
         raise PermissionError(13, "Permission denied")
 
-    monkeypatch.setattr(type(path), "read_bytes", refuse)
+    monkeypatch.setattr("inference.files._open_for_reading", refuse)
     code, _, stderr = run_cli("check", path)
     assert code == 2
     assert "study.yaml: cannot be read (permission denied)" in stderr

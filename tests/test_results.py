@@ -119,6 +119,8 @@ def test_staged_folder_leaves_earlier_results_on_failure(tmp_path):
     target = tmp_path / "res"
     target.mkdir()
     (target / "summary.csv").write_text("old")
+    # --overwrite replaces only folders Arrhenia wrote: the old folder carries an Arrhenia manifest.
+    (target / "manifest.json").write_text('{"arrhenia_version": "0", "files": {"summary.csv": ""}}')
     with pytest.raises(RuntimeError), StagedFolder(target, overwrite=True) as folder:
         folder.write_text("summary.csv", "new, half written")
         raise RuntimeError("interrupted")
