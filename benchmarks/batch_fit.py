@@ -31,8 +31,8 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from inference import fit_study
-from inference.arrhenius import ln_rate_constant
-from inference.batch import run_batch
+from inference.physics.arrhenius import ln_rate_constant
+from inference.workflows.batch import run_batch
 
 STUDIES = 8
 RUNS_K = (320.0, 335.0, 350.0)

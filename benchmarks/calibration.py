@@ -23,7 +23,8 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from inference.calibration import CalibrationSettings, calibrate, write_calibration
+from inference.posterior.calibration import CalibrationSettings
+from inference.workflows.calibrate import calibrate, write_calibration
 
 
 def main() -> None:

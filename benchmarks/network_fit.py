@@ -119,8 +119,8 @@ def arrhenia_child(folder: str) -> None:
     """Runs in a fresh interpreter: import, fit, and report timings as JSON on the last line."""
     started = time.perf_counter()
     from inference import fit_study, load_study
-    from inference.model import network_solver
-    from inference.problems import open_problem
+    from inference.model.builder import network_solver
+    from inference.workflows.kinds import open_problem
 
     imported = time.perf_counter()
     study = load_study(Path(folder) / "study.yaml")

@@ -8,7 +8,7 @@ k(65 degC) = 0.012 1/min) and the saturating conversion on three catalyst lots (
 
 from pathlib import Path
 
-from inference.demo import write_demo
+from inference.workflows.demo import write_demo
 
 if __name__ == "__main__":
     study = write_demo(Path(__file__).resolve().parent, replace=True)

@@ -9,10 +9,9 @@ from __future__ import annotations
 
 from typing import Any
 
-__version__ = "0.1.0"
-
-from .config import load_study
+from ._version import __version__
 from .errors import ExitCode, StudyError
+from .inputs.config import load_study
 
 __all__ = [
     "ExitCode",
@@ -27,12 +26,20 @@ __all__ = [
 
 
 def __getattr__(name: str) -> Any:
-    if name in {"fit_study", "FitResult", "compare_studies"}:
-        from . import pipeline
+    if name == "fit_study":
+        from .workflows.fit import fit_study
 
-        return getattr(pipeline, name)
+        return fit_study
+    if name == "FitResult":
+        from .outputs.records import FitResult
+
+        return FitResult
+    if name == "compare_studies":
+        from .workflows.compare import compare_studies
+
+        return compare_studies
     if name == "predict":
-        from . import predictions
+        from .workflows.predict import predict
 
-        return predictions.predict
+        return predict
     raise AttributeError(f"module 'inference' has no attribute {name!r}")

@@ -122,8 +122,8 @@ def _parser() -> argparse.ArgumentParser:
 def _check_numbers(args: argparse.Namespace) -> None:
     """Every number on the command line checked as input, before anything is read or written; the limits are
     the schema's (``Sampling`` for sampler settings and prior draws, ``ScenarioFile`` for predictive draws)."""
-    from .batch import check_count, sampling_overrides, schema_limits
-    from .schema import Sampling, ScenarioFile
+    from .inputs.options import check_count, sampling_overrides, schema_limits
+    from .inputs.schema import Sampling, ScenarioFile
 
     if args.command == "predict":
         if args.draws is not None:
@@ -152,9 +152,10 @@ def _run_options(args: argparse.Namespace) -> dict:
 
 
 def _fit_and_report(study_path: Path, args: argparse.Namespace, out: Path | None) -> int:
-    from . import pipeline, reporting
+    from .outputs import reporting
+    from .workflows.fit import fit_study
 
-    result = pipeline.fit_study(study_path, out=out, **_run_options(args))
+    result = fit_study(study_path, out=out, **_run_options(args))
     if not args.quiet:
         print(reporting.fit_report(result))
         if result.predictions is not None:
@@ -163,33 +164,36 @@ def _fit_and_report(study_path: Path, args: argparse.Namespace, out: Path | None
 
 
 def _compare_and_report(candidates: list[Path], args: argparse.Namespace, out: Path | None, root: Path) -> int:
-    from . import pipeline, reporting
+    from .outputs import reporting
+    from .workflows.compare import compare_studies
 
     workers = getattr(args, "workers", None)
-    result = pipeline.compare_studies(candidates, out=out, root=root, workers=workers, **_run_options(args))
+    result = compare_studies(candidates, out=out, root=root, workers=workers, **_run_options(args))
     if not args.quiet:
         print(reporting.comparison_report(result))
     return ExitCode.DONE if result.trusted else ExitCode.UNTRUSTED
 
 
 def _run(args: argparse.Namespace) -> int:
-    from .config import load_study
+    from .inputs.config import load_study
 
     _check_numbers(args)
     if args.command == "schema":
         import json
 
-        from .schema import StudyFile
+        from .inputs.schema import StudyFile
 
         print(json.dumps(StudyFile.model_json_schema(), indent=2))
         return ExitCode.DONE
     if args.command == "check":
-        from . import reporting
+        from .outputs import reporting
 
         study = load_study(args.study)
-        print(reporting.check_report(study))
+        from .workflows.kinds import open_problem
+
+        print(reporting.check_report(study, open_problem(study)))
         if args.prior_predictive:
-            from .pipeline import prior_predictive_check
+            from .workflows.prior_check import prior_predictive_check
 
             check = prior_predictive_check(study, out=args.out, draws=args.draws, overwrite=args.overwrite)
             print(
@@ -200,7 +204,7 @@ def _run(args: argparse.Namespace) -> int:
                 print("warning: the priors hardly allow the data; widen or move them before fitting")
         if args.against is None:
             return ExitCode.DONE
-        from .pipeline import provenance_differences
+        from .workflows.fit import provenance_differences
 
         differences = provenance_differences(args.against, study)
         if not differences:
@@ -212,9 +216,10 @@ def _run(args: argparse.Namespace) -> int:
     if args.command == "fit":
         return _fit_and_report(args.study, args, args.out)
     if args.command == "predict":
-        from . import predictions, reporting
+        from .outputs import reporting
+        from .workflows.predict import predict
 
-        result = predictions.predict(
+        result = predict(
             args.results,
             args.scenarios,
             out=args.out,
@@ -229,7 +234,7 @@ def _run(args: argparse.Namespace) -> int:
     if args.command == "compare":
         return _compare_and_report(args.candidates, args, args.out, args.root)
     if args.command == "batch":
-        from .batch import run_batch
+        from .workflows.batch import run_batch
 
         result = run_batch(
             args.studies,
@@ -251,9 +256,9 @@ def _run(args: argparse.Namespace) -> int:
             )
         return result.exit_code
     if args.command == "demo":
-        from . import predictions, reporting
-        from .demo import ALTERNATIVE_STUDY_FILE, SCENARIOS_FILE, write_demo
-        from .results import check_target, check_writable_parent
+        from .outputs import reporting
+        from .outputs.results import check_target, check_writable_parent
+        from .workflows.demo import ALTERNATIVE_STUDY_FILE, SCENARIOS_FILE, write_demo
 
         out: Path = args.out
         if out.exists() and not out.is_dir():
@@ -274,7 +279,9 @@ def _run(args: argparse.Namespace) -> int:
         )
         if not args.quiet:
             print(f"\nreactor predictions from the fitted posterior ({SCENARIOS_FILE})")
-        predicted = predictions.predict(
+        from .workflows.predict import predict
+
+        predicted = predict(
             results / load_study(study_path).name, out / SCENARIOS_FILE, overwrite=True, quiet=args.quiet
         )
         if not args.quiet:

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from inference.arrhenius import (
+from inference.physics.arrhenius import (
     R,
     auto_reference_temperature,
     linearised_fit,

@@ -179,7 +179,7 @@ def test_unreadable_study_file(make_study, run_cli, monkeypatch):
     def refuse(path):
         raise PermissionError(13, "Permission denied")
 
-    monkeypatch.setattr("inference.files._open_for_reading", refuse)
+    monkeypatch.setattr("inference.inputs.files._open_for_reading", refuse)
     code, _, stderr = run_cli("check", path)
     assert code == 2
     assert "study.yaml: cannot be read (permission denied)" in stderr
@@ -421,7 +421,7 @@ def test_huge_tables_fail_fast(run_cli, tmp_path):
 def test_exponent_numbers_read_as_numbers_as_in_yaml_1_2(tmp_path):
     # YAML 1.2 core schema (yaml.org/spec/1.2.2, sec. 10.3.2): 1e6 and 1.0e6 are floats; PyYAML's 1.1 rules
     # would read them as strings, which the strict schema would then refuse.
-    from inference.config import read_yaml
+    from inference.inputs.config import read_yaml
 
     path = tmp_path / "numbers.yaml"
     path.write_text("a: 1.0e6\nb: 1e-3\nc: '1e6'\nd: 60\n")

@@ -18,9 +18,10 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from inference import batch, fit_study
+from inference import fit_study
 from inference.cli import main
 from inference.errors import ExitCode
+from inference.workflows import batch, executor
 
 STUDY = """\
 study: {name}
@@ -72,12 +73,12 @@ def test_batch_writes_what_fit_writes_reports_failures_and_skips_on_rerun(tmp_pa
 
 
 def test_a_fault_in_one_study_is_a_row_not_a_crash(tmp_path, monkeypatch):
-    import inference.pipeline
+    import inference.workflows.fit
 
     def explode(*args, **kwargs):
         raise FloatingPointError("overflow in a solver")
 
-    monkeypatch.setattr(inference.pipeline, "fit_study", explode)
+    monkeypatch.setattr(inference.workflows.fit, "fit_study", explode)
     row = batch.fit_one(str(write(tmp_path, "lot-a", 3)), str(tmp_path / "out"), 1, False, {})
     assert row["status"] == "failed" and "FloatingPointError: overflow" in row["message"]
     assert batch.BatchResult(pd.DataFrame([row]), tmp_path, 1).exit_code == ExitCode.FAULT
@@ -172,8 +173,8 @@ def _is_loopback(address) -> bool:
 
 @pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads listening sockets from /proc (Linux)")
 def test_the_local_cluster_listens_on_loopback_only():
-    with batch.Executor(1) as executor:
-        executor.client.run(os.getpid)  # the worker is up and registered
+    with executor.Executor(1) as pool:
+        pool.client.run(os.getpid)  # the worker is up and registered
         addresses = _listening_addresses(_process_family(os.getpid()))
     assert addresses  # the scheduler at least
     assert all(_is_loopback(address) for address in addresses), addresses
@@ -194,12 +195,12 @@ def test_a_dead_worker_s_task_runs_once_more_then_is_a_failed_row(tmp_path):
         folder.mkdir()
     # One task on a cluster of its own each: a death charges every task on the dead worker, and a worker that is
     # being restarted after one case's death must not count in the next.
-    with batch.Executor(1) as executor:
-        (once,) = executor.outcomes(_die_until, [(str(markers["once"]), 1)])
-    with batch.Executor(1) as executor:
-        (twice,) = executor.outcomes(_die_until, [(str(markers["twice"]), 2)])
-    with batch.Executor(1) as executor, pytest.raises(RuntimeError, match="died again"):
-        executor.map(_die_until, [(str(markers["listed"]), 2)])  # the list API (calibration's) raises instead
+    with executor.Executor(1) as pool:
+        (once,) = pool.outcomes(_die_until, [(str(markers["once"]), 1)])
+    with executor.Executor(1) as pool:
+        (twice,) = pool.outcomes(_die_until, [(str(markers["twice"]), 2)])
+    with executor.Executor(1) as pool, pytest.raises(RuntimeError, match="died again"):
+        pool.map(_die_until, [(str(markers["listed"]), 2)])  # the list API (calibration's) raises instead
     assert once.retried and not once.lost and once.value["status"] == "fitted"
     assert twice.retried and twice.lost and twice.value is None
     assert [len(os.listdir(folder)) for folder in markers.values()] == [1, 2, 2]  # never a third run

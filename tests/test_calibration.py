@@ -6,7 +6,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from inference.calibration import CalibrationSettings, calibrate, rank_bins, uniformity_tests, write_calibration
+from inference.posterior.calibration import CalibrationSettings, rank_bins, uniformity_tests
+from inference.workflows.calibrate import calibrate, write_calibration
 
 
 def conjugate_ranks(posterior_sd_scale: float, simulations: int = 400, ranked: int = 99, seed: int = 7) -> np.ndarray:
@@ -52,7 +53,7 @@ def test_calibration_of_the_rate_constant_model(tmp_path):
 
 @pytest.mark.parametrize("level", [50, 90])
 def test_coverage_uses_the_binomial_standard_error(level):
-    from inference.calibration import summarise
+    from inference.posterior.calibration import summarise
 
     ranks = pd.DataFrame({"simulation": range(100), "rank:x": np.arange(100) % 100, f"in{level}:x": [True] * 100})
     ranks[f"in{140 - level}:x"] = True

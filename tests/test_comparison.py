@@ -11,9 +11,9 @@ from scipy import stats
 from test_network_model import T_REF, _simulate, arrhenius_k
 
 from inference import StudyError, fit_study, load_study
-from inference.arrhenius import R
-from inference.comparison import pareto_k_threshold
-from inference.pipeline import compare_studies
+from inference.physics.arrhenius import R
+from inference.posterior.comparison import pareto_k_threshold
+from inference.workflows.compare import compare_studies
 
 
 def test_pareto_k_threshold():

@@ -13,7 +13,7 @@ import arviz as az
 import numpy as np
 
 from inference import fit_study, load_study
-from inference.arrhenius import R
+from inference.physics.arrhenius import R
 
 
 def _mcse_sd(dataset):

@@ -8,7 +8,8 @@ from pathlib import Path
 
 import pandas as pd
 
-from inference import demo, fit_study
+from inference import fit_study
+from inference.workflows import demo
 
 REPO = Path(__file__).resolve().parents[1]
 DEMO_FILES = (

@@ -17,8 +17,8 @@ from pathlib import Path
 import pytest
 from conftest import BASE_STUDY, BASE_TABLE
 
-from inference import config, data
 from inference.errors import StudyError
+from inference.inputs import config, data
 
 EA = "Ea: {mean: 80, sd: 30}"
 

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import pytest
 
-from inference.results import StagedFolder
+from inference.outputs.results import StagedFolder
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -123,7 +123,7 @@ def _running(pids: list[int]) -> list[int]:
 
 @pytest.mark.skipif(not sys.platform.startswith("linux"), reason="the death signal of chain processes is Linux's")
 def test_kill_9_takes_the_chain_processes_along_and_the_next_fit_clears_the_scratch(tmp_path, monkeypatch):
-    from inference import sampling
+    from inference.model import sampling
 
     scratch_root = tmp_path / "tmp"
     scratch_root.mkdir()

@@ -11,9 +11,9 @@ import pandas as pd
 from scipy.integrate import solve_ivp
 from scipy.optimize import least_squares, minimize
 
-from inference.arrhenius import ln_rate_constant
-from inference.config import load_study
-from inference.problems import open_problem
+from inference.inputs.config import load_study
+from inference.physics.arrhenius import ln_rate_constant
+from inference.workflows.kinds import open_problem
 
 N2O5 = {25.0: 3.46e-5, 35.0: 1.35e-4, 45.0: 4.98e-4, 55.0: 1.50e-3, 65.0: 4.87e-3}  # see test_arrhenius
 
@@ -24,7 +24,7 @@ def posterior_mode(model, hessian: bool = True) -> dict:
     central differences of the exact gradient); returned as physical ln_k_ref and Ea."""
     from pymc.blocking import DictToArrayBijection, RaveledVars
 
-    from inference.sampling import prior_centre
+    from inference.model.sampling import prior_centre
 
     start = prior_centre(model)  # PyMC's own initial point puts a bounded Ea one standardised unit off
     names = [v.name for v in model.value_vars]

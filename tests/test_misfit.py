@@ -4,8 +4,8 @@ The statistics are checked against closed forms (the binomial tail summed with m
 quantiles from scipy.stats.norm; the classical lack-of-fit F test written out from its definition). The
 silent-wrong inputs each give their warning in ``check`` (no fit); three small real fits show that k falling
 with temperature and one row typed in kelvin end with exit 3 and a misfit finding, while well-specified
-simulated data still pass. Thresholds are the project's own choice (inference.diagnostics.MISFIT_THRESHOLDS,
-inference.plausibility).
+simulated data still pass. Thresholds are the project's own choice (inference.posterior.diagnostics.MISFIT_THRESHOLDS,
+inference.inputs.plausibility).
 """
 
 from __future__ import annotations
@@ -23,8 +23,15 @@ import pytest
 from conftest import BASE_STUDY, BASE_TABLE
 from scipy import stats
 
-from inference.arrhenius import R
-from inference.diagnostics import MISFIT_THRESHOLDS, _coverage, _lack_of_fit, _piled, _trends, standardised_residuals
+from inference.physics.arrhenius import R
+from inference.posterior.diagnostics import (
+    MISFIT_THRESHOLDS,
+    _coverage,
+    _lack_of_fit,
+    _piled,
+    _trends,
+    standardised_residuals,
+)
 
 REPO = Path(__file__).resolve().parents[1]
 

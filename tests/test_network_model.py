@@ -13,9 +13,9 @@ from pymc.blocking import DictToArrayBijection, RaveledVars
 from scipy.integrate import solve_ivp
 
 from inference import fit_study, load_study
-from inference.arrhenius import R, ln_rate_constant
-from inference.data import read_observations
-from inference.problems import open_problem
+from inference.inputs.data import read_observations
+from inference.physics.arrhenius import R, ln_rate_constant
+from inference.workflows.kinds import open_problem
 
 T_REF = 330.0
 

@@ -12,9 +12,10 @@ from pathlib import Path
 
 import pytest
 
-from inference import batch
 from inference.errors import ExitCode, StudyError
-from inference.schema import Sampling, ScenarioFile
+from inference.inputs import options
+from inference.inputs.schema import Sampling, ScenarioFile
+from inference.workflows import batch
 
 # (command line after "arrhenia" with STUDY for the study file, the option named, its value)
 CASES = [
@@ -84,9 +85,9 @@ def test_the_limits_themselves_are_accepted():
     # Both ends of every range in schema.Sampling pass; None (not given) is left out.
     low = {"draws": 10, "tune": 0, "chains": 1, "seed": 0, "cores": 1}
     high = {"draws": 100_000, "tune": 100_000, "chains": 64, "seed": 2**32 - 1, "cores": 64}
-    assert batch.sampling_overrides(low) == low
-    assert batch.sampling_overrides(high) == high
-    assert batch.sampling_overrides({"draws": None, "seed": 5}) == {"seed": 5}
+    assert options.sampling_overrides(low) == low
+    assert options.sampling_overrides(high) == high
+    assert options.sampling_overrides({"draws": None, "seed": 5}) == {"seed": 5}
 
 
 def test_a_valid_prior_draw_count_passes(run_cli, make_study):

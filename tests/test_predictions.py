@@ -8,7 +8,7 @@ import pytest
 from test_network_model import _simulate, arrhenius_k
 
 from inference import fit_study
-from inference.arrhenius import R
+from inference.physics.arrhenius import R
 
 TRUE = {"first": (0.12, 60_000.0), "second": (0.04, 75_000.0)}  # k at 330 K (1/min), Ea (J/mol)
 SCENARIOS = """\

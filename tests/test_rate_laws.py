@@ -12,14 +12,15 @@ from scipy import constants
 from scipy.integrate import solve_ivp
 from test_network_model import _gradient_check, arrhenius_k, assert_recovered, write_study
 
-from inference import closed_form, fit_study
-from inference.arrhenius import R, eyring_activation, ln_pre_exponential, ln_rate_constant
-from inference.config import load_study
-from inference.draws import parameter_draws, pick_draws
+from inference import fit_study
 from inference.errors import StudyError
-from inference.network import build_network, parse_equation
-from inference.problems import open_problem
-from inference.solution import NetworkSolver
+from inference.inputs.config import load_study
+from inference.physics import closed_form
+from inference.physics.arrhenius import R, eyring_activation, ln_pre_exponential, ln_rate_constant
+from inference.physics.network import build_network, parse_equation
+from inference.physics.solution import NetworkSolver
+from inference.posterior.draws import parameter_draws, pick_draws
+from inference.workflows.kinds import open_problem
 
 T_REF = 330.0
 
@@ -146,7 +147,7 @@ def test_model_with_every_new_term_has_an_exact_gradient(tmp_path, parameterisat
     assert {"ln_K_ads_ref", "temperature_exponent", "ln_k_spread", "run_effect", "temperature"} <= set(model.named_vars)
     _gradient_check(model)
     # The start check compiles the likelihood alone, which need not depend on every variable (centred effects).
-    from inference.sampling import non_finite_start
+    from inference.model.sampling import non_finite_start
 
     terms, measurements = non_finite_start(model)
     assert terms == [] and measurements.size == 0

@@ -6,14 +6,14 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from inference.draws import ParameterDraws
-from inference.network import build_network, parse_equation
-from inference.reactors import (
+from inference.physics.network import build_network, parse_equation
+from inference.physics.reactors import (
     batch_profiles,
     cstr_steady_states,
     programme_temperature,
     programmed_batch_profiles,
 )
+from inference.posterior.draws import ParameterDraws
 
 T_REF = 350.0
 

@@ -11,7 +11,7 @@ import pytest
 import yaml
 
 from inference import fit_study, load_study
-from inference.results import StagedFolder
+from inference.outputs.results import StagedFolder
 
 EXPECTED_FILES = {
     "summary.csv",

@@ -19,9 +19,9 @@ import pytest
 from conftest import BASE_STUDY, BASE_TABLE
 
 from inference import fit_study
-from inference import results as results_module
 from inference.errors import StudyError
-from inference.results import StagedFolder, clean_stale, reserve
+from inference.outputs import results as results_module
+from inference.outputs.results import StagedFolder, clean_stale, reserve
 
 SMALL = BASE_STUDY.replace("draws: 200, tune: 200", "draws: 150, tune: 150")
 

@@ -6,9 +6,9 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from inference import closed_form
-from inference.network import EquationError, build_network, element_counts, imbalance, parse_equation
-from inference.solution import NetworkSolver, SolverSettings
+from inference.physics import closed_form
+from inference.physics.network import EquationError, build_network, element_counts, imbalance, parse_equation
+from inference.physics.solution import NetworkSolver, SolverSettings
 
 
 def network(species, *equations, orders=None):
@@ -181,7 +181,7 @@ def test_extreme_rate_constants_fail_cleanly(ln_k):
     # Found by simulation-based calibration: prior draws far in the tails made the rates overflow, and a zero
     # step size then divided by zero inside the compiled integrator. Either way is now a SolverFailure (or a
     # finite answer), never an arithmetic exception.
-    from inference.solution import MeasurementSolver, SolverFailure
+    from inference.physics.solution import MeasurementSolver, SolverFailure
 
     net = network("ABCD", "A + B -> C", "C -> D")
     times = np.array([1.0, 5.0])

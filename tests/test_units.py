@@ -3,8 +3,8 @@
 import numpy as np
 import pytest
 
-from inference import units
 from inference.errors import StudyError
+from inference.inputs import units
 
 
 def test_temperature_scales_to_kelvin_exactly():

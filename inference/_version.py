@@ -1,0 +1,3 @@
+"""The version of Arrhenia (one place; the package and every manifest read it here)."""
+
+__version__ = "0.1.0"

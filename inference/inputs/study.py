@@ -1,0 +1,145 @@
+"""The resolved study: what a validated study file means, in internal units, immutable.
+
+Temperatures are kelvin and energies J/mol; rate constants, times and concentrations stay in the units the
+study declares (``Study.units``). Nothing here imports PyMC.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Literal
+
+from ..physics.network import Network
+from .schema import Noise, Sampling, Scenario, Units
+
+Mode = Literal["rate_constants", "network"]
+
+
+@dataclass(frozen=True)
+class ArrheniusPrior:
+    """Priors of one reaction's Arrhenius parameters about the reference temperature.
+
+    ln k_ref ~ Normal(ln_k_ref_mean, ln_k_ref_sd), k_ref in the study's rate-constant unit;
+    Ea ~ Normal(ea_mean, ea_sd) truncated to Ea > 0, in J/mol.
+    """
+
+    ln_k_ref_mean: float
+    ln_k_ref_sd: float
+    ea_mean: float
+    ea_sd: float
+
+
+@dataclass(frozen=True)
+class EquilibriumPrior:
+    """Priors of a reversible step's equilibrium constant about T_ref (van 't Hoff).
+
+    ln K_ref ~ Normal(ln_eq_ref_mean, ln_eq_ref_sd), K_c in concentration^(delta n);
+    dH ~ Normal(dh_mean, dh_sd), reaction enthalpy in J/mol.
+    """
+
+    ln_eq_ref_mean: float
+    ln_eq_ref_sd: float
+    dh_mean: float
+    dh_sd: float
+
+
+@dataclass(frozen=True)
+class FittedOrder:
+    """A forward order given a uniform prior on [lower, upper]."""
+
+    species: str
+    lower: float
+    upper: float
+
+
+@dataclass(frozen=True)
+class AdsorptionSite:
+    """An adsorption constant of a saturating law, van 't Hoff about T_ref.
+
+    ln K_ref ~ Normal(ln_ref_mean, ln_ref_sd), K in 1/concentration; dH ~ Normal(dh_mean, dh_sd), J/mol.
+    """
+
+    species: str
+    ln_ref_mean: float
+    ln_ref_sd: float
+    dh_mean: float
+    dh_sd: float
+
+
+@dataclass(frozen=True)
+class ReactionSpec:
+    """One reaction of the study; ``k_unit`` is the unit of its k_ref and A.
+
+    ``temperature_exponent`` is n of (T/T_ref)^n (its prior mean when fitted); ``exponent_sd`` its prior sd,
+    or None when n is fixed. ``inhibition_exponent`` is the power of a saturating law's denominator (0: none)
+    and ``adsorption`` its adsorption constants. ``molecularity`` is the overall forward order when it is a
+    fixed number (None for fitted orders).
+    """
+
+    name: str
+    equation: str | None
+    rate_law: str
+    prior: ArrheniusPrior
+    k_unit: str
+    equilibrium: EquilibriumPrior | None = None
+    eq_unit: str = ""
+    fitted_orders: tuple[FittedOrder, ...] = ()
+    temperature_exponent: float = 0.0
+    exponent_sd: float | None = None
+    inhibition_exponent: float = 0.0
+    adsorption: tuple[AdsorptionSite, ...] = ()
+    molecularity: float | None = None
+
+
+@dataclass(frozen=True)
+class RunVariabilitySpec:
+    """Between-run scatter of ln k: tau ~ half-normal(scale) for each reaction in ``reactions`` (indices),
+    groups from the runs-file column ``by`` (None: each run its own group)."""
+
+    reactions: tuple[int, ...]
+    scale: float
+    by: str | None
+    centred: bool = False
+
+
+@dataclass(frozen=True)
+class TransitionStateSpec:
+    """Settings of the Eyring analysis: ``phase`` and the standard concentration in mol/m^3 (SI)."""
+
+    phase: str
+    standard_concentration_si: float
+
+
+@dataclass(frozen=True)
+class Study:
+    """A validated study. Build it with ``inference.config.load_study``; never mutate it."""
+
+    name: str
+    title: str
+    path: Path
+    mode: Mode
+    units: Units
+    data_files: tuple[tuple[str, Path], ...]
+    reactions: tuple[ReactionSpec, ...]
+    reference_temperature_K: float | None
+    noise: Noise
+    sampling: Sampling
+    k_at_K: tuple[float, ...]
+    canonical: dict
+    species: tuple[str, ...] = ()
+    network: Network | None = None
+    initial_uncertainty: tuple[tuple[str, float], ...] = ()
+    warnings: tuple[str, ...] = ()
+    scenarios: tuple[Scenario, ...] = ()
+    run_variability: RunVariabilitySpec | None = None
+    temperature_sd_K: float | None = None
+    transition_state: TransitionStateSpec | None = None
+
+    @property
+    def reaction_names(self) -> tuple[str, ...]:
+        return tuple(r.name for r in self.reactions)
+
+    def data_file(self, role: str) -> Path:
+        """Absolute path of the data file with this role (``rate_constants``, ``runs``, ``measurements``)."""
+        return dict(self.data_files)[role]

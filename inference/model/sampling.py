@@ -1,0 +1,266 @@
+"""NUTS on the CPU with one integer seed, returning InferenceData with log-likelihood and predictions."""
+
+from __future__ import annotations
+
+import ctypes
+import logging
+import multiprocessing.context
+import os
+import re
+import shutil
+import signal
+import sys
+import tempfile
+import warnings
+from collections.abc import Iterator
+from contextlib import contextmanager
+from pathlib import Path
+
+import arviz as az
+import numpy as np
+import pymc as pm
+from pymc.blocking import DictToArrayBijection, RaveledVars
+from pymc.step_methods.hmc.quadpotential import QuadPotentialDiagAdapt
+from scipy.optimize import minimize
+
+from ..inputs.schema import Sampling
+from ..processes import HOST as _HOST
+from ..processes import pid_alive
+
+#: Weight, in draws, of the Laplace variances in the first window of mass-matrix adaptation.
+LAPLACE_WEIGHT = 10
+
+_PR_SET_PDEATHSIG = 1  # from <linux/prctl.h>
+
+
+def _die_with_parent(creator: int) -> None:
+    """In a new chain process: ask Linux to SIGKILL it when its parent dies, so a ``kill -9`` of a fit leaves
+    no chain running on (each holds hundreds of MB). A no-op where prctl is missing."""
+    try:
+        prctl = ctypes.CDLL(None, use_errno=True).prctl
+    except (OSError, AttributeError):
+        return
+    if prctl(_PR_SET_PDEATHSIG, signal.SIGKILL, 0, 0, 0) != 0:
+        return
+    if os.getppid() != creator:  # the parent died before the request took effect
+        os._exit(1)
+
+
+class _ChainProcess(multiprocessing.context.ForkProcess):
+    """A forked chain process that dies with the process that forked it (Linux).
+
+    The death signal follows the *thread* that forked the child; PyMC forks from the thread that calls
+    ``pm.sample`` and waits in it until the chains end, so that thread outlives them.
+    """
+
+    def __init__(self, *args: object, **kwargs: object) -> None:
+        super().__init__(*args, **kwargs)
+        self._creator = os.getpid()
+        self._mask: set = set()
+
+    def start(self) -> None:
+        # Ctrl-C during the fork would land in at-fork hooks, where Python prints and drops it: the child dies, the
+        # parent samples on unaware and then fails on the child's closed pipe. So it waits until the fork is done.
+        self._mask = signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGINT, signal.SIGTERM})
+        try:
+            super().start()
+        finally:
+            signal.pthread_sigmask(signal.SIG_SETMASK, self._mask)
+
+    def run(self) -> None:
+        _die_with_parent(self._creator)
+        try:
+            signal.pthread_sigmask(signal.SIG_SETMASK, self._mask)
+            super().run()
+        except KeyboardInterrupt:  # the Ctrl-C held back during the fork: the parent has it too and ends the fit
+            return
+
+
+class _ChainContext(multiprocessing.context.ForkContext):
+    Process = _ChainProcess
+
+
+def chain_context() -> multiprocessing.context.BaseContext | None:
+    """The multiprocessing context for PyMC's chain processes: the usual fork context whose processes die
+    with their parent on Linux; None (PyMC's own choice) elsewhere or where fork is not the default."""
+    if not sys.platform.startswith("linux") or multiprocessing.get_start_method(allow_none=False) != "fork":
+        return None
+    return _ChainContext()
+
+
+_SCRATCH = re.compile(r"^arrhenia-(?P<host>[A-Za-z0-9]*)-(?P<pid>\d+)-")
+
+
+@contextmanager
+def scratch_folder() -> Iterator[Path]:
+    """A temporary folder for one fit, ``arrhenia-<host>-<pid>-*`` in the temp folder, removed at its end.
+
+    Folders that fits killed outright (``kill -9``) left behind are removed first: those of this host whose
+    process no longer runs. The host is in the name because processes of other machines or containers that
+    share the temp folder have pids that mean nothing here; their folders are never touched.
+    """
+    root = Path(tempfile.gettempdir())
+    try:
+        entries = list(root.iterdir())
+    except OSError:
+        entries = []
+    for entry in entries:
+        match = _SCRATCH.match(entry.name)
+        if match and match["host"] == _HOST and not pid_alive(int(match["pid"])):
+            try:
+                if entry.is_dir() and not entry.is_symlink() and entry.stat().st_uid == os.getuid():
+                    shutil.rmtree(entry, ignore_errors=True)
+            except OSError:
+                continue
+    with tempfile.TemporaryDirectory(prefix=f"arrhenia-{_HOST}-{os.getpid()}-") as folder:
+        yield Path(folder)
+
+
+def quiet_backend_logs() -> None:
+    """Silence PyMC's and PyTensor's chatter; Arrhenia reports its own steps.
+
+    pip-installed PyTensor finds no optimised BLAS here and says so; at the size of these models the
+    fallback is fast enough, so the message is dropped rather than repeated to every user.
+    """
+    for name in ("pymc", "pytensor", "pymc.sampling", "pymc.stats.convergence"):
+        logging.getLogger(name).setLevel(logging.ERROR)
+    warnings.filterwarnings("ignore", message=".*BLAS.*")
+    warnings.filterwarnings("ignore", category=FutureWarning, module="arviz")
+    warnings.filterwarnings("ignore", category=UserWarning, module="pymc")
+    # The only Potential is the solver guard, which rejects failed integrations; it has no predictive role.
+    warnings.filterwarnings("ignore", message="The effect of Potentials")
+
+
+def chains_in_parallel(chains: int, cores: int | None = None) -> int:
+    """Chains run as parallel processes: ``cores`` if given, else at most one per core present."""
+    return max(1, min(chains, cores or os.cpu_count() or 1))
+
+
+def prior_centre(model: pm.Model) -> dict:
+    """The initial point with every standardised z at 0 (the prior's centre; just inside a bound at 0).
+
+    PyMC starts a bounded variable at 0 on its transformed scale, which for z_Ea (bounded below) is one unit
+    above the bound, far from the centre of a prior whose mean is many sd above zero.
+    """
+    point = model.initial_point()
+    if "z_Ea" in model.named_vars:
+        rv = model["z_Ea"]
+        lower = np.asarray(rv.owner.inputs[-2].eval(), dtype=float)
+        centre = np.maximum(0.0, lower + 1e-3)
+        transform = model.rvs_to_transforms[rv]
+        point[model.rvs_to_values[rv].name] = np.asarray(
+            transform.forward(centre, *rv.owner.inputs).eval(), dtype=float
+        )
+    return point
+
+
+def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], QuadPotentialDiagAdapt] | None:
+    """Starting points and an initial mass matrix from the posterior mode and its curvature.
+
+    Priors are standardised, but posteriors are often hundreds of times narrower than priors; NUTS would spend
+    most of its tuning shrinking its step to that scale. So the mode is found with BFGS (exact gradients) and
+    its inverse-Hessian approximation seeds the diagonal mass matrix; each chain starts from the mode moved by
+    one approximate posterior sd in a random direction (seeded), so chains still start apart.
+    Returns None when the optimiser fails, and PyMC's default initialisation is used instead.
+    """
+    start = prior_centre(model)
+    names = [v.name for v in model.value_vars]
+    mapped = DictToArrayBijection.map({name: start[name] for name in names})
+    logp = model.compile_logp()
+    dlogp = model.compile_dlogp()
+
+    def point(x: np.ndarray) -> dict:
+        return DictToArrayBijection.rmap(RaveledVars(x, mapped.point_map_info))
+
+    def objective(x: np.ndarray) -> tuple[float, np.ndarray]:
+        value = float(logp(point(x)))
+        if not np.isfinite(value):
+            return 1e300, np.zeros_like(x)
+        return -value, -np.asarray(dlogp(point(x)), dtype=float)
+
+    with np.errstate(all="ignore"):
+        found = minimize(objective, mapped.data, jac=True, method="BFGS", options={"maxiter": 400, "gtol": 1e-6})
+    if not np.all(np.isfinite(found.x)) or found.fun >= 1e300:
+        return None
+    variance = np.clip(np.diag(np.atleast_2d(found.hess_inv)), 1e-10, 10.0)
+    rng = np.random.default_rng(settings.seed)
+    starts = []
+    for _ in range(settings.chains):
+        for shrink in (1.0, 0.3, 0.1, 0.0):
+            x = found.x + shrink * np.sqrt(variance) * rng.standard_normal(found.x.size)
+            if np.isfinite(float(logp(point(x)))):
+                break
+        starts.append(point(x))
+    potential = QuadPotentialDiagAdapt(found.x.size, found.x, variance, LAPLACE_WEIGHT)
+    return starts, potential
+
+
+def non_finite_start(model: pm.Model) -> tuple[list[str], np.ndarray]:
+    """At the initial point (every prior at its centre): the names of terms whose log-density is not finite,
+    and the indices of measurements whose log-likelihood is not finite."""
+    quiet_backend_logs()
+    start = prior_centre(model)
+    with np.errstate(all="ignore"):
+        terms = model.point_logps(start)
+        bad = [name for name, value in terms.items() if not np.isfinite(value)]
+        if not bad and not np.isfinite(float(model.compile_logp()(start))):
+            # point_logps leaves out Potentials; the only one is the guard against failed integrations.
+            bad = ["solver_guard"]
+        observation_logp = model.logp(vars=[model["observation"]], sum=False)[0]
+        pointwise_logp = model.compile_fn(observation_logp, inputs=model.value_vars, on_unused_input="ignore")
+        pointwise = np.asarray(pointwise_logp(start))
+    return bad, np.flatnonzero(~np.isfinite(np.atleast_1d(pointwise)))
+
+
+def sample_posterior(
+    model: pm.Model,
+    settings: Sampling,
+    *,
+    progress: bool,
+    failure_log: Path | None = None,
+    predictive: bool = True,
+) -> tuple[az.InferenceData, int]:
+    """Run NUTS and add the pointwise log-likelihood and (unless ``predictive`` is False) the posterior
+    predictive of the observations.
+
+    Chains get seeds derived by PyMC from ``settings.seed``; the predictive draws use ``seed + 1``, so one
+    integer fixes every number. Returns the InferenceData and the number of failed integrations during
+    sampling (counted from ``failure_log``, to which every process appends a line per failure).
+    """
+    quiet_backend_logs()
+    with model:
+        laplace = laplace_start(model, settings)
+        if failure_log is not None:
+            failure_log.write_text("")  # failures while finding the mode are part of the search, not of sampling
+        extra: dict = {"target_accept": settings.target_accept}
+        if laplace is not None:
+            starts, potential = laplace
+            extra = {"initvals": starts, "step": pm.NUTS(potential=potential, target_accept=settings.target_accept)}
+        try:
+            idata = pm.sample(
+                draws=settings.draws,
+                tune=settings.tune,
+                chains=settings.chains,
+                cores=chains_in_parallel(settings.chains, settings.cores),
+                random_seed=settings.seed,
+                progressbar=progress,
+                compute_convergence_checks=False,
+                idata_kwargs={"log_likelihood": True},
+                mp_ctx=chain_context(),
+                **extra,
+            )
+        except ValueError as error:
+            # PyMC answers Ctrl-C before the first kept draw with this (draws are at least 10, so nothing else can).
+            if "Not enough samples to build a trace" in str(error):
+                raise KeyboardInterrupt("sampling was interrupted") from None
+            raise
+        got = idata.posterior.sizes
+        if got.get("chain", 0) < settings.chains or got.get("draw", 0) < settings.draws:
+            # PyMC answers Ctrl-C by returning the draws made so far; a partial posterior is never a result.
+            raise KeyboardInterrupt("sampling was interrupted")
+        failures = len(failure_log.read_text().splitlines()) if failure_log is not None else 0
+        if predictive:
+            pm.sample_posterior_predictive(
+                idata, extend_inferencedata=True, random_seed=settings.seed + 1, progressbar=False
+            )
+    return idata, failures

@@ -1,0 +1,128 @@
+"""Plain-text reports for the terminal: the resolved study (``check``) and the outcome of a fit."""
+
+from __future__ import annotations
+
+import time
+from typing import TYPE_CHECKING, Protocol
+
+from ..inputs.study import Study
+
+if TYPE_CHECKING:
+    from .records import ComparisonResult, FitResult, PredictionResult
+
+
+class StudyKind(Protocol):
+    """What ``check_report`` needs of a kind of study."""
+
+    def check_lines(self) -> list[str]: ...
+
+    def warnings(self) -> list[str]: ...
+
+
+CAUTION = (
+    "Caution: kinetics fitted over a narrow temperature range are not a basis for thermal-safety decisions. "
+    "Extrapolating beyond the measured temperatures widens every uncertainty; an exothermic scale-up needs "
+    "calorimetry and a process-safety review under local codes and licensed practice."
+)
+
+
+def check_report(study: Study, problem: StudyKind) -> str:
+    """What the study means once validated: species, reactions, priors in their units, T_ref, counts of data;
+    ``problem`` is the study's kind opened on its data."""
+    lines = [f"study {study.name}" + (f": {study.title}" if study.title else "")]
+    lines += problem.check_lines()
+    s = study.sampling
+    lines.append(
+        f"  sampling: {s.chains} chains x {s.draws} draws ({s.tune} tuning), seed {s.seed}, "
+        f"target_accept {s.target_accept:g}"
+    )
+    lines += [f"  warning: {note}" for note in (*study.warnings, *problem.warnings())]
+    lines.append("  the study is valid; nothing was sampled")
+    return "\n".join(lines)
+
+
+def fit_report(result: FitResult) -> str:
+    """The verdict, the posterior summary next to the classical fit, and where the files are."""
+    d = result.diagnostics
+    lines = [
+        "",
+        f"diagnostics: {d.verdict.upper()}  (max R-hat {d.r_hat_max:.3f}, min ESS bulk {d.ess_bulk_min:.0f} / "
+        f"tail {d.ess_tail_min:.0f}, {d.divergences} divergences, "
+        f"{result.fit_checks['inside_90'].mean():.0%} of measurements inside their 90 % predictive interval)",
+    ]
+    lines += [f"  - {advice}" for advice in d.advice]
+    if d.misfit:
+        lines.append(
+            f"  misfit: {len(d.misfit)} sign(s) that the model does not describe the data "
+            f"({', '.join(f['check'] for f in d.misfit)}); their numbers are under 'misfit' in diagnostics.json, "
+            "every measurement's check in fit_checks.csv"
+        )
+    if d.verdict == "pass":
+        lines.append("  the sampler shows no sign of trouble and the model describes the data")
+    table = result.summary[["parameter", "unit", "median", "q05", "q95", "r_hat"]]
+    lines += ["", "posterior (median and 90 % interval):", table.to_string(index=False, float_format="{:.4g}".format)]
+    if "classical.csv" in result.tables:
+        classical = result.tables["classical.csv"]
+        classical = classical[classical["quantity"].isin(["Ea", "A"])]
+        lines += [
+            "",
+            "classical estimates (95 % confidence intervals):",
+            classical.drop(columns=["se"]).to_string(index=False, float_format="{:.4g}".format),
+        ]
+    lines += [
+        "",
+        "posterior correlations (why T_ref matters):",
+        result.correlations.to_string(index=False, float_format="{:.3f}".format),
+    ]
+    lines += ["", *result.extrapolations, CAUTION, "", f"results: {result.results_dir}"]
+    return "\n".join(lines)
+
+
+def comparison_report(result: ComparisonResult) -> str:
+    """The verdict sentences and the comparison table, and any candidate whose sampler was not trusted."""
+    table = result.table[["level", "rank", "candidate", "elpd", "se", "elpd_diff", "dse", "weight", "high_pareto_k"]]
+    lines = [
+        "",
+        "comparison (PSIS-LOO; weights by stacking):",
+        table.to_string(index=False, float_format="{:.2f}".format),
+        "",
+    ]
+    lines += result.verdict
+    lines += [f"warning: {note}" for note in result.notes]
+    lines += ["", f"comparison: {result.results_dir}"]
+    return "\n".join(lines)
+
+
+def prediction_report(result: PredictionResult) -> str:
+    """The scalar answers with their 90 % intervals, every extrapolation flag, and the cautions."""
+    table = result.summary[["scenario", "quantity", "unit", "median", "q05", "q95", "share"]]
+    lines = [
+        "",
+        "reactor predictions (median and 90 % interval over posterior draws):",
+        table.to_string(index=False, float_format="{:.4g}".format),
+        "",
+    ]
+    lines += result.extrapolations
+    lines += [CAUTION, "", f"predictions: {result.results_dir}"]
+    return "\n".join(lines)
+
+
+class Steps:
+    """Prints one line per pipeline step with its wall time, unless quiet."""
+
+    def __init__(self, quiet: bool) -> None:
+        self.quiet = quiet
+        self.started = time.perf_counter()
+        self.last = self.started
+        self.timings: dict[str, float] = {}
+
+    def done(self, step: str, detail: str = "") -> None:
+        now = time.perf_counter()
+        self.timings[step] = round(now - self.last, 3)
+        self.last = now
+        if not self.quiet:
+            print(f"[{now - self.started:7.1f} s] {step}{': ' + detail if detail else ''}", flush=True)
+
+    def say(self, text: str) -> None:
+        if not self.quiet:
+            print(text, flush=True)

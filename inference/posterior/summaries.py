@@ -1,0 +1,295 @@
+"""Posterior summaries, derived quantities, the classical fits beside them, and predictive checks.
+
+Every table returned here is a pandas DataFrame whose columns are documented in README ("The results folder").
+Values are in the study's units: energies in ``units.energy``, rate constants and A in ``units.rate_constant``,
+temperatures in ``units.temperature``.
+"""
+
+from __future__ import annotations
+
+import arviz as az
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from ..inputs import units
+from ..inputs.data import Observations, RateConstantData
+from ..inputs.study import ReactionSpec, Study
+from ..physics.arrhenius import (
+    eyring_activation,
+    linearised_fit,
+    ln_pre_exponential,
+    ln_rate_constant,
+    two_point_estimate,
+)
+from ..physics.network import parse_equation
+
+SUMMARY_COLUMNS = ["parameter", "unit", "mean", "sd", "median", "q05", "q95", "ess_bulk", "ess_tail", "r_hat"]
+
+
+def temperature_label(kelvin: float, unit: str) -> str:
+    """A temperature in the study's unit, for names like ``k[step, 80 degC]``."""
+    return f"{float(units.kelvin_to(kelvin, unit)):g} {unit}"
+
+
+def derived_quantities(
+    study: Study, posterior: xr.Dataset, temperature_ref: float
+) -> dict[str, tuple[str, xr.DataArray]]:
+    """Draws of every reported quantity, by name, with its unit.
+
+    Per reaction: k_ref, Ea, A and k at the study's ``report.k_at`` temperatures; per reversible step K_ref
+    (K_c at T_ref) and dH; fitted orders; uncertain initial concentrations; the noise scale(s).
+    """
+    energy = study.units.energy
+    quantities: dict[str, tuple[str, xr.DataArray]] = {}
+    for j, spec in enumerate(study.reactions):
+        name = spec.name
+        ln_k_ref = posterior["ln_k_ref"].sel(reaction=name, drop=True)
+        ea = posterior["Ea"].sel(reaction=name, drop=True)
+        exponent = (
+            posterior["temperature_exponent"].sel(reaction=name, drop=True)
+            if "temperature_exponent" in posterior
+            else spec.temperature_exponent
+        )
+        quantities[f"k_ref[{name}]"] = (spec.k_unit, np.exp(ln_k_ref))
+        quantities[f"Ea[{name}]"] = (energy, units.joule_per_mol_to(ea, energy))
+        a_unit = spec.k_unit  # A of k = A T^n exp(-Ea/RT) is per K^n
+        if spec.exponent_sd is not None:
+            quantities[f"n[{name}]"] = ("", exponent)
+            a_unit = f"{spec.k_unit}/K^n"
+        elif spec.temperature_exponent:
+            a_unit = f"{spec.k_unit}/K^{spec.temperature_exponent:g}"
+        quantities[f"A[{name}]"] = (a_unit, np.exp(ln_pre_exponential(ln_k_ref, ea, temperature_ref, exponent)))
+        for kelvin in study.k_at_K:
+            label = f"k[{name}, {temperature_label(kelvin, study.units.temperature)}]"
+            quantities[label] = (
+                spec.k_unit,
+                np.exp(ln_rate_constant(kelvin, ln_k_ref, ea, temperature_ref, exponent)),
+            )
+        if spec.equilibrium is not None:
+            quantities[f"K_ref[{name}]"] = (spec.eq_unit, np.exp(posterior["ln_K_ref"].sel(reversible=name, drop=True)))
+            quantities[f"dH[{name}]"] = (
+                energy,
+                units.joule_per_mol_to(posterior["dH"].sel(reversible=name, drop=True), energy),
+            )
+        for fitted in spec.fitted_orders:
+            label = f"{name}:{fitted.species}"
+            quantities[f"order[{label}]"] = ("", posterior["order"].sel(fitted_order=label, drop=True))
+        quantities |= _saturation_quantities(study, spec, posterior, ln_k_ref)
+        if study.run_variability is not None and j in study.run_variability.reactions:
+            spread = posterior["ln_k_spread"].sel(varying_reaction=name, drop=True)
+            quantities[f"ln_k_spread[{name}]"] = ("log units", spread)
+        if study.transition_state is not None and spec.molecularity is not None:
+            quantities |= _activation_quantities(study, spec, ln_k_ref, ea, exponent, temperature_ref)
+    if "temperature" in posterior:
+        unit = study.units.temperature
+        fitted = posterior["temperature"]
+        dim = fitted.dims[-1]  # "run" for batch runs, "set_point" for rate constants
+        for label in fitted.coords[dim].values:
+            kelvin = fitted.sel({dim: label}, drop=True)
+            quantities[f"temperature[{label}]"] = (unit, kelvin.copy(data=units.kelvin_to(kelvin.values, unit)))
+    if "initial" in posterior:
+        for run in posterior["initial"].coords["run"].values:
+            for species in posterior["initial"].coords["uncertain_species"].values:
+                draws = posterior["initial"].sel(run=run, uncertain_species=species, drop=True)
+                quantities[f"initial[{run}, {species}]"] = (study.units.concentration or "", draws)
+    if "sigma" in posterior:
+        unit = study.units.concentration if study.noise.model == "absolute" else "log units"
+        sigma = posterior["sigma"]
+        if "observed_species" in sigma.dims:
+            for species in sigma.coords["observed_species"].values:
+                quantities[f"sigma[{species}]"] = (unit or "", sigma.sel(observed_species=species, drop=True))
+        else:
+            quantities["sigma"] = (unit or "", sigma)
+    return quantities
+
+
+def _saturation_quantities(study: Study, spec: ReactionSpec, posterior: xr.Dataset, ln_k_ref: xr.DataArray) -> dict:
+    """Adsorption constants at T_ref and their enthalpies; for Michaelis-Menten, K_M and k K_M instead."""
+    out: dict[str, tuple[str, xr.DataArray]] = {}
+    conc, energy = study.units.concentration or "", study.units.energy
+    for site in spec.adsorption:
+        label = f"{spec.name}:{site.species}"
+        ln_ref = posterior["ln_K_ads_ref"].sel(adsorption_site=label, drop=True)
+        dh = posterior["dH_ads"].sel(adsorption_site=label, drop=True)
+        if spec.rate_law == "michaelis_menten":
+            # r = k c_S (...) / (1 + c_S / K_M) = (k K_M) c_S (...) / (K_M + c_S): k K_M is k_cat (per enzyme
+            # concentration when the enzyme is in the equation) or V_max.
+            out[f"K_M[{spec.name}]"] = (conc, np.exp(-ln_ref))
+            out[f"K_M_dH[{spec.name}]"] = (energy, units.joule_per_mol_to(-dh, energy))
+            equation = parse_equation(spec.equation)
+            catalysed = bool({n for n, _ in equation.reactants} & {n for n, _ in equation.products})
+            turnover = "k_cat" if catalysed else "V_max"
+            unit = f"1/{study.units.time}" if catalysed else f"{conc}/{study.units.time}"
+            out[f"{turnover}[{spec.name}]"] = (unit, np.exp(ln_k_ref - ln_ref))
+        else:
+            out[f"K_ads_ref[{label}]"] = (f"1/({conc})", np.exp(ln_ref))
+            out[f"dH_ads[{label}]"] = (energy, units.joule_per_mol_to(dh, energy))
+    return out
+
+
+def _activation_quantities(study: Study, spec: ReactionSpec, ln_k_ref, ea, exponent, temperature_ref: float) -> dict:
+    """Eyring's dH, dS and dG of activation at T_ref, with k converted to SI units first."""
+    setting = study.transition_state
+    ln_k_si = ln_k_ref + np.log(units.si_factor(spec.k_unit))
+    values = eyring_activation(
+        ln_k_si, ea, temperature_ref, spec.molecularity, setting.phase, setting.standard_concentration_si, exponent
+    )
+    energy = study.units.energy
+    return {
+        f"dH_activation[{spec.name}]": (energy, units.joule_per_mol_to(values.enthalpy, energy)),
+        f"dS_activation[{spec.name}]": ("J/(mol*K)", values.entropy),
+        f"dG_activation[{spec.name}]": (energy, units.joule_per_mol_to(values.gibbs, energy)),
+    }
+
+
+def extrapolation_notes(study: Study, measured_K: np.ndarray) -> list[str]:
+    """One sentence for every reported temperature outside the measured range, saying how far outside."""
+    low, high = float(np.min(measured_K)), float(np.max(measured_K))
+    unit = study.units.temperature
+    notes = []
+    for kelvin in study.k_at_K:
+        if kelvin < low or kelvin > high:
+            edge = low if kelvin < low else high
+            side = "below the lowest" if kelvin < low else "above the highest"
+            notes.append(
+                f"EXTRAPOLATED: k at {temperature_label(kelvin, unit)} is {abs(kelvin - edge):.3g} K {side} "
+                f"measured temperature ({temperature_label(edge, unit)})"
+            )
+    return notes
+
+
+def summary_table(quantities: dict[str, tuple[str, xr.DataArray]]) -> pd.DataFrame:
+    """One row per quantity: parameter, unit, mean, sd, median, q05, q95, ess_bulk, ess_tail, r_hat."""
+    dataset = xr.Dataset({name: draws for name, (_, draws) in quantities.items()})
+    ess_bulk = az.ess(dataset, method="bulk")
+    ess_tail = az.ess(dataset, method="tail")
+    r_hat = az.rhat(dataset)
+    rows = []
+    for name, (unit, draws) in quantities.items():
+        values = draws.values.ravel()
+        rows.append(
+            {
+                "parameter": name,
+                "unit": unit,
+                "mean": values.mean(),
+                "sd": values.std(ddof=1),
+                "median": np.median(values),
+                "q05": np.quantile(values, 0.05),
+                "q95": np.quantile(values, 0.95),
+                "ess_bulk": float(ess_bulk[name]),
+                "ess_tail": float(ess_tail[name]),
+                "r_hat": float(r_hat[name]),
+            }
+        )
+    return pd.DataFrame(rows, columns=SUMMARY_COLUMNS)
+
+
+def correlation_table(study: Study, posterior: xr.Dataset, temperature_ref: float) -> pd.DataFrame:
+    """Posterior correlation of ln A with Ea next to that of ln k_ref with Ea, per reaction.
+
+    The first is typically close to 1: that is why Arrhenia samples ln k_ref at T_ref rather than ln A.
+    """
+    rows = []
+    for name in study.reaction_names:
+        ln_k_ref = posterior["ln_k_ref"].sel(reaction=name).values.ravel()
+        ea = posterior["Ea"].sel(reaction=name).values.ravel()
+        ln_a = ln_pre_exponential(ln_k_ref, ea, temperature_ref)
+        rows.append(
+            {
+                "reaction": name,
+                "corr_ln_A_Ea": float(np.corrcoef(ln_a, ea)[0, 1]),
+                "corr_ln_k_ref_Ea": float(np.corrcoef(ln_k_ref, ea)[0, 1]),
+            }
+        )
+    return pd.DataFrame(rows)
+
+
+def classical_table(study: Study, data: RateConstantData) -> pd.DataFrame:
+    """The linearised least-squares fit of ln k on 1/T and the two-point estimate, per reaction.
+
+    Columns: reaction, method (``linearised`` or ``two_point``), quantity, unit, value, se, ci95_low, ci95_high.
+    """
+    energy, k_unit = study.units.energy, study.units.rate_constant or ""
+
+    def to_energy(value: float) -> float:
+        return float(units.joule_per_mol_to(value, energy))
+
+    rows = []
+    for index, name in enumerate(study.reaction_names):
+        rows_of = data.rows_of(index)
+        temperature, k = data.temperature_K[rows_of], data.k[rows_of]
+        fit = linearised_fit(temperature, k)
+        ea_low, ea_high = fit.ea_ci
+        a_low, a_high = fit.a_ci
+        s_low, s_high = fit.slope_ci
+        i_low, i_high = fit.intercept_ci
+        rows += [
+            (name, "linearised", "slope", "K", fit.slope, fit.se_slope, s_low, s_high),
+            (name, "linearised", "intercept", f"ln({k_unit})", fit.intercept, fit.se_intercept, i_low, i_high),
+            (
+                name,
+                "linearised",
+                "Ea",
+                energy,
+                to_energy(fit.ea),
+                to_energy(fit.se_ea),
+                to_energy(ea_low),
+                to_energy(ea_high),
+            ),
+            (name, "linearised", "A", k_unit, fit.a, np.nan, a_low, a_high),
+            (name, "linearised", "r_squared", "", fit.r_squared, np.nan, np.nan, np.nan),
+            (name, "linearised", "points", "", float(fit.n), np.nan, np.nan, np.nan),
+        ]
+        pair = two_point_estimate(temperature, k)
+        rows += [
+            (name, "two_point", "Ea", energy, to_energy(pair.ea), np.nan, np.nan, np.nan),
+            (name, "two_point", "A", k_unit, pair.a, np.nan, np.nan, np.nan),
+        ]
+    return pd.DataFrame(
+        rows, columns=["reaction", "method", "quantity", "unit", "value", "se", "ci95_low", "ci95_high"]
+    )
+
+
+def predictive_intervals(observed: np.ndarray, idata: az.InferenceData) -> pd.DataFrame:
+    """Observed value, posterior predictive median and 90 % interval, and whether the value lies inside."""
+    predicted = idata.posterior_predictive["observation"].stack(sample=("chain", "draw")).values
+    q05, median, q95 = np.quantile(predicted, [0.05, 0.5, 0.95], axis=-1)
+    return pd.DataFrame(
+        {
+            "observed": observed,
+            "median": median,
+            "q05": q05,
+            "q95": q95,
+            "inside_90": (observed >= q05) & (observed <= q95),
+        }
+    )
+
+
+def rate_constant_fit_checks(study: Study, data: RateConstantData, idata: az.InferenceData) -> pd.DataFrame:
+    """Columns: measurement, line, reaction, temperature, observed, median, q05, q95, inside_90 (k in its unit)."""
+    names = np.array(study.reaction_names)
+    labels = pd.DataFrame(
+        {
+            "measurement": np.arange(data.k.size),
+            "line": data.line,
+            "reaction": names[data.reaction_index],
+            "temperature": units.kelvin_to(data.temperature_K, study.units.temperature),
+        }
+    )
+    return pd.concat([labels, predictive_intervals(data.k, idata)], axis=1)
+
+
+def network_fit_checks(study: Study, obs: Observations, idata: az.InferenceData) -> pd.DataFrame:
+    """Columns: measurement, line, run, temperature, time, species, observed, median, q05, q95, inside_90."""
+    labels = pd.DataFrame(
+        {
+            "measurement": np.arange(obs.value.size),
+            "line": obs.line,
+            "run": np.array(obs.run_ids)[obs.run_index],
+            "temperature": units.kelvin_to(obs.temperature_K[obs.run_index], study.units.temperature),
+            "time": obs.time,
+            "species": np.array(study.species)[obs.species_index],
+        }
+    )
+    return pd.concat([labels, predictive_intervals(obs.value, idata)], axis=1)

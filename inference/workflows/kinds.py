@@ -1,0 +1,388 @@
+"""The two kinds of study, behind one small interface the pipeline drives.
+
+``RateConstantProblem``: measured rate constants, the Arrhenius fit alone. ``NetworkProblem``: a reaction
+network fitted to concentration-time data from batch runs. Each reads and checks its data, builds its model
+(importing PyMC only then), and makes its own tables and figures. Nothing here writes files except through
+the ``StagedFolder`` it is handed.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+from pathlib import Path
+from typing import TYPE_CHECKING, Protocol
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from ..inputs import plausibility, units
+from ..inputs.config import Z95
+from ..inputs.data import Observations, RateConstantData, read_observations, read_rate_constants
+from ..inputs.study import Study
+from ..outputs import plots
+from ..physics import closed_form
+from ..physics.arrhenius import ln_rate_constant
+from ..physics.solution import NetworkSolver, SolverFailure
+from ..posterior.diagnostics import KINETIC_VARIABLES
+from ..posterior.draws import parameter_draws, pick_draws, prior_centre_draws
+from ..posterior.summaries import classical_table, network_fit_checks, rate_constant_fit_checks
+
+if TYPE_CHECKING:
+    import arviz as az
+    import pymc as pm
+
+    from ..outputs.results import StagedFolder
+
+
+#: Posterior draws used for the profile bands of the run figures.
+PROFILE_DRAWS = 200
+PROFILE_POINTS = 121
+
+
+class Problem(Protocol):
+    study: Study
+
+    @property
+    def temperatures_K(self) -> np.ndarray: ...
+
+    def summary_line(self) -> str: ...
+
+    def warnings(self) -> list[str]: ...
+
+    def check_lines(self) -> list[str]: ...
+
+    def build_model(self, temperature_ref: float, failure_log: Path | None = None) -> pm.Model: ...
+
+    def measurement_label(self, index: int) -> str: ...
+
+    def failing_run_at_prior_centre(self, temperature_ref: float) -> str | None: ...
+
+    def kinetic_var_names(self, idata: az.InferenceData) -> list[str]: ...
+
+    def fit_checks(self, idata: az.InferenceData) -> pd.DataFrame: ...
+
+    def measurement_groups(self) -> list[str]: ...
+
+    def extra_tables(self) -> dict[str, pd.DataFrame]: ...
+
+    def figures(
+        self, folder: StagedFolder, idata: az.InferenceData, temperature_ref: float, fit_checks: pd.DataFrame
+    ) -> None: ...
+
+    def with_measurements(self, values: np.ndarray) -> Problem: ...
+
+
+def open_problem(study: Study) -> Problem:
+    """Read and check the study's data and return the problem that fits it."""
+    if study.mode == "rate_constants":
+        return RateConstantProblem(study, read_rate_constants(study))
+    return NetworkProblem(study, read_observations(study))
+
+
+def _prior_lines(study: Study) -> list[str]:
+    energy = study.units.energy
+    lines = []
+    for spec in study.reactions:
+        p = spec.prior
+        line = (
+            f"    {spec.name}: {spec.equation + ', ' if spec.equation else ''}{spec.rate_law}; k_ref ~ lognormal("
+            f"median {math.exp(p.ln_k_ref_mean):.4g} {spec.k_unit}, x/÷ {math.exp(p.ln_k_ref_sd * Z95):.3g}"
+            f" at 95 %); Ea ~ normal({units.joule_per_mol_to(p.ea_mean, energy):.4g}, sd "
+            f"{units.joule_per_mol_to(p.ea_sd, energy):.4g} {energy}) truncated > 0"
+        )
+        if spec.equilibrium is not None:
+            q = spec.equilibrium
+            line += (
+                f"; K_ref ~ lognormal(median {math.exp(q.ln_eq_ref_mean):.4g} {spec.eq_unit}); dH ~ normal("
+                f"{units.joule_per_mol_to(q.dh_mean, energy):.4g}, sd {units.joule_per_mol_to(q.dh_sd, energy):.4g}"
+                f" {energy})"
+            )
+        for fitted in spec.fitted_orders:
+            line += f"; order in {fitted.species} ~ uniform({fitted.lower:g}, {fitted.upper:g})"
+        if spec.exponent_sd is not None:
+            line += f"; (T/T_ref)^n with n ~ normal({spec.temperature_exponent:g}, sd {spec.exponent_sd:g})"
+        elif spec.temperature_exponent:
+            line += f"; (T/T_ref)^n with n = {spec.temperature_exponent:g}"
+        for site in spec.adsorption:
+            line += (
+                f"; K_{site.species} ~ lognormal(median {math.exp(site.ln_ref_mean):.4g} per "
+                f"{study.units.concentration}), dH_ads ~ normal({units.joule_per_mol_to(site.dh_mean, energy):.4g}, "
+                f"sd {units.joule_per_mol_to(site.dh_sd, energy):.4g} {energy})"
+            )
+        if spec.inhibition_exponent:
+            line += f"; denominator power {spec.inhibition_exponent:g}"
+        lines.append(line)
+    if study.run_variability is not None:
+        spec = study.run_variability
+        lines.append(
+            f"    run-to-run spread of ln k ({', '.join(study.reaction_names[j] for j in spec.reactions)}) ~ "
+            f"half-normal(scale {spec.scale:g}), groups: {'column ' + spec.by if spec.by else 'each run'}"
+        )
+    if study.temperature_sd_K is not None:
+        lines.append(f"    true temperatures ~ normal(stated, sd {study.temperature_sd_K:.3g} K)")
+    return lines
+
+
+def _temperature_lines(study: Study, measured_K: np.ndarray) -> list[str]:
+    from ..physics.arrhenius import auto_reference_temperature
+
+    unit = study.units.temperature
+    low, high = units.kelvin_to([np.min(measured_K), np.max(measured_K)], unit)
+    reference = study.reference_temperature_K or auto_reference_temperature(measured_K)
+    source = "auto, 1/mean(1/T)" if study.reference_temperature_K is None else "from the study file"
+    return [
+        f"  temperatures: {low:g} to {high:g} {unit} ({np.unique(measured_K).size} distinct)",
+        f"  T_ref = {reference:.2f} K = {float(units.kelvin_to(reference, unit)):.2f} {unit} ({source})",
+    ]
+
+
+def _noise_line(study: Study) -> str:
+    noise = study.noise
+    scope = "one per observed species" if noise.per_species else "shared"
+    return f"  noise: {noise.model}, sigma ~ half-normal(scale {noise.sigma.scale:g}), {scope}" + (
+        f", nu = {noise.nu:g}" if noise.model == "robust" else ""
+    )
+
+
+@dataclass(frozen=True)
+class RateConstantProblem:
+    study: Study
+    data: RateConstantData
+
+    @property
+    def temperatures_K(self) -> np.ndarray:
+        return self.data.temperature_K
+
+    def summary_line(self) -> str:
+        return f"{len(self.study.reactions)} reaction(s), {self.data.k.size} measured rate constants"
+
+    def warnings(self) -> list[str]:
+        """Values that are valid but almost surely wrong (units, typos, copies, stated errors)."""
+        return plausibility.rate_constant_warnings(self.study, self.data, self.measurement_label)
+
+    def check_lines(self) -> list[str]:
+        lines = [f"  data: {self.data.k.size} measured rate constants from {self.data.path}"]
+        lines += _temperature_lines(self.study, self.temperatures_K)
+        lines += ["  reactions:", *_prior_lines(self.study)]
+        if self.data.ln_k_sd is not None:
+            lines.append("  noise: per-point errors stated in the data file (sd of ln k)")
+        else:
+            lines.append(_noise_line(self.study))
+        return lines
+
+    def build_model(self, temperature_ref: float, failure_log: Path | None = None) -> pm.Model:
+        from ..model.builder import build_rate_constant_model
+
+        return build_rate_constant_model(self.study, self.data, temperature_ref)
+
+    def measurement_label(self, index: int) -> str:
+        return f"{self.data.path}: line {self.data.line[index]}"
+
+    def failing_run_at_prior_centre(self, temperature_ref: float) -> str | None:
+        return None  # no integration in a rate-constant model
+
+    def kinetic_var_names(self, idata: az.InferenceData) -> list[str]:
+        return [n for n in KINETIC_VARIABLES if n in idata.posterior]
+
+    def fit_checks(self, idata: az.InferenceData) -> pd.DataFrame:
+        return rate_constant_fit_checks(self.study, self.data, idata)
+
+    def measurement_groups(self) -> list[str]:
+        """Each measurement's experiment for leave-one-run-out: its reaction and temperature."""
+        names = self.study.reaction_names
+        return [
+            f"{names[r]} @ {t:.6g} K" for r, t in zip(self.data.reaction_index, self.data.temperature_K, strict=True)
+        ]
+
+    def extra_tables(self) -> dict[str, pd.DataFrame]:
+        return {"classical.csv": classical_table(self.study, self.data)}
+
+    def with_measurements(self, values: np.ndarray) -> RateConstantProblem:
+        """The same design with other measured rate constants (simulated data, for calibration)."""
+        return replace(self, data=replace(self.data, k=np.asarray(values, dtype=float)))
+
+    def figures(
+        self, folder: StagedFolder, idata: az.InferenceData, temperature_ref: float, fit_checks: pd.DataFrame
+    ) -> None:
+        plots.arrhenius_plot(
+            self.study,
+            idata.posterior,
+            temperature_ref,
+            self.temperatures_K,
+            folder.path("figures/arrhenius.png"),
+            data=self.data,
+        )
+
+
+@dataclass(frozen=True)
+class NetworkProblem:
+    study: Study
+    obs: Observations
+
+    @property
+    def temperatures_K(self) -> np.ndarray:
+        return self.obs.temperature_K
+
+    def summary_line(self) -> str:
+        return (
+            f"{len(self.study.reactions)} reaction(s) in {len(self.study.species)} species, "
+            f"{len(self.obs.run_ids)} runs, {self.obs.value.size} measurements"
+        )
+
+    def warnings(self) -> list[str]:
+        """Structural identifiability, as far as the network and the data show it, then values that are valid
+        but almost surely wrong (units, typos)."""
+        study, obs = self.study, self.obs
+        notes = []
+        if np.unique(obs.temperature_K).size < 2:
+            notes.append("every run is at one temperature: each Ea is set by its prior alone")
+        measured = {int(i) for i in obs.observed_species}
+        touching = [
+            set(np.flatnonzero((study.network.stoichiometry[j] != 0) | (study.network.forward_orders[j] != 0)))
+            for j in range(len(study.reactions))
+        ]
+        reached = set(measured)
+        grown = True
+        while grown:  # species linked to a measured one through shared reactions
+            grown = False
+            for species in touching:
+                if species & reached and not species <= reached:
+                    reached |= species
+                    grown = True
+        for spec, species in zip(study.reactions, touching, strict=True):
+            if not species & reached:
+                notes.append(
+                    f"reaction '{spec.name}' is linked to no measured species: its k_ref and Ea are set by "
+                    "their priors alone"
+                )
+        return notes + plausibility.network_warnings(study, obs, self.measurement_label)
+
+    def check_lines(self) -> list[str]:
+        study, obs = self.study, self.obs
+        observed = [study.species[i] for i in obs.observed_species]
+        hidden = [s for s in study.species if s not in observed]
+        kind = closed_form.closed_form_kind(study.network)
+        lines = [
+            f"  species: {', '.join(study.species)} (measured: {', '.join(observed)}"
+            + (f"; not measured: {', '.join(hidden)})" if hidden else ")"),
+            f"  data: {len(obs.run_ids)} runs from {obs.runs_path}, {obs.value.size} measurements from "
+            f"{obs.measurements_path}",
+        ]
+        lines += _temperature_lines(study, self.temperatures_K)
+        lines += ["  reactions:", *_prior_lines(study)]
+        if study.initial_uncertainty:
+            lines.append(
+                "  uncertain initial concentrations: "
+                + ", ".join(f"{name} (±{share:.0%} lognormal)" for name, share in study.initial_uncertainty)
+            )
+        lines.append(_noise_line(study))
+        lines.append(
+            "  profiles: "
+            + (
+                f"closed form ({kind})"
+                if kind and not study.initial_uncertainty
+                else "compiled ODE integrator (Dormand-Prince; Radau IIA when stiff) with sensitivities"
+            )
+        )
+        return lines
+
+    def build_model(self, temperature_ref: float, failure_log: Path | None = None) -> pm.Model:
+        from ..model.builder import build_network_model
+
+        return build_network_model(self.study, self.obs, temperature_ref, failure_log)
+
+    def failing_run_at_prior_centre(self, temperature_ref: float) -> str | None:
+        """The first run whose profiles cannot be integrated with every parameter at its prior's centre."""
+        study, obs = self.study, self.obs
+        centre = prior_centre_draws(study, temperature_ref)
+        for r, run in enumerate(obs.run_ids):
+            kelvin = obs.temperature_K[r]
+            solver = NetworkSolver(study.network, [obs.times[r]])
+            try:
+                solver.solve(
+                    centre.ln_k(kelvin),
+                    centre.ln_eq(kelvin),
+                    centre.orders[0],
+                    obs.initial[r : r + 1],
+                    ln_ads=centre.ln_ads(kelvin),
+                    sensitivities=False,
+                )
+            except SolverFailure:
+                return run
+        return None
+
+    def measurement_label(self, index: int) -> str:
+        obs = self.obs
+        return (
+            f"{obs.measurements_path}: line {obs.line[index]} (run {obs.run_ids[obs.run_index[index]]}, "
+            f"species {self.study.species[obs.species_index[index]]})"
+        )
+
+    def kinetic_var_names(self, idata: az.InferenceData) -> list[str]:
+        return [n for n in KINETIC_VARIABLES if n in idata.posterior]
+
+    def fit_checks(self, idata: az.InferenceData) -> pd.DataFrame:
+        return network_fit_checks(self.study, self.obs, idata)
+
+    def measurement_groups(self) -> list[str]:
+        """Each measurement's run, for leave-one-run-out."""
+        return [self.obs.run_ids[r] for r in self.obs.run_index]
+
+    def extra_tables(self) -> dict[str, pd.DataFrame]:
+        return {}
+
+    def with_measurements(self, values: np.ndarray) -> NetworkProblem:
+        """The same runs and sampling times with other measured values (simulated data, for calibration)."""
+        return replace(self, obs=replace(self.obs, value=np.asarray(values, dtype=float)))
+
+    def profiles(
+        self, posterior: xr.Dataset, temperature_ref: float, times: list[np.ndarray], n_draws: int = PROFILE_DRAWS
+    ) -> list[np.ndarray]:
+        """Concentration profiles of every run for ``n_draws`` evenly spread posterior draws:
+        a list over runs of arrays (draws, times, species); NaN where the solver failed for a draw."""
+        study, obs = self.study, self.obs
+        draws = parameter_draws(study, posterior, temperature_ref, pick_draws(posterior, n_draws), obs.initial)
+        network = study.network
+        kind = closed_form.closed_form_kind(network)
+        solver = None if kind is not None and draws.initial is None else NetworkSolver(network, times)
+        out = [np.full((draws.size, t.size, len(study.species)), np.nan) for t in times]
+        for d in range(draws.size):
+            ln_k = draws.fitted_run_ln_k(d, obs.temperature_K, obs.group_index)
+            initial = obs.initial if draws.initial is None else draws.initial[d]
+            if solver is None:
+                for r, t in enumerate(times):
+                    out[r][d] = closed_form.concentrations(kind, network, initial[r], math.exp(ln_k[r, 0]), t)
+                continue
+            kelvin = obs.temperature_K if draws.run_temperature is None else draws.run_temperature[d]
+            ln_eq = ln_rate_constant(
+                kelvin[:, None], draws.ln_eq_ref[d][None, :], draws.dh[d][None, :], temperature_ref
+            )
+            ln_ads = None
+            if draws.ln_ads_ref is not None:
+                ln_ads = ln_rate_constant(
+                    kelvin[:, None], draws.ln_ads_ref[d][None, :], draws.dh_ads[d][None, :], temperature_ref
+                )
+            try:
+                solution = solver.solve(ln_k, ln_eq, draws.orders[d], initial, ln_ads=ln_ads, sensitivities=False)
+            except SolverFailure:
+                continue
+            for r in range(len(times)):
+                out[r][d] = solution.concentrations[r]
+        return out
+
+    def figures(
+        self, folder: StagedFolder, idata: az.InferenceData, temperature_ref: float, fit_checks: pd.DataFrame
+    ) -> None:
+        obs = self.obs
+        plots.arrhenius_plot(
+            self.study, idata.posterior, temperature_ref, self.temperatures_K, folder.path("figures/arrhenius.png")
+        )
+        times = [np.linspace(0.0, float(t.max()), PROFILE_POINTS) for t in obs.times]
+        curves = self.profiles(idata.posterior, temperature_ref, times)
+        for r, run in enumerate(obs.run_ids):
+            safe = "".join(ch if ch.isalnum() or ch in "-_." else "_" for ch in run)
+            plots.run_fit_plot(
+                self.study, obs, r, times[r], curves[r], fit_checks, folder.path(f"figures/run_{safe}.png")
+            )

@@ -1,0 +1,551 @@
+"""Reactor predictions from a saved posterior: scenarios in, bands and scalar answers out, no refit.
+
+For every scenario the posterior draws are pushed through ``reactors``; each answer is reported as quantiles
+over draws, so its interval carries the uncertainty of the kinetics. Times, temperatures and concentrations
+are in the study's units. Every temperature outside the fitted runs' range is flagged with how far outside.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pydantic
+from scipy.interpolate import CubicSpline
+from scipy.optimize import minimize_scalar
+
+from ..errors import StudyError
+from ..inputs import units
+from ..inputs.config import format_validation_error, lists_to_tuples, load_study, read_yaml
+from ..inputs.data import read_runs
+from ..inputs.scenarios import check_scenario
+from ..inputs.schema import Scenario, ScenarioFile
+from ..inputs.study import Study
+from ..outputs import report
+from ..outputs.records import PredictionResult
+from ..outputs.reporting import CAUTION
+from ..outputs.results import StagedFolder, check_target, load_results, sha256_file
+from ..physics.arrhenius import R
+from ..physics.reactors import batch_profiles, cstr_steady_states, programmed_batch_profiles
+from ..posterior.draws import ParameterDraws, parameter_draws, pick_draws
+
+QUANTILES = (0.05, 0.25, 0.5, 0.75, 0.95)
+TABLE_COLUMNS = ["scenario", "time", "quantity", "unit", "median", "q05", "q25", "q75", "q95"]
+SUMMARY_COLUMNS = ["scenario", "quantity", "unit", "median", "q05", "q95", "share", "note"]
+#: Residence times searched for a CSTR's target conversion, relative to the scenario's range.
+CSTR_SEARCH_POINTS = 48
+
+
+def _band(values: np.ndarray) -> np.ndarray:
+    """Quantiles over draws (axis 0), ignoring failed draws and undefined values (NaN, e.g. a selectivity at
+    zero conversion)."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return np.nanquantile(values, QUANTILES, axis=0)
+
+
+def load_scenarios(path: Path, study: Study) -> ScenarioFile:
+    """Read and validate a scenarios file against the study it will be applied to."""
+    content = read_yaml(path)
+    if not isinstance(content, dict):
+        raise StudyError(str(path), "a scenarios file is a mapping with the key 'scenarios'")
+    try:
+        file = ScenarioFile.model_validate(lists_to_tuples(content))
+    except pydantic.ValidationError as exc:
+        raise format_validation_error(str(path), exc, ScenarioFile) from None
+    for index, scenario in enumerate(file.scenarios):
+        check_scenario(scenario, study, f"{path}: scenarios[{index}]")
+    return file
+
+
+@dataclass(frozen=True)
+class _Units:
+    """Factors between a scenarios file's units and the study's (value in study units = factor x value)."""
+
+    time: str
+    concentration: str
+    temperature: str
+    time_factor: float
+    concentration_factor: float
+
+    @classmethod
+    def of(cls, file: ScenarioFile, study: Study, where: str) -> _Units:
+        given = file.units
+        time = given.time or study.units.time
+        concentration = given.concentration or study.units.concentration
+        temperature = given.temperature or study.units.temperature
+        units.parse_unit(temperature, "temperature", f"{where}: units.temperature")
+        return cls(
+            time,
+            concentration,
+            temperature,
+            float(units.convert(1.0, time, study.units.time, "time", f"{where}: units.time")),
+            float(
+                units.convert(
+                    1.0, concentration, study.units.concentration, "concentration", f"{where}: units.concentration"
+                )
+            ),
+        )
+
+    def temperature_in_study(self, value: float, study: Study, where: str) -> float:
+        return float(units.kelvin_to(units.to_kelvin(value, self.temperature, where), study.units.temperature)[0])
+
+    def to_study(self, scenario: Scenario, study: Study, where: str) -> Scenario:
+        """The scenario restated in the study's units (the physics works in those)."""
+        t, c = self.time_factor, self.concentration_factor
+
+        def temp(value: float | None) -> float | None:
+            return None if value is None else self.temperature_in_study(value, study, where)
+
+        update: dict = {
+            "initial": {name: c * value for name, value in scenario.initial.items()},
+            "temperature": temp(scenario.temperature),
+        }
+        if scenario.until is not None:
+            update["until"] = t * scenario.until
+        if scenario.residence_times is not None:
+            update["residence_times"] = tuple(t * tau for tau in scenario.residence_times)
+        if scenario.programme is not None:
+            update["programme"] = tuple((t * time, temp(value)) for time, value in scenario.programme)
+        if scenario.spec is not None:
+            update["spec"] = scenario.spec.model_copy(update={"by": t * scenario.spec.by})
+        target = scenario.temperature_for
+        if target is not None:
+            update["temperature_for"] = target.model_copy(
+                update={
+                    "between": (temp(target.between[0]), temp(target.between[1])),
+                    "within": None if target.within is None else t * target.within,
+                    "half_life": None if target.half_life is None else t * target.half_life,
+                }
+            )
+        return scenario.model_copy(update=update)
+
+    def table_from_study(self, table: pd.DataFrame, study: Study) -> pd.DataFrame:
+        """Profiles back in the scenario's units: the time axis and the concentrations."""
+        table = table.copy()
+        table[table.columns[1]] = table[table.columns[1]] / self.time_factor
+        rows = table["quantity"].str.startswith("c[")
+        for column in ("median", "q05", "q25", "q75", "q95"):
+            table.loc[rows, column] = table.loc[rows, column] / self.concentration_factor
+        table.loc[rows, "unit"] = self.concentration
+        return table
+
+    def scalar_from_study(self, row: dict, study: Study) -> dict:
+        """One scalar answer back in the scenario's units, by the unit it carries."""
+        row = dict(row)
+        columns = ("median", "q05", "q95")
+        if row["unit"] == study.units.time:
+            row.update({k: row[k] / self.time_factor for k in columns}, unit=self.time)
+        elif row["unit"] == study.units.concentration:
+            row.update({k: row[k] / self.concentration_factor for k in columns}, unit=self.concentration)
+        elif row["unit"] == study.units.temperature:
+            for k in columns:
+                if np.isfinite(row[k]):
+                    kelvin = units.to_kelvin(row[k], study.units.temperature, "scenario")
+                    row[k] = float(units.kelvin_to(kelvin, self.temperature)[0])
+            row["unit"] = self.temperature
+        return row
+
+
+def _to_kelvin(study: Study, value: float | np.ndarray, where: str) -> np.ndarray:
+    return units.to_kelvin(value, study.units.temperature, where)
+
+
+def _first_crossing(times: np.ndarray, conversion: np.ndarray, target: float) -> np.ndarray:
+    """Per draw, the first time conversion reaches ``target`` (linear between grid points); inf if never."""
+    out = np.full(conversion.shape[0], np.inf)
+    for d, row in enumerate(conversion):
+        above = np.flatnonzero(row >= target)
+        if above.size == 0 or not np.all(np.isfinite(row)):
+            continue
+        i = above[0]
+        if i == 0:
+            out[d] = times[0]
+            continue
+        x0, x1 = row[i - 1], row[i]
+        out[d] = times[i - 1] + (target - x0) / (x1 - x0) * (times[i] - times[i - 1])
+    return out
+
+
+def _maximum(times: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per draw, time and height of the maximum: the grid's highest point refined on a cubic spline through
+    the grid (bounded search between the neighbouring grid points)."""
+    t_max, c_max = np.full(values.shape[0], np.nan), np.full(values.shape[0], np.nan)
+    for d, row in enumerate(values):
+        if not np.all(np.isfinite(row)):
+            continue
+        i = int(np.argmax(row))
+        t_max[d], c_max[d] = times[i], row[i]
+        if 0 < i < row.size - 1:
+            spline = CubicSpline(times, row)
+            best = minimize_scalar(
+                lambda t, spline=spline: -float(spline(t)),
+                bounds=(times[i - 1], times[i + 1]),
+                method="bounded",
+                options={"xatol": 1e-9 * max(times[-1], 1.0)},
+            )
+            if best.success and -best.fun >= row[i]:
+                t_max[d], c_max[d] = float(best.x), -float(best.fun)
+    return t_max, c_max
+
+
+def _scalar(
+    scenario: str, quantity: str, unit: str, values: np.ndarray, note: str = "", share: float = math.nan
+) -> dict:
+    finite = values[~np.isnan(values)]
+    q05, median, q95 = np.quantile(finite, [0.05, 0.5, 0.95]) if finite.size else (math.nan,) * 3
+    return {
+        "scenario": scenario,
+        "quantity": quantity,
+        "unit": unit,
+        "median": median,
+        "q05": q05,
+        "q95": q95,
+        "share": share,
+        "note": note,
+    }
+
+
+class _Predictor:
+    """Applies one study's posterior draws to scenarios."""
+
+    def __init__(self, study: Study, draws: ParameterDraws, measured_K: tuple[float, float]) -> None:
+        self.study = study
+        self.draws = draws
+        self.measured = measured_K
+        self.notes: list[str] = []
+        if study.run_variability is not None:
+            self.notes.append(
+                "Predictions are for a new run: each draw adds a between-run shift of ln k drawn with the fitted "
+                "spread (run_variability), so intervals include run-to-run scatter."
+            )
+        #: The unit temperatures are quoted in (the scenarios file's).
+        self.display_temperature = study.units.temperature
+
+    def flag(self, scenario: str, kelvin: float, what: str) -> None:
+        low, high = self.measured
+        unit = self.display_temperature
+        if kelvin < low or kelvin > high:
+            edge = low if kelvin < low else high
+            side = "below the lowest" if kelvin < low else "above the highest"
+            shown = float(units.kelvin_to(kelvin, unit))
+            self.notes.append(
+                f"EXTRAPOLATED: scenario {scenario}: {what} {shown:g} {unit} is {abs(kelvin - edge):.3g} K "
+                f"{side} fitted run temperature ({float(units.kelvin_to(edge, unit)):g} {unit})"
+            )
+
+    def feed(self, scenario: Scenario) -> np.ndarray:
+        return np.array([scenario.initial.get(name, 0.0) for name in self.study.species])
+
+    def profiles(self, scenario: Scenario, kelvin: float | None, where: str) -> tuple[np.ndarray, np.ndarray, str]:
+        """(axis values, concentrations (draws, points, species), axis name)."""
+        network, feed = self.study.network, self.feed(scenario)
+        if scenario.reactor == "cstr":
+            taus = np.array(sorted(scenario.residence_times))
+            solution = cstr_steady_states(network, self.draws, kelvin, feed, taus)
+            shares = {
+                "multiple": solution.multiple.mean(),
+                "unstable": solution.unstable.mean(),
+                "failed": solution.failed.mean(),
+            }
+            for label, share in shares.items():
+                if share > 0:
+                    self.notes.append(
+                        f"scenario {scenario.name}: {label} steady states in {share:.1%} of draws and "
+                        "residence times" + (" (the stable branch is reported)" if label == "multiple" else "")
+                    )
+            return taus, solution.concentrations, "residence_time"
+        if scenario.reactor == "programmed_batch":
+            programme = np.array(scenario.programme, dtype=float)
+            programme[:, 1] = _to_kelvin(self.study, programme[:, 1], f"{where}.programme")
+            for kelvin_point in programme[:, 1]:
+                self.flag(scenario.name, kelvin_point, "programme temperature")
+            until = scenario.until or float(programme[-1, 0])
+            times = np.linspace(0.0, until, scenario.points)
+            return times, programmed_batch_profiles(network, self.draws, programme, feed, times), "time"
+        times = np.linspace(0.0, scenario.until, scenario.points)
+        axis = "space_time" if scenario.reactor == "pfr" else "time"
+        return times, batch_profiles(network, self.draws, kelvin, feed, times), axis
+
+    def conversion_at(self, scenario: Scenario, kelvin: float | np.ndarray, when: float) -> np.ndarray:
+        """Conversion of the key reactant per draw at one time (batch, PFR) or residence time (CSTR);
+        ``kelvin`` is one temperature or one per draw."""
+        feed = self.feed(scenario)
+        key = self.study.species.index(scenario.key_reactant)
+        if scenario.reactor == "cstr":
+            c = cstr_steady_states(
+                self.study.network, self.draws, kelvin, feed, np.array([when]), thorough=False
+            ).concentrations[:, 0]
+        else:
+            c = batch_profiles(self.study.network, self.draws, kelvin, feed, np.array([0.0, when]))[:, -1]
+        return 1.0 - c[:, key] / feed[key]
+
+    def temperature_for(self, scenario: Scenario, where: str) -> np.ndarray:
+        """Per draw, the temperature (K) that meets the scenario's ``temperature_for`` target; NaN if none does
+        within the search range."""
+        target = scenario.temperature_for
+        low, high = _to_kelvin(self.study, np.array(target.between), f"{where}.temperature_for.between")
+        if target.reaction is not None:
+            j = self.study.reaction_names.index(target.reaction)
+            k = target.k if target.k is not None else math.log(2.0) / target.half_life
+            ea, ln_k_ref = self.draws.ea[:, j], self.draws.ln_k_ref[:, j]
+            inverse = 1.0 / self.draws.temperature_ref - R / ea * (math.log(k) - ln_k_ref)
+            kelvin = np.where(inverse > 0, 1.0 / np.where(inverse > 0, inverse, 1.0), np.nan)
+            return np.where((kelvin >= low) & (kelvin <= high), kelvin, np.nan)
+        lo, hi = np.full(self.draws.size, low), np.full(self.draws.size, high)
+        reached_high = self.conversion_at(scenario, high, target.within) >= target.conversion
+        for _ in range(40):  # bisection on T per draw: conversion rises with T when every Ea is positive
+            middle = 0.5 * (lo + hi)
+            above = self.conversion_at(scenario, middle, target.within) >= target.conversion
+            hi = np.where(above, middle, hi)
+            lo = np.where(above, lo, middle)
+        return np.where(reached_high, 0.5 * (lo + hi), np.nan)
+
+    def cstr_time_to(self, scenario: Scenario, kelvin: float, target: float) -> np.ndarray:
+        """Per draw, the residence time that reaches ``target`` conversion (log-spaced search, interpolated)."""
+        taus = np.geomspace(min(scenario.residence_times) / 10, max(scenario.residence_times) * 10, CSTR_SEARCH_POINTS)
+        c = cstr_steady_states(
+            self.study.network, self.draws, kelvin, self.feed(scenario), taus, thorough=False
+        ).concentrations
+        key = self.study.species.index(scenario.key_reactant)
+        conversion = 1.0 - c[:, :, key] / self.feed(scenario)[key]
+        return _first_crossing(taus, np.nan_to_num(conversion, nan=-1.0), target)
+
+    def run(self, scenario: Scenario, where: str, stated: Scenario, time_unit: str) -> tuple[pd.DataFrame, list[dict]]:
+        """Profiles and answers of ``scenario`` (in the study's units); names quote ``stated``, the scenario as
+        written, in its own ``time_unit``."""
+        study, name = self.study, scenario.name
+        conc_unit = study.units.concentration
+        kelvin = None
+        if scenario.temperature is not None:
+            kelvin = float(_to_kelvin(study, scenario.temperature, f"{where}.temperature")[0])
+            self.flag(name, kelvin, "temperature")
+        axis, profiles, axis_name = self.profiles(scenario, kelvin, where)
+        series: dict[str, tuple[str, np.ndarray]] = {
+            f"c[{s}]": (conc_unit, profiles[:, :, i]) for i, s in enumerate(study.species)
+        }
+        feed = self.feed(scenario)
+        conversion = None
+        if scenario.key_reactant is not None:
+            key = study.species.index(scenario.key_reactant)
+            consumed = feed[key] - profiles[:, :, key]
+            conversion = consumed / feed[key]
+            series[f"conversion[{scenario.key_reactant}]"] = ("", conversion)
+            for product in scenario.products:
+                p = study.species.index(product)
+                formed = profiles[:, :, p] - feed[p]
+                series[f"yield[{product}]"] = ("", formed / feed[key])
+                with np.errstate(divide="ignore", invalid="ignore"):
+                    series[f"selectivity[{product}]"] = ("", np.where(consumed > 0, formed / consumed, np.nan))
+        rows = []
+        for quantity, (unit, values) in series.items():
+            band = _band(values)
+            for t, column in zip(axis, band.T, strict=True):
+                rows.append(
+                    {
+                        "scenario": name,
+                        "time": t,
+                        "quantity": quantity,
+                        "unit": unit,
+                        "median": column[2],
+                        "q05": column[0],
+                        "q25": column[1],
+                        "q75": column[3],
+                        "q95": column[4],
+                    }
+                )
+        scalars = self.scalars(scenario, kelvin, axis, profiles, conversion, axis_name, where, stated, time_unit)
+        table = pd.DataFrame(rows, columns=TABLE_COLUMNS).rename(columns={"time": axis_name})
+        return table, scalars
+
+    def scalars(
+        self,
+        scenario: Scenario,
+        kelvin: float | None,
+        axis: np.ndarray,
+        profiles: np.ndarray,
+        conversion: np.ndarray | None,
+        axis_name: str,
+        where: str,
+        stated: Scenario,
+        time_unit: str,
+    ) -> list[dict]:
+        study, name = self.study, scenario.name
+        study_time = study.units.time
+        out = []
+        if conversion is not None:
+            # The plain answer first: how far the key reactant got by the end of each case.
+            label = axis_name.replace("_", " ")
+            ends = [(i, f"at {label} {float(a):g} {study_time}") for i, a in enumerate(axis)]
+            for index, where_at in ends if scenario.reactor == "cstr" else ends[-1:]:
+                out.append(_scalar(name, f"conversion of {scenario.key_reactant} {where_at}", "", conversion[:, index]))
+        if scenario.target_conversion is not None and conversion is not None:
+            target = scenario.target_conversion
+            if scenario.reactor == "cstr":
+                values = self.cstr_time_to(scenario, kelvin, target)
+            else:
+                values = _first_crossing(axis, conversion, target)
+            reached = float(np.mean(np.isfinite(values)))
+            out.append(
+                _scalar(
+                    name,
+                    f"{axis_name} to {target:.0%} conversion of {scenario.key_reactant}",
+                    study_time,
+                    values,
+                    "share = draws that reach it within the scenario's range",
+                    reached,
+                )
+            )
+        if scenario.spec is not None and conversion is not None:
+            spec = scenario.spec
+            if scenario.reactor == "cstr":
+                at = self.conversion_at(scenario, kelvin, spec.by)
+            else:
+                at = np.array(
+                    [np.interp(spec.by, axis, row) if np.all(np.isfinite(row)) else np.nan for row in conversion]
+                )
+            meets = float(np.mean(at[~np.isnan(at)] >= spec.conversion)) if np.any(~np.isnan(at)) else math.nan
+            out.append(
+                _scalar(
+                    name,
+                    f"conversion of {scenario.key_reactant} at {stated.spec.by:g} {time_unit}",
+                    "",
+                    at,
+                    f"share = probability of at least {spec.conversion:.0%}",
+                    meets,
+                )
+            )
+        if scenario.intermediate is not None and scenario.reactor != "cstr":
+            i = study.species.index(scenario.intermediate)
+            t_max, c_max = _maximum(axis, profiles[:, :, i])
+            out.append(_scalar(name, f"{axis_name} of maximum {scenario.intermediate}", study_time, t_max))
+            out.append(
+                _scalar(name, f"maximum concentration of {scenario.intermediate}", study.units.concentration, c_max)
+            )
+        if scenario.temperature_for is not None:
+            kelvin_needed = self.temperature_for(scenario, where)
+            unit = study.units.temperature
+            shown = np.where(
+                np.isnan(kelvin_needed), np.nan, units.kelvin_to(np.nan_to_num(kelvin_needed, nan=300.0), unit)
+            )
+            found = float(np.mean(~np.isnan(kelvin_needed)))
+            target = scenario.temperature_for
+            what = (
+                f"temperature for {target.conversion:.0%} conversion within "
+                f"{stated.temperature_for.within:g} {time_unit}"
+                if target.conversion is not None
+                else f"temperature for k[{target.reaction}] = {target.k:g}"
+                if target.k is not None
+                else f"temperature for a half-life of {stated.temperature_for.half_life:g} {time_unit} of "
+                f"{target.reaction}"
+            )
+            out.append(_scalar(name, what, unit, shown, "share = draws with a solution in the searched range", found))
+            if found > 0:
+                self.flag(name, float(np.nanmedian(kelvin_needed)), "the temperature found")
+        return out
+
+
+def _measured_range(study: Study, attrs: dict) -> tuple[float, float]:
+    if "temperature_range_K" in attrs:
+        low, high = attrs["temperature_range_K"]
+        return float(low), float(high)
+    kelvin = read_runs(study).temperature_K
+    return float(kelvin.min()), float(kelvin.max())
+
+
+def predict(
+    results_dir: str | Path,
+    scenarios: str | Path | ScenarioFile,
+    *,
+    out: str | Path | None = None,
+    overwrite: bool = False,
+    quiet: bool = False,
+    draws: int | None = None,
+    command_line: str | None = None,
+) -> PredictionResult:
+    """Reactor predictions for every scenario (a file, or scenarios already validated) from the posterior in
+    ``results_dir``.
+
+    Written to ``out`` (default ``results_dir/predictions``): one CSV and one figure per scenario,
+    ``summary.csv`` of scalar answers, ``cautions.txt`` and ``manifest.json``.
+    """
+    from ..outputs import plots
+
+    results_dir = Path(results_dir)
+    manifest, idata = load_results(results_dir)
+    study = load_study(results_dir / "study.yaml")
+    if study.mode != "network":
+        raise StudyError(
+            str(results_dir),
+            "reactor predictions need a reaction network fitted to batch runs",
+            "rate-constant studies report k at named temperatures instead (report.k_at)",
+        )
+    if isinstance(scenarios, ScenarioFile):
+        file, source = scenarios, {"path": str(results_dir / "study.yaml"), "sha256": None}
+    else:
+        file = load_scenarios(Path(scenarios), study)
+        source = {"path": str(Path(scenarios).resolve()), "sha256": sha256_file(Path(scenarios))}
+    target = Path(out) if out is not None else results_dir / "predictions"
+    inputs = (results_dir,) if isinstance(scenarios, ScenarioFile) else (results_dir, Path(scenarios))
+    check_target(target, overwrite, inputs)
+    attrs = json.loads(idata.posterior.attrs["arrhenia"])
+    posterior = idata.posterior
+    picks = pick_draws(posterior, draws or file.draws)
+    parameter = parameter_draws(study, posterior, float(attrs["reference_temperature_K"]), picks)
+    predictor = _Predictor(study, parameter, _measured_range(study, attrs))
+    profiles, summary_rows = {}, []
+    scenario_units = _Units.of(file, study, source["path"])
+    predictor.display_temperature = scenario_units.temperature
+    for index, scenario in enumerate(file.scenarios):
+        where = f"{source['path']}: scenarios[{index}]"
+        table, scalars = predictor.run(
+            scenario_units.to_study(scenario, study, where), where, scenario, scenario_units.time
+        )
+        profiles[scenario.name] = scenario_units.table_from_study(table, study)
+        summary_rows += [scenario_units.scalar_from_study(row, study) for row in scalars]
+        if not quiet:
+            print(
+                f"predicted scenario {scenario.name} ({scenario.reactor}, {parameter.size} posterior draws)", flush=True
+            )
+    summary = pd.DataFrame(summary_rows, columns=SUMMARY_COLUMNS)
+    notes = predictor.notes
+    result = PredictionResult(target, profiles, summary, [n for n in notes if n.startswith("EXTRAPOLATED")])
+    with StagedFolder(target, overwrite, inputs) as folder:
+        for name, table in profiles.items():
+            folder.write_csv(f"{name}.csv", table)
+            plots.prediction_plot(name, table, folder.path(f"{name}.png"), scenario_units.time)
+        folder.write_csv("summary.csv", summary)
+        folder.write_text("cautions.txt", "\n".join([*notes, CAUTION]) + "\n")
+        folder.write_text(
+            "report.html",
+            report.simple_report(
+                folder.stage,
+                title=f"Arrhenia reactor predictions: {study.name}",
+                intro=[
+                    f"{parameter.size} posterior draws of {results_dir} pushed through {len(profiles)} scenario(s); "
+                    "medians with 90 % intervals."
+                ],
+                tables=[("Answers", summary)],
+                figures=[(f"{n}.png", f"Scenario {n}") for n in profiles],
+                cautions=[*notes, CAUTION],
+            ),
+        )
+        folder.write_manifest(
+            "predictions",
+            {
+                "results": str(results_dir),
+                "results_config_sha256": manifest.get("config_sha256"),
+                "results_posterior_sha256": manifest["files"]["posterior.nc"],
+                "scenarios": source,
+                "draws": int(parameter.size),
+                "fitted_temperature_range_K": list(predictor.measured),
+                "notes": notes,
+            },
+            command_line,
+        )
+    return result
