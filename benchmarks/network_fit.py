@@ -120,6 +120,7 @@ def arrhenia_child(folder: str) -> None:
     started = time.perf_counter()
     from inference import fit_study, load_study
     from inference.model.builder import network_solver
+    from inference.physics.parameters import KineticInputs
     from inference.workflows.kinds import open_problem
 
     imported = time.perf_counter()
@@ -137,7 +138,9 @@ def arrhenia_child(folder: str) -> None:
     x = np.concatenate([np.ravel(point[v.name]) for v in model.value_vars])
     solver = network_solver(study, problem.obs)
     ln_k = np.log([[*rate_constants(r[0])] for r in RUNS])
-    args = (ln_k, np.zeros((len(RUNS), 0)), study.network.forward_orders, problem.obs.initial)
+    inputs = KineticInputs(
+        ln_k, np.zeros((len(RUNS), 0)), np.zeros((len(RUNS), 0)), study.network.forward_orders, problem.obs.initial
+    )
 
     def per_call(fn, repeats=300) -> float:
         fn()
@@ -147,7 +150,7 @@ def arrhenia_child(folder: str) -> None:
         return (time.perf_counter() - begin) / repeats
 
     gradient = per_call(lambda: function(x))
-    forward = per_call(lambda: solver.solve(*args, sensitivities=False))
+    forward = per_call(lambda: solver.solve(inputs, sensitivities=False))
     print(
         json.dumps(
             {

@@ -199,3 +199,42 @@ scenarios:
     assert a.loc["maximum concentration of B", "median"] == pytest.approx(
         1000 * b.loc["maximum concentration of B", "median"], rel=1e-3
     )
+
+
+def test_temperature_for_a_half_life_inverts_the_same_law_as_the_profiles(fitted):
+    # Found: `temperature_for: {reaction, half_life}` inverted the plain Arrhenius law inline, ignoring the
+    # temperature exponent and a new run's shift that the profiles apply. Reference: the extended law
+    # k = k_ref (T/T_ref)^n exp(-(Ea/R)(1/T - 1/T_ref)) e^shift solved for k = ln 2 / t_half by scipy's brentq.
+    from dataclasses import replace
+    from types import SimpleNamespace
+
+    from scipy.optimize import brentq
+
+    from inference.inputs.schema import TemperatureFor
+    from inference.posterior.draws import parameter_draws, pick_draws
+    from inference.workflows.predict import _Predictor
+
+    _, result = fitted
+    posterior = result.idata.posterior
+    draws = parameter_draws(result.study, posterior, 330.0, pick_draws(posterior, 40))
+    rng = np.random.default_rng(5)
+    exponent = np.zeros_like(draws.ln_k_ref)
+    exponent[:, 0] = 1.5
+    draws = replace(draws, exponent=exponent, new_run_shift=rng.normal(0.0, 0.3, draws.ln_k_ref.shape))
+    predictor = _Predictor(result.study, draws, (318.15, 338.15))
+    half_life = 2.0
+    target = TemperatureFor(between=(0.0, 150.0), reaction="first", half_life=half_life)
+    found = predictor.temperature_for(SimpleNamespace(temperature_for=target), "test")
+
+    for d in range(draws.size):
+        ln_k_ref, ea, shift = draws.ln_k_ref[d, 0], draws.ea[d, 0], draws.new_run_shift[d, 0]
+
+        def gap(kelvin, ln_k_ref=ln_k_ref, ea=ea, shift=shift):
+            law = ln_k_ref + 1.5 * np.log(kelvin / 330.0) - ea / R * (1 / kelvin - 1 / 330.0) + shift
+            return law - np.log(np.log(2.0) / half_life)
+
+        if gap(273.15) > 0 or gap(423.15) < 0:
+            assert np.isnan(found[d])
+        else:
+            assert found[d] == pytest.approx(brentq(gap, 273.15, 423.15, xtol=1e-10), abs=1e-6)
+    assert np.isfinite(found).sum() > draws.size // 2  # the check above ran on most draws

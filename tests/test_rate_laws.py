@@ -18,6 +18,7 @@ from inference.inputs.config import load_study
 from inference.physics import closed_form
 from inference.physics.arrhenius import R, eyring_activation, ln_pre_exponential, ln_rate_constant
 from inference.physics.network import build_network, parse_equation
+from inference.physics.parameters import KineticInputs
 from inference.physics.solution import NetworkSolver
 from inference.posterior.draws import parameter_draws, pick_draws
 from inference.workflows.kinds import open_problem
@@ -32,14 +33,10 @@ def saturating_network(species, equation, exponent, adsorbed):
 
 def solve(net, times, ln_k, ln_ads, initial, sensitivities=False):
     solver = NetworkSolver(net, [np.asarray(times, dtype=float)])
-    return solver.solve(
-        np.atleast_2d(ln_k),
-        np.zeros((1, 0)),
-        net.forward_orders,
-        np.atleast_2d(initial),
-        ln_ads=np.atleast_2d(ln_ads),
-        sensitivities=sensitivities,
+    inputs = KineticInputs(
+        np.atleast_2d(ln_k), np.zeros((1, 0)), np.atleast_2d(ln_ads), net.forward_orders, np.atleast_2d(initial)
     )
+    return solver.solve(inputs, sensitivities=sensitivities)
 
 
 def test_saturating_law_with_vanishing_adsorption_is_mass_action():

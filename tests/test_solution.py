@@ -8,6 +8,7 @@ from scipy.integrate import solve_ivp
 
 from inference.physics import closed_form
 from inference.physics.network import EquationError, build_network, element_counts, imbalance, parse_equation
+from inference.physics.parameters import KineticInputs
 from inference.physics.solution import NetworkSolver, SolverSettings
 
 
@@ -19,8 +20,9 @@ def network(species, *equations, orders=None):
 def solve(net, times, k, initial, ln_eq=None, orders=None, **kwargs):
     solver = NetworkSolver(net, [np.asarray(times, dtype=float)], **kwargs)
     ln_eq = np.zeros((1, 0)) if ln_eq is None else np.atleast_2d(ln_eq)
+    orders = net.forward_orders if orders is None else orders
     result = solver.solve(
-        np.log(np.atleast_2d(k)), ln_eq, net.forward_orders if orders is None else orders, np.atleast_2d(initial)
+        KineticInputs(np.log(np.atleast_2d(k)), ln_eq, np.zeros((1, 0)), orders, np.atleast_2d(initial))
     )
     return solver, result
 
@@ -132,9 +134,8 @@ def test_sensitivities_match_finite_differences():
     def run(x, sensitivities=False):
         orders = np.array(net.forward_orders)
         orders[0, 1] = x[3]
-        return solver.solve(
-            x[None, :2], x[None, 2:3], orders, np.array([[x[4], 0.9, 0.0, 0.0]]), sensitivities=sensitivities
-        )
+        inputs = KineticInputs(x[None, :2], x[None, 2:3], np.zeros((1, 0)), orders, np.array([[x[4], 0.9, 0.0, 0.0]]))
+        return solver.solve(inputs, sensitivities=sensitivities)
 
     exact = run(base, sensitivities=True).sensitivities[0]
     numeric = central_difference(lambda x: run(x).concentrations[0], base)
@@ -190,10 +191,8 @@ def test_extreme_rate_constants_fail_cleanly(ln_k):
     measurements = MeasurementSolver(
         solver, np.array([0, 0]), np.array([0, 1]), np.array([0, 2]), np.array([[0, 1]]), 2
     )
-    for call in (
-        lambda: solver.solve(np.array([[ln_k, ln_k]]), np.zeros((1, 0)), net.forward_orders, initial),
-        lambda: measurements.solve(np.array([[ln_k, ln_k]]), np.zeros((1, 0)), net.forward_orders, initial),
-    ):
+    inputs = KineticInputs(np.array([[ln_k, ln_k]]), np.zeros((1, 0)), np.zeros((1, 0)), net.forward_orders, initial)
+    for call in (lambda: solver.solve(inputs), lambda: measurements.solve(inputs)):
         try:
             result = call()
         except SolverFailure:

@@ -15,9 +15,9 @@ from ..errors import StudyError
 from ..physics.network import Equation, EquationError, Network, build_network, element_counts, imbalance, parse_equation
 from . import units
 from .files import excerpt, read_text, resolve, shown_path
-from .rate_laws import REGISTRY, missing_keys, undeclared_keys
+from .rate_laws import LAW_KEYS, REGISTRY, Z95, missing_keys, undeclared_keys, van_t_hoff_prior
 from .scenarios import check_scenario
-from .schema import ExponentPrior, LogNormalPrior, NormalPrior, OrderPrior, Reaction, StudyFile
+from .schema import ExponentPrior, OrderPrior, Reaction, StudyFile
 from .study import (
     AdsorptionSite,
     ArrheniusPrior,
@@ -31,10 +31,6 @@ from .study import (
 
 #: A study file is a few kilobytes; anything much larger is not one.
 MAX_STUDY_BYTES = 1_000_000
-
-#: z for a central 95 % interval of a normal distribution; k_ref's ``factor`` spans that interval.
-Z95 = 1.959963984540054
-
 
 #: YAML nested deeper than this is refused while it is composed (a study file needs about 5 levels), long
 #: before Python's recursion limit could be reached.
@@ -317,10 +313,10 @@ def _resolve_rate_constant_reactions(file: StudyFile, where: str) -> tuple[React
     order = units.rate_constant_order(file.units.rate_constant or "1/s")
     for index, reaction in enumerate(file.reactions):
         key = f"{where}: reactions[{index}]"
-        for extra in ("K_ref", "dH", *sorted(_given_keys(reaction) & {"orders", *REGISTRY["saturating"].takes})):
+        for extra in ("K_ref", "dH", *sorted(_given_keys(reaction) & LAW_KEYS)):
             if getattr(reaction, extra) is not None:
                 raise StudyError(f"{key}.{extra}", "is for reaction networks fitted to concentration data")
-        if REGISTRY[reaction.rate_law].saturating:
+        if REGISTRY[reaction.rate_law].network_only:
             raise StudyError(
                 f"{key}.rate_law", f"{reaction.rate_law} is for reaction networks fitted to concentration data"
             )
@@ -339,48 +335,6 @@ def _resolve_rate_constant_reactions(file: StudyFile, where: str) -> tuple[React
             )
         )
     return tuple(specs)
-
-
-def _van_t_hoff_prior(
-    constant: LogNormalPrior, enthalpy: NormalPrior, energy: str, where: str
-) -> tuple[float, float, float, float]:
-    """(mean and sd of ln K at T_ref, mean and sd of its enthalpy in J/mol) from a constant's priors."""
-    return (
-        math.log(constant.median),
-        math.log(constant.factor) / Z95,
-        float(units.energy_to_joule_per_mol(enthalpy.mean, energy, where)),
-        float(units.energy_to_joule_per_mol(enthalpy.sd, energy, where)),
-    )
-
-
-def _adsorption(
-    reaction: Reaction, equation: Equation, species: tuple[str, ...], energy: str, key: str
-) -> tuple[float, tuple[AdsorptionSite, ...]]:
-    """Inhibition exponent and adsorption sites of a saturating law (0 and none for other laws)."""
-    if reaction.rate_law == "michaelis_menten":
-        catalysts = {name for name, _ in equation.products}
-        substrates = [name for name, _ in equation.reactants if name not in catalysts]
-        if len(substrates) != 1:
-            raise StudyError(
-                f"{key}.equation",
-                f"michaelis_menten needs exactly one substrate, '{reaction.equation}' has {len(substrates)}",
-                "write the enzyme on both sides, e.g. 'S + E -> P + E', or use rate_law: saturating",
-            )
-        assert reaction.K_M is not None and reaction.K_M_dH is not None  # required by the registry
-        ln_mean, ln_sd, dh_mean, dh_sd = _van_t_hoff_prior(reaction.K_M, reaction.K_M_dH, energy, f"{key}.K_M_dH")
-        # K = 1/K_M: a lognormal stays lognormal with the median inverted; dH of binding is -dH of K_M.
-        return 1.0, (AdsorptionSite(substrates[0], -ln_mean, ln_sd, -dh_mean, dh_sd),)
-    if reaction.rate_law != "saturating":
-        return 0.0, ()
-    sites = []
-    for name, prior in (reaction.adsorption or {}).items():
-        if name not in species:
-            close = difflib.get_close_matches(name, species, n=1)
-            hint = f"did you mean '{close[0]}'?" if close else "adsorbing species must be in the species list"
-            raise StudyError(f"{key}.adsorption.{name}", f"'{name}' is not in species ({', '.join(species)})", hint)
-        where = f"{key}.adsorption.{name}.dH"
-        sites.append(AdsorptionSite(name, *_van_t_hoff_prior(prior.K_ref, prior.dH, energy, where)))
-    return (reaction.inhibition_exponent or 1.0), tuple(sites)
 
 
 def _parse_network_equation(reaction: Reaction, species: tuple[str, ...], key: str) -> Equation:
@@ -411,7 +365,8 @@ def _resolve_network(file: StudyFile, where: str) -> tuple[tuple[ReactionSpec, .
         reactant_orders = dict(equation.reactants)
         fitted_orders = []
         _check_law_keys(reaction, key)
-        inhibition, sites = _adsorption(reaction, equation, species, energy, key)
+        terms = REGISTRY[reaction.rate_law].kernel_terms(reaction, equation, species, energy, key)
+        inhibition, sites = terms.inhibition_exponent, tuple(AdsorptionSite(*site) for site in terms.sites)
         for name, order in (reaction.orders or {}).items():
             if name not in reactant_orders:
                 raise StudyError(f"{key}.orders.{name}", f"'{name}' is not a reactant of '{reaction.equation}'")
@@ -433,7 +388,7 @@ def _resolve_network(file: StudyFile, where: str) -> tuple[tuple[ReactionSpec, .
             )
         equilibrium, eq_unit = None, ""
         if reaction.K_ref is not None and reaction.dH is not None:
-            equilibrium = EquilibriumPrior(*_van_t_hoff_prior(reaction.K_ref, reaction.dH, energy, f"{key}.dH"))
+            equilibrium = EquilibriumPrior(*van_t_hoff_prior(reaction.K_ref, reaction.dH, energy, f"{key}.dH"))
             delta_n = sum(c for _, c in equation.products) - sum(c for _, c in equation.reactants)
             eq_unit = _concentration_power(conc, delta_n)
         order_maps.append(reactant_orders)

@@ -15,6 +15,7 @@ from scipy import stats
 from ..physics.arrhenius import linearised_fit
 from . import units
 from .data import Observations, RateConstantData
+from .rate_laws import REGISTRY
 from .study import Study
 
 #: The lowest or highest of four or more distinct temperatures is flagged when its gap in 1/T to the next one
@@ -152,9 +153,7 @@ def energy_warnings(study: Study) -> list[str]:
         priors = [("Ea", spec.prior.ea_mean, spec.prior.ea_sd)]
         if spec.equilibrium is not None:
             priors.append(("dH", spec.equilibrium.dh_mean, spec.equilibrium.dh_sd))
-        for site in spec.adsorption:
-            name = "K_M_dH" if spec.rate_law == "michaelis_menten" else f"adsorption.{site.species}.dH"
-            priors.append((name, site.dh_mean, site.dh_sd))
+        priors += REGISTRY[spec.rate_law].written_enthalpies(spec)
         for name, mean, sd in priors:
             size = max(abs(mean), sd)
             stated = [float(units.joule_per_mol_to(value, unit)) for value in (mean, sd)]

@@ -11,6 +11,8 @@ from typing import Annotated, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, PositiveFloat, model_validator
 
+from .rate_laws import REGISTRY
+
 NAME_PATTERN = r"^[A-Za-z][A-Za-z0-9_.\-]*$"
 Name = Annotated[str, Field(pattern=NAME_PATTERN, max_length=64)]
 
@@ -110,7 +112,8 @@ class ExponentPrior(Strict):
     sd: Annotated[float, Field(gt=0.0, le=10.0)]
 
 
-RATE_LAWS = ("mass_action", "power_law", "saturating", "michaelis_menten")
+#: The names of the registered rate laws (``rate_laws.REGISTRY``), the values ``rate_law`` may take.
+RATE_LAWS = tuple(REGISTRY)
 
 
 class Reaction(Strict):
@@ -123,7 +126,7 @@ class Reaction(Strict):
     rate by (1 + sum_j K_j c_j)^inhibition_exponent with one ``adsorption`` entry per species j;
     ``michaelis_menten`` is its one-substrate case with exponent 1, given by ``K_M`` (concentration) and
     ``K_M_dH``. ``temperature_exponent`` (any law): n of (T/T_ref)^n, a fixed number or ``{mean, sd}``.
-    Which keys a law takes is declared in ``inference.rate_laws``.
+    Every law, and which keys it takes, is declared in ``inference.inputs.rate_laws``.
     """
 
     name: Name

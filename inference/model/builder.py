@@ -34,6 +34,7 @@ from ..inputs.schema import Noise
 from ..inputs.study import Study
 from ..physics import closed_form
 from ..physics.arrhenius import ln_rate_constant
+from ..physics.parameters import BLOCKS, KineticInputs, SensitivityLayout
 from ..physics.solution import NetworkSolver
 from .ops import NetworkPrediction
 
@@ -116,12 +117,20 @@ def build_rate_constant_model(study: Study, data: RateConstantData, temperature_
     return model
 
 
-def network_solver(study: Study, obs: Observations) -> NetworkSolver:
-    """The solver for this study's network, runs and sampling times (free orders and initial values marked)."""
+def sensitivity_layout(study: Study) -> SensitivityLayout:
+    """Which kinetic parameters of the study are free: its fitted orders and uncertain initial concentrations."""
     species = study.species
     free_orders = tuple((j, species.index(f.species)) for j, r in enumerate(study.reactions) for f in r.fitted_orders)
     free_initial = tuple(species.index(name) for name, _ in study.initial_uncertainty)
-    return NetworkSolver(study.network, list(obs.times), free_orders=free_orders, free_initial=free_initial)
+    return SensitivityLayout(study.network, free_orders, free_initial)
+
+
+def network_solver(study: Study, obs: Observations) -> NetworkSolver:
+    """The solver for this study's network, runs and sampling times (free orders and initial values marked)."""
+    layout = sensitivity_layout(study)
+    return NetworkSolver(
+        study.network, list(obs.times), free_orders=layout.free_orders, free_initial=layout.free_initial
+    )
 
 
 def _van_t_hoff_pair(ln_name: str, dh_name: str, dims: str, priors: np.ndarray):
@@ -181,17 +190,11 @@ def network_coords(study: Study, obs: Observations) -> dict:
         "measurement": np.arange(obs.value.size),
         "observed_species": [study.species[i] for i in obs.observed_species],
     }
-    reversible = [r.name for r in study.reactions if r.equilibrium is not None]
-    if reversible:
-        coords["reversible"] = reversible
-    fitted = [f"{r.name}:{f.species}" for r in study.reactions for f in r.fitted_orders]
-    if fitted:
-        coords["fitted_order"] = fitted
-    if study.initial_uncertainty:
-        coords["uncertain_species"] = [name for name, _ in study.initial_uncertainty]
-    sites = [f"{r.name}:{site.species}" for r in study.reactions for site in r.adsorption]
-    if sites:
-        coords["adsorption_site"] = sites
+    layout = sensitivity_layout(study)
+    for block in BLOCKS:  # a coordinate for every parameter block the study has
+        labels = block.labels(layout)
+        if labels:
+            coords[block.coordinate] = labels
     if study.run_variability is not None:
         coords["varying_reaction"] = [study.reaction_names[j] for j in study.run_variability.reactions]
         coords["group"] = list(obs.group_names)
@@ -251,7 +254,7 @@ def build_network_model(
             predicted = profiles[pt.arange(obs.value.size), obs.species_index]
         else:
             op = NetworkPrediction(network_solver(study, obs), obs, network.forward_orders, failure_log)
-            raw, _ = op(ln_k, ln_eq, ln_ads, orders, initial_free)
+            raw, _ = op(*KineticInputs(ln_k=ln_k, ln_eq=ln_eq, ln_ads=ln_ads, orders=orders, initial=initial_free))
             failed = pt.any(pt.isnan(raw))
             # A failed integration rejects the draw: the log-density is -inf there.
             pm.Potential("solver_guard", pt.switch(failed, -np.inf, 0.0))

@@ -16,12 +16,14 @@ from pytensor.graph.basic import Apply
 from pytensor.graph.op import Op
 
 from ..inputs.data import Observations
+from ..physics.parameters import BLOCKS, KineticInputs
 from ..physics.solution import MeasurementSolver, NetworkSolver, SolverFailure
 
 
 class NetworkPrediction(Op):
-    """Inputs: ln_k (runs, reactions), ln_eq (runs, reversible), ln_ads (runs, adsorption sites), free orders
-    (F,), free initial (runs, G). Outputs: predicted concentration per measurement (M,), and
+    """Inputs: one per block of ``parameters.BLOCKS``, in its order, in the free form of ``KineticInputs``
+    (ln_k (runs, reactions), ln_eq (runs, reversible), ln_ads (runs, adsorption sites), fitted orders (F,),
+    uncertain initial concentrations (runs, G)). Outputs: predicted concentration per measurement (M,), and
     d(prediction)/d(inputs, flattened) (M, P).
 
     A failed integration returns NaN predictions (the model turns them into a log-density of -inf), is
@@ -43,22 +45,17 @@ class NetworkPrediction(Op):
         self.fixed_orders = np.array(fixed_orders, dtype=float)
         self.failures = 0
         n_runs = len(observations.run_ids)
-        # (count, per run) of each input, in the order of the solver's sensitivity parameters.
-        blocks = (
-            (len(solver.network.reactions), True),
-            (solver.reversible_index.size, True),
-            (len(solver.network.adsorption_sites), True),
-            (len(solver.free_orders), False),
-            (len(solver.free_initial), True),
+        counts = [block.count(solver.layout) for block in BLOCKS]
+        self.shapes = tuple(
+            (n_runs, count) if block.per_run else (count,) for block, count in zip(BLOCKS, counts, strict=True)
         )
-        self.shapes = tuple((n_runs, count) if per_run else (count,) for count, per_run in blocks)
         self.sizes = [int(np.prod(s)) for s in self.shapes]
         self.measurements = MeasurementSolver(
             solver,
             observations.run_index,
             observations.time_index,
             observations.species_index,
-            self._jacobian_columns(n_runs, blocks),
+            self._jacobian_columns(n_runs, counts),
             sum(self.sizes),
         )
 
@@ -69,42 +66,31 @@ class NetworkPrediction(Op):
         return self is other
 
     @staticmethod
-    def _jacobian_columns(n_runs: int, blocks: tuple[tuple[int, bool], ...]) -> np.ndarray:
+    def _jacobian_columns(n_runs: int, counts: list[int]) -> np.ndarray:
         """columns[r, p]: the flattened input that sensitivity parameter p of run r belongs to."""
-        columns = np.zeros((n_runs, sum(count for count, _ in blocks)), dtype=int)
+        columns = np.zeros((n_runs, sum(counts)), dtype=int)
         offset, first = 0, 0
-        for count, per_run in blocks:
+        for block, count in zip(BLOCKS, counts, strict=True):
             for r in range(n_runs):
-                columns[r, first : first + count] = offset + (r * count if per_run else 0) + np.arange(count)
-            offset += count * (n_runs if per_run else 1)
+                columns[r, first : first + count] = offset + (r * count if block.per_run else 0) + np.arange(count)
+            offset += count * (n_runs if block.per_run else 1)
             first += count
         return columns
 
-    def make_node(self, ln_k, ln_eq, ln_ads, orders, initial) -> Apply:
-        inputs = [pt.as_tensor_variable(x).astype("float64") for x in (ln_k, ln_eq, ln_ads, orders, initial)]
+    def make_node(self, *inputs) -> Apply:
+        if len(inputs) != len(BLOCKS):
+            raise TypeError(f"NetworkPrediction takes {len(BLOCKS)} inputs, one per parameter block")
+        variables = [pt.as_tensor_variable(x).astype("float64") for x in inputs]
         outputs = [pt.dvector(), pt.dmatrix()]
-        return Apply(self, inputs, outputs)
-
-    def full_orders(self, free_orders: np.ndarray) -> np.ndarray:
-        orders = self.fixed_orders.copy()
-        for value, (j, i) in zip(free_orders, self.solver.free_orders, strict=True):
-            orders[j, i] = value
-        return orders
-
-    def full_initial(self, free_initial: np.ndarray) -> np.ndarray:
-        initial = self.observations.initial.copy()
-        for g, i in enumerate(self.solver.free_initial):
-            initial[:, i] = free_initial[:, g]
-        return initial
+        return Apply(self, variables, outputs)
 
     def perform(self, node: Apply, inputs: list, outputs: list) -> None:
-        ln_k, ln_eq, ln_ads, free_orders, free_initial = inputs
         obs = self.observations
         n_total = sum(self.sizes)
+        free = KineticInputs(*inputs)
         try:
-            prediction, jacobian = self.measurements.solve(
-                ln_k, ln_eq, self.full_orders(free_orders), self.full_initial(free_initial), ln_ads
-            )
+            solver_inputs = self.solver.layout.expand(free, self.fixed_orders, obs.initial)
+            prediction, jacobian = self.measurements.solve(solver_inputs)
         except SolverFailure as failure:
             self.failures += 1
             self.last_failure = str(failure)

@@ -396,6 +396,20 @@ class StagedFolder:
         self.write_json(MANIFEST, {**header, **fields, "versions": package_versions(), "files": files})
 
 
+def write_table(path: Path, table: pd.DataFrame) -> None:
+    """Replace one table file atomically (a reader sees the old table or the new one, never half of one); for
+    tables that live beside results folders rather than in one (``batch_summary.csv``)."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    staged = path.with_name(f".{path.name}.{os.getpid()}@{HOST}")
+    try:
+        table.to_csv(staged, index=False, float_format=CSV_FLOAT_FORMAT, lineterminator="\n")
+        os.replace(staged, path)
+    finally:
+        with suppress(FileNotFoundError):
+            staged.unlink()
+
+
 def binding_differences(folder: Path, manifest: dict, names: Iterable[str] = BOUND_FILES) -> list[str]:
     """Files of a results folder whose bytes differ from the hashes its manifest recorded (empty: they match)."""
     files = _recorded_files(manifest)

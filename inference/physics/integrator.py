@@ -22,7 +22,7 @@ import math
 import numba
 import numpy as np
 
-from .kinetics import INITIAL, LN_ADS, LN_EQ, LN_K, ORDER, _rates_and_jacobian, adsorption_sensitivity
+from .kinetics import INITIAL, LN_ADS, LN_EQ, LN_K, ORDER, _rates_and_jacobian, adsorption_sensitivity, run_kernel
 
 _S6 = math.sqrt(6.0)
 #: Radau IIA(5) nodes and coefficient matrix (Hairer and Wanner, table IV.5.6).
@@ -90,12 +90,23 @@ def _lu_solve(lu, pivots, b):
 @numba.njit(cache=True)
 def _evaluate(y, net, f, jac, rate, forward_rate, reverse_rate, dr_dc, c):
     """f = dc/dt and jac = d f / d c at concentrations y (negative values read as zero)."""
-    k, inv_eq, stoichiometry, forward, reverse, reversible, ads, inhibition = net
-    n_reactions, n_species = forward.shape
+    stoichiometry = net.stoichiometry
+    n_reactions, n_species = net.forward.shape
     for i in range(n_species):
         c[i] = max(y[i], 0.0)
     _rates_and_jacobian(
-        c, k, inv_eq, forward, reverse, reversible, ads, inhibition, rate, forward_rate, reverse_rate, dr_dc
+        c,
+        net.k,
+        net.inv_eq,
+        net.forward,
+        net.reverse,
+        net.reversible,
+        net.ads,
+        net.inhibition,
+        rate,
+        forward_rate,
+        reverse_rate,
+        dr_dc,
     )
     for i in range(n_species):
         total = 0.0
@@ -145,8 +156,8 @@ def radau_run(
     ``stats`` receives the counts of accepted steps and of rejected steps (error test or Newton failure).
     Returns DONE, or FAILED when the step count or step size runs out or a value stops being finite.
     """
-    stoichiometry, forward = net[2], net[3]
-    kinds, param_reaction, param_species = params
+    stoichiometry, forward = net.stoichiometry, net.forward
+    kinds, param_reaction, param_species = params.kind, params.reaction, params.species
     n_reactions, n = forward.shape
     n_params = kinds.shape[0]
     a = np.empty((3, 3))
@@ -345,7 +356,7 @@ def radau_run(
                     elif kind == ORDER:
                         theta = forward_rate[bj, j] * math.log(max(c[bj, param_species[p]], 1e-300))
                     elif kind == LN_ADS:
-                        theta = adsorption_sensitivity(j, param_species[p], c[bj], net[6], net[7], rate[bj])
+                        theta = adsorption_sensitivity(j, param_species[p], c[bj], net.ads, net.inhibition, rate[bj])
                     else:
                         theta = 0.0
                     for i in range(n):
@@ -436,8 +447,8 @@ def _augmented_rhs(
     c,
 ):
     """d/dt of [c, s_1, ..., s_P]: f(c) and J(c) s_p + d f / d theta_p."""
-    stoichiometry = net[2]
-    kinds, param_reaction, param_species = params
+    stoichiometry = net.stoichiometry
+    kinds, param_reaction, param_species = params.kind, params.reaction, params.species
     _evaluate(
         u[:n],
         net,
@@ -460,7 +471,7 @@ def _augmented_rhs(
         elif kind == ORDER:
             theta = forward_rate[j] * math.log(max(c[param_species[p]], 1e-300))
         elif kind == LN_ADS:
-            theta = adsorption_sensitivity(j, param_species[p], c, net[6], net[7], rate)
+            theta = adsorption_sensitivity(j, param_species[p], c, net.ads, net.inhibition, rate)
         else:
             theta = 0.0
         for i in range(n):
@@ -486,8 +497,8 @@ def dopri_run(
     stats,
 ):
     """Like ``radau_run`` with the explicit Dormand-Prince pair; FAILED once ``max_steps`` are used."""
-    forward = net[3]
-    kinds, param_species = params[0], params[2]
+    forward = net.forward
+    kinds, param_species = params.kind, params.species
     n_reactions, n = forward.shape
     n_params = kinds.shape[0]
     size = n * (1 + n_params)
@@ -706,14 +717,7 @@ def predict_measurements(
     initial,
     all_times,
     time_offsets,
-    k_runs,
-    inv_eq_runs,
-    ads_runs,
-    stoichiometry,
-    forward,
-    reverse,
-    reversible,
-    inhibition,
+    kernel,
     params,
     rtol,
     atol,
@@ -733,7 +737,7 @@ def predict_measurements(
     input column of run r's sensitivity parameter p. Returns the index of the first failing run, or -1.
     """
     n_runs, n = initial.shape
-    n_params = params[0].shape[0]
+    n_params = params.kind.shape[0]
     jacobian[:, :] = 0.0
     for r in range(n_runs):
         times = all_times[time_offsets[r] : time_offsets[r + 1]]
@@ -742,7 +746,7 @@ def predict_measurements(
         status = integrate_run(
             initial[r].copy(),
             times,
-            (k_runs[r], inv_eq_runs[r], stoichiometry, forward, reverse, reversible, ads_runs[r], inhibition),
+            run_kernel(kernel, r),
             params,
             rtol,
             atol,

@@ -15,9 +15,65 @@ dc/dt = stoichiometry^T r. Negative concentrations (solver overshoot) are read a
 
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import numba
+import numpy as np
 
 LN_K, LN_EQ, ORDER, INITIAL, LN_ADS = 0, 1, 2, 3, 4
+
+
+class RunKernel(NamedTuple):
+    """What the compiled kernel needs of one run: k (R,), 1/K (R,; zero for irreversible steps), stoichiometry
+    (R, N), forward and reverse orders (R, N), reversible (R,), adsorption constants K_ji (R, N; zero where none)
+    and the saturation exponents n_j (R,)."""
+
+    k: np.ndarray
+    inv_eq: np.ndarray
+    stoichiometry: np.ndarray
+    forward: np.ndarray
+    reverse: np.ndarray
+    reversible: np.ndarray
+    ads: np.ndarray
+    inhibition: np.ndarray
+
+
+class NetworkKernel(NamedTuple):
+    """The kernel's inputs for every run at once: ``k``, ``inv_eq`` (runs, R) and ``ads`` (runs, R, N) per run,
+    the rest shared (see ``RunKernel``); ``run_kernel(kernel, r)`` is run r's view."""
+
+    k: np.ndarray
+    inv_eq: np.ndarray
+    stoichiometry: np.ndarray
+    forward: np.ndarray
+    reverse: np.ndarray
+    reversible: np.ndarray
+    ads: np.ndarray
+    inhibition: np.ndarray
+
+
+class Sensitivities(NamedTuple):
+    """The sensitivity parameters of a run, one entry each: ``kind`` (``LN_K`` ...), the ``reaction`` and
+    ``species`` it refers to (0 where it refers to none)."""
+
+    kind: np.ndarray
+    reaction: np.ndarray
+    species: np.ndarray
+
+
+@numba.njit(cache=True)
+def run_kernel(kernel, r):
+    """Run r's ``RunKernel`` of a ``NetworkKernel`` (views, no copies)."""
+    return RunKernel(
+        kernel.k[r],
+        kernel.inv_eq[r],
+        kernel.stoichiometry,
+        kernel.forward,
+        kernel.reverse,
+        kernel.reversible,
+        kernel.ads[r],
+        kernel.inhibition,
+    )
 
 
 @numba.njit(cache=True)

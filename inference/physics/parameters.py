@@ -1,16 +1,143 @@
-"""Draws of a network's kinetic parameters as plain arrays, and the constants they imply at a temperature.
+"""The kinetic parameter vector of a network, declared once, and draws of it as plain arrays.
 
-Temperatures in K, energies in J/mol; ln k in the units each reaction's k is stated in. Built from a posterior by
-``posterior.draws``; read by the reactors, the run figures and predictions.
+``BLOCKS`` declares each block of the vector the compiled kernel differentiates against (ln k, ln K_c, ln K of
+adsorption sites, fitted orders, uncertain initial concentrations): its name, whether it has one row per run,
+the posterior coordinate of its columns, the sampled variables it is made of, and its kernel slot. The solver's
+sensitivity parameters and their names, the PyTensor Op's inputs, shapes and Jacobian columns, and the verdict's
+variable list all iterate over it; ``KineticInputs`` carries the values block by block, by name.
+
+``ParameterDraws`` holds posterior (or prior) draws and turns them into ``KineticInputs`` at a temperature.
+Temperatures in K, energies in J/mol; ln k in the units each reaction's k is stated in.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from collections.abc import Callable
+from dataclasses import dataclass, fields
+from typing import NamedTuple
 
 import numpy as np
 
 from .arrhenius import ln_rate_constant
+from .kinetics import INITIAL, LN_ADS, LN_EQ, LN_K, ORDER
+from .network import Network
+
+
+class KineticInputs(NamedTuple):
+    """Values of every block, for a set of runs: ``ln_k`` (runs, reactions), ``ln_eq`` (runs, reversible
+    reactions), ``ln_ads`` (runs, adsorption sites), ``orders`` and ``initial``. For the solver ``orders`` is the
+    full forward-order matrix (reactions, species) and ``initial`` the full (runs, species) concentrations; for the
+    Op's free inputs they are the fitted orders (F,) and the uncertain initial concentrations (runs, G)
+    (``SensitivityLayout.expand`` turns the one into the other)."""
+
+    ln_k: np.ndarray
+    ln_eq: np.ndarray
+    ln_ads: np.ndarray
+    orders: np.ndarray
+    initial: np.ndarray
+
+
+@dataclass(frozen=True)
+class SensitivityLayout:
+    """Which parameters of a network are free: fitted forward orders ``(reaction, species)`` and species whose
+    initial concentration is uncertain."""
+
+    network: Network
+    free_orders: tuple[tuple[int, int], ...] = ()
+    free_initial: tuple[int, ...] = ()
+
+    def expand(self, free: KineticInputs, fixed_orders: np.ndarray, nominal_initial: np.ndarray) -> KineticInputs:
+        """Solver inputs from the Op's free inputs: fitted orders written into ``fixed_orders`` (R, N), uncertain
+        initial concentrations into ``nominal_initial`` (runs, N)."""
+        orders = np.array(fixed_orders, dtype=float)
+        for value, (j, i) in zip(free.orders, self.free_orders, strict=True):
+            orders[j, i] = value
+        initial = np.array(nominal_initial, dtype=float)
+        for g, i in enumerate(self.free_initial):
+            initial[:, i] = free.initial[:, g]
+        return free._replace(orders=orders, initial=initial)
+
+
+@dataclass(frozen=True)
+class ParameterBlock:
+    """One block of the kinetic parameter vector (see the module's docstring)."""
+
+    name: str  #: the field of ``KineticInputs`` that holds it
+    kernel_kind: int  #: its sensitivity kind in the compiled kernel (``kinetics.LN_K`` ...)
+    per_run: bool  #: one row per run (else one value shared by every run)
+    coordinate: str  #: the posterior coordinate of its columns
+    posterior_variables: tuple[str, ...]  #: the sampled (or deterministic) variables it is made of
+    label: str  #: name of one column, formatted with ``reaction`` and ``species``
+    coordinate_label: str  #: its label on the posterior coordinate, formatted the same way
+    sites: Callable[[SensitivityLayout], tuple[tuple[int, int], ...]]  #: (reaction, species) of each column
+
+    def count(self, layout: SensitivityLayout) -> int:
+        return len(self.sites(layout))
+
+    def labels(self, layout: SensitivityLayout, template: str | None = None) -> list[str]:
+        """Each column's ``coordinate_label`` (or ``template``) with the network's reaction and species names."""
+        net = layout.network
+        text = self.coordinate_label if template is None else template
+        return [text.format(reaction=net.reactions[j], species=net.species[i]) for j, i in self.sites(layout)]
+
+
+BLOCKS: tuple[ParameterBlock, ...] = (
+    ParameterBlock(
+        "ln_k",
+        LN_K,
+        True,
+        "reaction",
+        ("ln_k_ref", "Ea", "temperature_exponent"),
+        "ln_k[{reaction}]",
+        "{reaction}",
+        lambda layout: tuple((j, 0) for j in range(len(layout.network.reactions))),
+    ),
+    ParameterBlock(
+        "ln_eq",
+        LN_EQ,
+        True,
+        "reversible",
+        ("ln_K_ref", "dH"),
+        "ln_K[{reaction}]",
+        "{reaction}",
+        lambda layout: tuple((int(j), 0) for j in np.flatnonzero(layout.network.reversible)),
+    ),
+    ParameterBlock(
+        "ln_ads",
+        LN_ADS,
+        True,
+        "adsorption_site",
+        ("ln_K_ads_ref", "dH_ads"),
+        "ln_K_ads[{reaction}, {species}]",
+        "{reaction}:{species}",
+        lambda layout: tuple(layout.network.adsorption_sites),
+    ),
+    ParameterBlock(
+        "orders",
+        ORDER,
+        False,
+        "fitted_order",
+        ("order",),
+        "order[{reaction}, {species}]",
+        "{reaction}:{species}",
+        lambda layout: layout.free_orders,
+    ),
+    ParameterBlock(
+        "initial",
+        INITIAL,
+        True,
+        "uncertain_species",
+        ("initial",),
+        "c0[{species}]",
+        "{species}",
+        lambda layout: tuple((0, i) for i in layout.free_initial),
+    ),
+)
+if tuple(block.name for block in BLOCKS) != KineticInputs._fields:  # one order for the kernel, the Op and draws
+    raise ImportError("parameters.BLOCKS and KineticInputs must list the same blocks in the same order")
+
+#: Posterior variables of the kinetic parameter blocks, in block order.
+BLOCK_VARIABLES: tuple[str, ...] = tuple(name for block in BLOCKS for name in block.posterior_variables)
 
 
 @dataclass(frozen=True)
@@ -73,29 +200,38 @@ class ParameterDraws:
 
     def draw(self, d: int) -> ParameterDraws:
         """Draw d alone, as a set of one."""
+        values = {}
+        for field in fields(self):
+            value = getattr(self, field.name)
+            values[field.name] = value[d : d + 1] if isinstance(value, np.ndarray) else value
+        return ParameterDraws(**values)
 
-        def one(values: np.ndarray | None) -> np.ndarray | None:
-            return None if values is None else values[d : d + 1]
+    def inputs(self, d: int, kelvin: np.ndarray, initial: np.ndarray, ln_k: np.ndarray | None = None) -> KineticInputs:
+        """Solver inputs of draw d for runs at ``kelvin`` (runs,) starting from ``initial`` (runs, N); ``ln_k``
+        (runs, R) replaces the new-run ln k (e.g. the fitted runs' own, with their shifts)."""
+        kelvin = np.asarray(kelvin, dtype=float)
+        one = self.draw(d)
+        ln_k = one.ln_k(kelvin) if ln_k is None else ln_k
+        return KineticInputs(ln_k, one.ln_eq(kelvin), _sites(one.ln_ads(kelvin), kelvin.size), self.orders[d], initial)
 
-        return ParameterDraws(
-            *(one(v) for v in (self.ln_k_ref, self.ea, self.ln_eq_ref, self.dh, self.orders, self.initial)),
-            self.temperature_ref,
-            *(
-                one(v)
-                for v in (
-                    self.exponent,
-                    self.ln_ads_ref,
-                    self.dh_ads,
-                    self.new_run_shift,
-                    self.run_effect,
-                    self.run_temperature,
-                )
-            ),
+    def as_runs(self, kelvin: float, initial: np.ndarray) -> KineticInputs:
+        """Solver inputs with every draw as a run of its own at ``kelvin``, all from ``initial`` (N,); the draws'
+        orders must not vary (``orders_vary``)."""
+        return KineticInputs(
+            self.ln_k(kelvin),
+            self.ln_eq(kelvin),
+            _sites(self.ln_ads(kelvin), self.size),
+            self.orders[0],
+            np.repeat(np.asarray(initial, dtype=float)[None], self.size, axis=0),
         )
 
     @property
     def orders_vary(self) -> bool:
         return bool(np.any(self.orders != self.orders[:1]))
+
+
+def _sites(ln_ads: np.ndarray | None, rows: int) -> np.ndarray:
+    return np.zeros((rows, 0)) if ln_ads is None else ln_ads
 
 
 def _per_draw(kelvin: float | np.ndarray) -> float | np.ndarray:

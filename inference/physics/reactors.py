@@ -21,28 +21,20 @@ from scipy.integrate import solve_ivp
 from scipy.optimize import root
 
 from .integrator import _evaluate
+from .kinetics import run_kernel
 from .network import Network
 from .parameters import ParameterDraws
-from .solution import NetworkSolver, SolverFailure, rate_arrays
+from .solution import NetworkSolver, SolverFailure, network_kernel
 
 
 def _rate_terms(network: Network, one: ParameterDraws, kelvin: float, c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """dc/dt = S^T r(c) and its Jacobian for a single draw ``one`` at ``kelvin`` (negative c read as zero)."""
-    k, inv_eq, ads = rate_arrays(network, one.ln_k(kelvin), one.ln_eq(kelvin), one.ln_ads(kelvin))
+    kernel = network_kernel(network, one.inputs(0, np.array([kelvin]), np.asarray(c, dtype=float)[None]))
     n_reactions, n = network.forward_orders.shape
     f, jac = np.empty(n), np.empty((n, n))
     _evaluate(
         np.ascontiguousarray(c, dtype=float),
-        (
-            k[0],
-            inv_eq[0],
-            network.stoichiometry,
-            np.ascontiguousarray(one.orders[0]),
-            network.reverse_orders,
-            network.reversible,
-            ads[0],
-            network.inhibition,
-        ),
+        run_kernel(kernel, 0),
         f,
         jac,
         np.empty(n_reactions),
@@ -59,34 +51,19 @@ def batch_profiles(
 ) -> np.ndarray:
     """Isothermal batch (or PFR) profiles of every draw: (draws, times, species); NaN where a draw failed."""
     n = initial.size
-    ln_k, ln_eq, ln_ads = draws.ln_k(kelvin), draws.ln_eq(kelvin), draws.ln_ads(kelvin)
     out = np.full((draws.size, times.size, n), np.nan)
     if not draws.orders_vary:
         # Each draw is a "run" of one solver call: one compiled loop for every draw.
         solver = NetworkSolver(network, [times] * draws.size)
         try:
-            solution = solver.solve(
-                ln_k,
-                ln_eq,
-                draws.orders[0],
-                np.repeat(initial[None], draws.size, axis=0),
-                ln_ads=ln_ads,
-                sensitivities=False,
-            )
+            solution = solver.solve(draws.as_runs(kelvin, initial), sensitivities=False)
             return np.stack(solution.concentrations)
         except SolverFailure:
             pass  # find the failing draws one by one below
     solver = NetworkSolver(network, [times])
     for d in range(draws.size):
         try:
-            solution = solver.solve(
-                ln_k[d : d + 1],
-                ln_eq[d : d + 1],
-                draws.orders[d],
-                initial[None],
-                ln_ads=None if ln_ads is None else ln_ads[d : d + 1],
-                sensitivities=False,
-            )
+            solution = solver.solve(draws.inputs(d, np.array([kelvin]), initial[None]), sensitivities=False)
             out[d] = solution.concentrations[0]
         except SolverFailure:
             continue

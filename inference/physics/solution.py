@@ -11,9 +11,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import kinetics
 from .integrator import DONE, integrate_run, predict_measurements
+from .kinetics import NetworkKernel, Sensitivities, run_kernel
 from .network import Network
+from .parameters import BLOCKS, KineticInputs, SensitivityLayout
 
 
 class SolverFailure(RuntimeError):
@@ -59,12 +60,28 @@ def rate_arrays(
     return k_runs, inv_eq, ads
 
 
+def network_kernel(network: Network, inputs: KineticInputs) -> NetworkKernel:
+    """The compiled kernel's inputs for every run of ``inputs`` (solver form: full orders); the one place they
+    are assembled. ``SolverFailure`` when a constant overflows."""
+    k, inv_eq, ads = rate_arrays(network, inputs.ln_k, inputs.ln_eq, inputs.ln_ads)
+    return NetworkKernel(
+        k,
+        inv_eq,
+        network.stoichiometry,
+        np.ascontiguousarray(inputs.orders, dtype=float),
+        network.reverse_orders,
+        network.reversible,
+        ads,
+        network.inhibition,
+    )
+
+
 class NetworkSolver:
     """Solves one network for a fixed set of runs and sampling times.
 
-    Parameters with sensitivities, in order: ln k of every reaction; ln K of every reversible reaction;
-    ln K of every adsorption site ``(reaction, species)`` of a saturating law; each free forward order
-    ``(reaction, species)``; each species whose initial concentration is uncertain.
+    Its sensitivity parameters are the columns of ``parameters.BLOCKS``, block by block: ln k of every reaction;
+    ln K of every reversible reaction; ln K of every adsorption site of a saturating law; each free forward order;
+    each species whose initial concentration is uncertain.
     """
 
     def __init__(
@@ -78,74 +95,34 @@ class NetworkSolver:
     ) -> None:
         self.network = network
         self.settings = settings
-        self.free_orders = tuple(free_orders)
-        self.free_initial = tuple(free_initial)
-        self.reversible_index = np.flatnonzero(network.reversible)
-        n_reactions = len(network.reactions)
-        kinds = [kinetics.LN_K] * n_reactions + [kinetics.LN_EQ] * self.reversible_index.size
-        reaction = list(range(n_reactions)) + list(self.reversible_index)
-        species = [0] * (n_reactions + self.reversible_index.size)
-        for j, i in network.adsorption_sites:
-            kinds.append(kinetics.LN_ADS)
-            reaction.append(j)
-            species.append(i)
-        for j, i in self.free_orders:
-            kinds.append(kinetics.ORDER)
-            reaction.append(j)
-            species.append(i)
-        for i in self.free_initial:
-            kinds.append(kinetics.INITIAL)
-            reaction.append(0)
-            species.append(i)
-        self.kinds = np.array(kinds, dtype=np.int64)
-        self.param_reaction = np.array(reaction, dtype=np.int64)
-        self.param_species = np.array(species, dtype=np.int64)
+        self.layout = SensitivityLayout(network, tuple(free_orders), tuple(free_initial))
+        columns = [(block.kernel_kind, j, i) for block in BLOCKS for j, i in block.sites(self.layout)]
+        table = np.array(columns, dtype=np.int64).reshape(-1, 3)
+        self.sensitivities = Sensitivities(*(np.ascontiguousarray(table[:, c]) for c in range(3)))
         self.times = [np.asarray(t, dtype=float) for t in times]
         #: Accepted and rejected steps of the last ``solve``, and runs that went to the implicit method.
         self.stats = np.zeros(3, dtype=np.int64)
 
     @property
     def n_params(self) -> int:
-        return int(self.kinds.size)
+        return int(self.sensitivities.kind.size)
 
     @property
     def parameter_names(self) -> list[str]:
-        net = self.network
-        names = [f"ln_k[{r}]" for r in net.reactions]
-        names += [f"ln_K[{net.reactions[j]}]" for j in self.reversible_index]
-        names += [f"ln_K_ads[{net.reactions[j]}, {net.species[i]}]" for j, i in net.adsorption_sites]
-        names += [f"order[{net.reactions[j]}, {net.species[i]}]" for j, i in self.free_orders]
-        names += [f"c0[{net.species[i]}]" for i in self.free_initial]
-        return names
-
-    def rate_arrays(
-        self, ln_k: np.ndarray, ln_eq: np.ndarray, ln_ads: np.ndarray | None = None
-    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        return rate_arrays(self.network, ln_k, ln_eq, ln_ads)
+        return [name for block in BLOCKS for name in block.labels(self.layout, block.label)]
 
     def tolerances(self, initial: np.ndarray) -> tuple[float, float]:
         scale = float(np.max(initial)) if np.max(initial) > 0 else 1.0
         return self.settings.rtol, self.settings.atol_share * scale
 
-    def solve(
-        self,
-        ln_k: np.ndarray,
-        ln_eq: np.ndarray,
-        forward_orders: np.ndarray,
-        initial: np.ndarray,
-        *,
-        ln_ads: np.ndarray | None = None,
-        sensitivities: bool = True,
-    ) -> Solution:
-        """Integrate all runs. ``ln_k`` is (runs, reactions); ``ln_eq`` (runs, reversible reactions);
-        ``forward_orders`` (reactions, species); ``initial`` (runs, species); ``ln_ads`` (runs, adsorption
-        sites) for saturating laws. Raises ``SolverFailure``."""
-        net = self.network
+    def solve(self, inputs: KineticInputs, *, sensitivities: bool = True) -> Solution:
+        """Integrate all runs of ``inputs`` (solver form: full orders and initial concentrations).
+        Raises ``SolverFailure``."""
+        initial = np.asarray(inputs.initial, dtype=float)
         n_runs, n_species = initial.shape
         n_params = self.n_params if sensitivities else 0
-        k_runs, inv_eq, ads = self.rate_arrays(ln_k, ln_eq, ln_ads)
-        kinds = self.kinds if sensitivities else self.kinds[:0]
-        orders = np.ascontiguousarray(forward_orders, dtype=float)
+        kernel = network_kernel(self.network, inputs)
+        columns = Sensitivities(*(values[:n_params] for values in self.sensitivities))
         rtol, atol = self.tolerances(initial)
         concentrations, sens = [], [] if sensitivities else None
         self.stats[:] = 0
@@ -155,19 +132,10 @@ class NetworkSolver:
             out_s = np.empty((times.size, n_species, n_params))
             try:
                 status = integrate_run(
-                    np.ascontiguousarray(initial[r], dtype=float),
+                    np.ascontiguousarray(initial[r]),
                     times,
-                    (
-                        k_runs[r],
-                        inv_eq[r],
-                        net.stoichiometry,
-                        orders,
-                        net.reverse_orders,
-                        net.reversible,
-                        ads[r],
-                        net.inhibition,
-                    ),
-                    (kinds, self.param_reaction[:n_params], self.param_species[:n_params]),
+                    run_kernel(kernel, r),
+                    columns,
                     rtol,
                     atol,
                     self.settings.max_steps,
@@ -209,36 +177,22 @@ class MeasurementSolver:
         self.columns = np.ascontiguousarray(columns, dtype=np.int64)
         self.n_inputs = n_inputs
 
-    def solve(
-        self,
-        ln_k: np.ndarray,
-        ln_eq: np.ndarray,
-        forward_orders: np.ndarray,
-        initial: np.ndarray,
-        ln_ads: np.ndarray | None = None,
-    ) -> tuple[np.ndarray, np.ndarray]:
-        """(prediction (M,), jacobian (M, inputs)); raises ``SolverFailure``."""
+    def solve(self, inputs: KineticInputs) -> tuple[np.ndarray, np.ndarray]:
+        """(prediction (M,), jacobian (M, inputs)) for ``inputs`` in solver form; raises ``SolverFailure``."""
         solver = self.solver
-        net = solver.network
-        k_runs, inv_eq, ads = solver.rate_arrays(ln_k, ln_eq, ln_ads)
+        initial = np.ascontiguousarray(inputs.initial, dtype=float)
+        kernel = network_kernel(solver.network, inputs)
         rtol, atol = solver.tolerances(initial)
         prediction = np.empty(self.run_index.size)
         jacobian = np.empty((self.run_index.size, self.n_inputs))
         solver.stats[:] = 0
         try:
             failed = predict_measurements(
-                np.ascontiguousarray(initial, dtype=float),
+                initial,
                 self.all_times,
                 self.time_offsets,
-                k_runs,
-                inv_eq,
-                ads,
-                net.stoichiometry,
-                np.ascontiguousarray(forward_orders, dtype=float),
-                net.reverse_orders,
-                net.reversible,
-                net.inhibition,
-                (solver.kinds, solver.param_reaction, solver.param_species),
+                kernel,
+                solver.sensitivities,
                 rtol,
                 atol,
                 solver.settings.max_steps,

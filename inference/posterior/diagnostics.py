@@ -26,22 +26,11 @@ from scipy import stats
 
 from ..inputs import units
 from ..inputs.study import Study
+from ..physics.parameters import BLOCK_VARIABLES
 
-#: Posterior variables the convergence verdict looks at, in this order (those present in a model).
-KINETIC_VARIABLES = (
-    "ln_k_ref",
-    "Ea",
-    "temperature_exponent",
-    "ln_K_ref",
-    "dH",
-    "ln_K_ads_ref",
-    "dH_ads",
-    "order",
-    "initial",
-    "ln_k_spread",
-    "temperature",
-    "sigma",
-)
+#: Posterior variables the convergence verdict looks at, in this order (those present in a model): the
+#: variables of the kinetic parameter blocks, then run-to-run spreads, latent run temperatures and the noise.
+KINETIC_VARIABLES = (*BLOCK_VARIABLES, "ln_k_spread", "temperature", "sigma")
 
 
 class Problem(Protocol):

@@ -14,6 +14,7 @@ import xarray as xr
 
 from ..inputs import units
 from ..inputs.data import Observations, RateConstantData
+from ..inputs.rate_laws import REGISTRY
 from ..inputs.study import ReactionSpec, Study
 from ..physics.arrhenius import (
     eyring_activation,
@@ -22,7 +23,6 @@ from ..physics.arrhenius import (
     ln_rate_constant,
     two_point_estimate,
 )
-from ..physics.network import parse_equation
 
 SUMMARY_COLUMNS = ["parameter", "unit", "mean", "sd", "median", "q05", "q95", "ess_bulk", "ess_tail", "r_hat"]
 
@@ -75,7 +75,7 @@ def derived_quantities(
         for fitted in spec.fitted_orders:
             label = f"{name}:{fitted.species}"
             quantities[f"order[{label}]"] = ("", posterior["order"].sel(fitted_order=label, drop=True))
-        quantities |= _saturation_quantities(study, spec, posterior, ln_k_ref)
+        quantities |= _law_quantities(study, spec, posterior, ln_k_ref)
         if study.run_variability is not None and j in study.run_variability.reactions:
             spread = posterior["ln_k_spread"].sel(varying_reaction=name, drop=True)
             quantities[f"ln_k_spread[{name}]"] = ("log units", spread)
@@ -104,28 +104,16 @@ def derived_quantities(
     return quantities
 
 
-def _saturation_quantities(study: Study, spec: ReactionSpec, posterior: xr.Dataset, ln_k_ref: xr.DataArray) -> dict:
-    """Adsorption constants at T_ref and their enthalpies; for Michaelis-Menten, K_M and k K_M instead."""
-    out: dict[str, tuple[str, xr.DataArray]] = {}
-    conc, energy = study.units.concentration or "", study.units.energy
+def _law_quantities(study: Study, spec: ReactionSpec, posterior: xr.Dataset, ln_k_ref: xr.DataArray) -> dict:
+    """The quantities the reaction's rate law derives (``RateLaw.derived_quantities``) from its draws."""
+    sites = {}
     for site in spec.adsorption:
         label = f"{spec.name}:{site.species}"
-        ln_ref = posterior["ln_K_ads_ref"].sel(adsorption_site=label, drop=True)
-        dh = posterior["dH_ads"].sel(adsorption_site=label, drop=True)
-        if spec.rate_law == "michaelis_menten":
-            # r = k c_S (...) / (1 + c_S / K_M) = (k K_M) c_S (...) / (K_M + c_S): k K_M is k_cat (per enzyme
-            # concentration when the enzyme is in the equation) or V_max.
-            out[f"K_M[{spec.name}]"] = (conc, np.exp(-ln_ref))
-            out[f"K_M_dH[{spec.name}]"] = (energy, units.joule_per_mol_to(-dh, energy))
-            equation = parse_equation(spec.equation)
-            catalysed = bool({n for n, _ in equation.reactants} & {n for n, _ in equation.products})
-            turnover = "k_cat" if catalysed else "V_max"
-            unit = f"1/{study.units.time}" if catalysed else f"{conc}/{study.units.time}"
-            out[f"{turnover}[{spec.name}]"] = (unit, np.exp(ln_k_ref - ln_ref))
-        else:
-            out[f"K_ads_ref[{label}]"] = (f"1/({conc})", np.exp(ln_ref))
-            out[f"dH_ads[{label}]"] = (energy, units.joule_per_mol_to(dh, energy))
-    return out
+        sites[site.species] = (
+            posterior["ln_K_ads_ref"].sel(adsorption_site=label, drop=True),
+            posterior["dH_ads"].sel(adsorption_site=label, drop=True),
+        )
+    return REGISTRY[spec.rate_law].derived_quantities(spec, ln_k_ref, sites, study.units)
 
 
 def _activation_quantities(study: Study, spec: ReactionSpec, ln_k_ref, ea, exponent, temperature_ref: float) -> dict:

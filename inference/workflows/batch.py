@@ -24,7 +24,7 @@ import pandas as pd
 from ..errors import ExitCode, StudyError
 from ..inputs.config import load_study
 from ..inputs.options import check_count, sampling_overrides
-from ..outputs.results import check_target, check_writable_parent
+from ..outputs.results import check_target, check_writable_parent, write_table
 from .executor import Executor, Outcome, deferred_interrupts, warm_compiled_kernels
 
 #: Columns of ``batch_summary.csv``.
@@ -193,10 +193,7 @@ def _write_table(rows: dict[int, dict], root: Path) -> tuple[pd.DataFrame, Path]
     reader sees the old table or the new one, never half of one)."""
     table = pd.DataFrame([rows[position] for position in sorted(rows)], columns=BATCH_COLUMNS)
     summary_path = root / "batch_summary.csv"
-    root.mkdir(parents=True, exist_ok=True)
-    staged = summary_path.with_name(f".{summary_path.name}.{os.getpid()}")
-    table.to_csv(staged, index=False)
-    os.replace(staged, summary_path)
+    write_table(summary_path, table)
     return table, summary_path
 
 

@@ -22,11 +22,15 @@ def warm_compiled_kernels() -> None:
     import numpy as np
 
     from ..physics.network import build_network, parse_equation
+    from ..physics.parameters import KineticInputs
     from ..physics.solution import NetworkSolver
 
     network = build_network(("A", "B"), ("warm",), (parse_equation("A -> B"),))
     solver = NetworkSolver(network, [np.array([1.0])])
-    solver.solve(np.zeros((1, 1)), np.zeros((1, 0)), network.forward_orders, np.array([[1.0, 0.0]]))
+    inputs = KineticInputs(
+        np.zeros((1, 1)), np.zeros((1, 0)), np.zeros((1, 0)), network.forward_orders, np.ones((1, 2))
+    )
+    solver.solve(inputs)
 
 
 @dataclass(frozen=True)

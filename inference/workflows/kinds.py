@@ -18,12 +18,12 @@ import pandas as pd
 import xarray as xr
 
 from ..inputs import plausibility, units
-from ..inputs.config import Z95
 from ..inputs.data import Observations, RateConstantData, read_observations, read_rate_constants
+from ..inputs.rate_laws import REGISTRY
+from ..inputs.rate_laws.law import lognormal_text, normal_text
 from ..inputs.study import Study
 from ..outputs import plots
 from ..physics import closed_form
-from ..physics.arrhenius import ln_rate_constant
 from ..physics.solution import NetworkSolver, SolverFailure
 from ..posterior.diagnostics import KINETIC_VARIABLES
 from ..posterior.draws import parameter_draws, pick_draws, prior_centre_draws
@@ -87,17 +87,15 @@ def _prior_lines(study: Study) -> list[str]:
     for spec in study.reactions:
         p = spec.prior
         line = (
-            f"    {spec.name}: {spec.equation + ', ' if spec.equation else ''}{spec.rate_law}; k_ref ~ lognormal("
-            f"median {math.exp(p.ln_k_ref_mean):.4g} {spec.k_unit}, x/÷ {math.exp(p.ln_k_ref_sd * Z95):.3g}"
-            f" at 95 %); Ea ~ normal({units.joule_per_mol_to(p.ea_mean, energy):.4g}, sd "
-            f"{units.joule_per_mol_to(p.ea_sd, energy):.4g} {energy}) truncated > 0"
+            f"    {spec.name}: {spec.equation + ', ' if spec.equation else ''}{spec.rate_law}; "
+            f"k_ref ~ {lognormal_text(p.ln_k_ref_mean, p.ln_k_ref_sd, spec.k_unit)}; "
+            f"Ea ~ {normal_text(p.ea_mean, p.ea_sd, energy)} truncated > 0"
         )
         if spec.equilibrium is not None:
             q = spec.equilibrium
             line += (
-                f"; K_ref ~ lognormal(median {math.exp(q.ln_eq_ref_mean):.4g} {spec.eq_unit}); dH ~ normal("
-                f"{units.joule_per_mol_to(q.dh_mean, energy):.4g}, sd {units.joule_per_mol_to(q.dh_sd, energy):.4g}"
-                f" {energy})"
+                f"; K_ref ~ {lognormal_text(q.ln_eq_ref_mean, q.ln_eq_ref_sd, spec.eq_unit)}; "
+                f"dH ~ {normal_text(q.dh_mean, q.dh_sd, energy)}"
             )
         for fitted in spec.fitted_orders:
             line += f"; order in {fitted.species} ~ uniform({fitted.lower:g}, {fitted.upper:g})"
@@ -105,14 +103,7 @@ def _prior_lines(study: Study) -> list[str]:
             line += f"; (T/T_ref)^n with n ~ normal({spec.temperature_exponent:g}, sd {spec.exponent_sd:g})"
         elif spec.temperature_exponent:
             line += f"; (T/T_ref)^n with n = {spec.temperature_exponent:g}"
-        for site in spec.adsorption:
-            line += (
-                f"; K_{site.species} ~ lognormal(median {math.exp(site.ln_ref_mean):.4g} per "
-                f"{study.units.concentration}), dH_ads ~ normal({units.joule_per_mol_to(site.dh_mean, energy):.4g}, "
-                f"sd {units.joule_per_mol_to(site.dh_sd, energy):.4g} {energy})"
-            )
-        if spec.inhibition_exponent:
-            line += f"; denominator power {spec.inhibition_exponent:g}"
+        line += "".join(f"; {term}" for term in REGISTRY[spec.rate_law].check_terms(spec, study.units))
         lines.append(line)
     if study.run_variability is not None:
         spec = study.run_variability
@@ -301,14 +292,7 @@ class NetworkProblem:
             kelvin = obs.temperature_K[r]
             solver = NetworkSolver(study.network, [obs.times[r]])
             try:
-                solver.solve(
-                    centre.ln_k(kelvin),
-                    centre.ln_eq(kelvin),
-                    centre.orders[0],
-                    obs.initial[r : r + 1],
-                    ln_ads=centre.ln_ads(kelvin),
-                    sensitivities=False,
-                )
+                solver.solve(centre.inputs(0, np.array([kelvin]), obs.initial[r : r + 1]), sensitivities=False)
             except SolverFailure:
                 return run
         return None
@@ -356,16 +340,8 @@ class NetworkProblem:
                     out[r][d] = closed_form.concentrations(kind, network, initial[r], math.exp(ln_k[r, 0]), t)
                 continue
             kelvin = obs.temperature_K if draws.run_temperature is None else draws.run_temperature[d]
-            ln_eq = ln_rate_constant(
-                kelvin[:, None], draws.ln_eq_ref[d][None, :], draws.dh[d][None, :], temperature_ref
-            )
-            ln_ads = None
-            if draws.ln_ads_ref is not None:
-                ln_ads = ln_rate_constant(
-                    kelvin[:, None], draws.ln_ads_ref[d][None, :], draws.dh_ads[d][None, :], temperature_ref
-                )
             try:
-                solution = solver.solve(ln_k, ln_eq, draws.orders[d], initial, ln_ads=ln_ads, sensitivities=False)
+                solution = solver.solve(draws.inputs(d, kelvin, initial, ln_k=ln_k), sensitivities=False)
             except SolverFailure:
                 continue
             for r in range(len(times)):

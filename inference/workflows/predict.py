@@ -30,7 +30,6 @@ from ..outputs import report
 from ..outputs.records import PredictionResult
 from ..outputs.reporting import CAUTION
 from ..outputs.results import StagedFolder, check_target, load_results, sha256_file
-from ..physics.arrhenius import R
 from ..physics.reactors import batch_profiles, cstr_steady_states, programmed_batch_profiles
 from ..posterior.draws import ParameterDraws, parameter_draws, pick_draws
 
@@ -290,14 +289,20 @@ class _Predictor:
         within the search range."""
         target = scenario.temperature_for
         low, high = _to_kelvin(self.study, np.array(target.between), f"{where}.temperature_for.between")
+        lo, hi = np.full(self.draws.size, low), np.full(self.draws.size, high)
         if target.reaction is not None:
+            # The same ln k as the profiles (temperature exponent and a new run's shift included), inverted by
+            # bisection: ln k rises with T wherever Ea > 0 and n > -Ea/(RT).
             j = self.study.reaction_names.index(target.reaction)
             k = target.k if target.k is not None else math.log(2.0) / target.half_life
-            ea, ln_k_ref = self.draws.ea[:, j], self.draws.ln_k_ref[:, j]
-            inverse = 1.0 / self.draws.temperature_ref - R / ea * (math.log(k) - ln_k_ref)
-            kelvin = np.where(inverse > 0, 1.0 / np.where(inverse > 0, inverse, 1.0), np.nan)
-            return np.where((kelvin >= low) & (kelvin <= high), kelvin, np.nan)
-        lo, hi = np.full(self.draws.size, low), np.full(self.draws.size, high)
+            wanted = math.log(k)
+            inside = (self.draws.ln_k(lo)[:, j] <= wanted) & (self.draws.ln_k(hi)[:, j] >= wanted)
+            for _ in range(60):
+                middle = 0.5 * (lo + hi)
+                above = self.draws.ln_k(middle)[:, j] >= wanted
+                hi = np.where(above, middle, hi)
+                lo = np.where(above, lo, middle)
+            return np.where(inside, 0.5 * (lo + hi), np.nan)
         reached_high = self.conversion_at(scenario, high, target.within) >= target.conversion
         for _ in range(40):  # bisection on T per draw: conversion rises with T when every Ea is positive
             middle = 0.5 * (lo + hi)
