@@ -23,24 +23,12 @@ import numpy as np
 LN_K, LN_EQ, ORDER, INITIAL, LN_ADS = 0, 1, 2, 3, 4
 
 
-class RunKernel(NamedTuple):
-    """What the compiled kernel needs of one run: k (R,), 1/K (R,; zero for irreversible steps), stoichiometry
-    (R, N), forward and reverse orders (R, N), reversible (R,), adsorption constants K_ji (R, N; zero where none)
-    and the saturation exponents n_j (R,)."""
-
-    k: np.ndarray
-    inv_eq: np.ndarray
-    stoichiometry: np.ndarray
-    forward: np.ndarray
-    reverse: np.ndarray
-    reversible: np.ndarray
-    ads: np.ndarray
-    inhibition: np.ndarray
-
-
-class NetworkKernel(NamedTuple):
-    """The kernel's inputs for every run at once: ``k``, ``inv_eq`` (runs, R) and ``ads`` (runs, R, N) per run,
-    the rest shared (see ``RunKernel``); ``run_kernel(kernel, r)`` is run r's view."""
+class Kernel(NamedTuple):
+    """What the compiled kernel needs of a network: the per-run constants k, 1/K (zero for irreversible steps) and
+    adsorption constants K_ji (zero where none), and the shared stoichiometry (R, N), forward and reverse orders
+    (R, N), reversible flags (R,) and saturation exponents n_j (R,). For one run ``k`` and ``inv_eq`` are (R,) and
+    ``ads`` (R, N); for a study (``network_kernel``) they carry a leading run axis, and ``run_kernel`` takes one
+    run's view."""
 
     k: np.ndarray
     inv_eq: np.ndarray
@@ -63,8 +51,8 @@ class Sensitivities(NamedTuple):
 
 @numba.njit(cache=True)
 def run_kernel(kernel, r):
-    """Run r's ``RunKernel`` of a ``NetworkKernel`` (views, no copies)."""
-    return RunKernel(
+    """Run r's ``Kernel`` from a study's (views, no copies)."""
+    return Kernel(
         kernel.k[r],
         kernel.inv_eq[r],
         kernel.stoichiometry,

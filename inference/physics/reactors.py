@@ -20,11 +20,11 @@ import numpy as np
 from scipy.integrate import solve_ivp
 from scipy.optimize import root
 
-from .integrator import _evaluate
 from .kinetics import run_kernel
 from .network import Network
 from .parameters import ParameterDraws
 from .solution import NetworkSolver, SolverFailure, network_kernel
+from .stepping import evaluate
 
 
 def _rate_terms(network: Network, one: ParameterDraws, kelvin: float, c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -32,7 +32,7 @@ def _rate_terms(network: Network, one: ParameterDraws, kelvin: float, c: np.ndar
     kernel = network_kernel(network, one.inputs(0, np.array([kelvin]), np.asarray(c, dtype=float)[None]))
     n_reactions, n = network.forward_orders.shape
     f, jac = np.empty(n), np.empty((n, n))
-    _evaluate(
+    evaluate(
         np.ascontiguousarray(c, dtype=float),
         run_kernel(kernel, 0),
         f,

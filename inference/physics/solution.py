@@ -12,9 +12,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from .integrator import DONE, integrate_run, predict_measurements
-from .kinetics import NetworkKernel, Sensitivities, run_kernel
+from .kinetics import Kernel, Sensitivities, run_kernel
 from .network import Network
 from .parameters import BLOCKS, KineticInputs, SensitivityLayout
+from .stepping import Tolerances
 
 
 class SolverFailure(RuntimeError):
@@ -60,11 +61,11 @@ def rate_arrays(
     return k_runs, inv_eq, ads
 
 
-def network_kernel(network: Network, inputs: KineticInputs) -> NetworkKernel:
+def network_kernel(network: Network, inputs: KineticInputs) -> Kernel:
     """The compiled kernel's inputs for every run of ``inputs`` (solver form: full orders); the one place they
     are assembled. ``SolverFailure`` when a constant overflows."""
     k, inv_eq, ads = rate_arrays(network, inputs.ln_k, inputs.ln_eq, inputs.ln_ads)
-    return NetworkKernel(
+    return Kernel(
         k,
         inv_eq,
         network.stoichiometry,
@@ -111,9 +112,10 @@ class NetworkSolver:
     def parameter_names(self) -> list[str]:
         return [name for block in BLOCKS for name in block.labels(self.layout, block.label)]
 
-    def tolerances(self, initial: np.ndarray) -> tuple[float, float]:
+    def tolerances(self, initial: np.ndarray) -> Tolerances:
+        """The settings' tolerances, the absolute one scaled by the largest initial concentration."""
         scale = float(np.max(initial)) if np.max(initial) > 0 else 1.0
-        return self.settings.rtol, self.settings.atol_share * scale
+        return Tolerances(self.settings.rtol, self.settings.atol_share * scale, self.settings.max_steps)
 
     def solve(self, inputs: KineticInputs, *, sensitivities: bool = True) -> Solution:
         """Integrate all runs of ``inputs`` (solver form: full orders and initial concentrations).
@@ -123,7 +125,7 @@ class NetworkSolver:
         n_params = self.n_params if sensitivities else 0
         kernel = network_kernel(self.network, inputs)
         columns = Sensitivities(*(values[:n_params] for values in self.sensitivities))
-        rtol, atol = self.tolerances(initial)
+        tolerances = self.tolerances(initial)
         concentrations, sens = [], [] if sensitivities else None
         self.stats[:] = 0
         for r in range(n_runs):
@@ -136,9 +138,7 @@ class NetworkSolver:
                     times,
                     run_kernel(kernel, r),
                     columns,
-                    rtol,
-                    atol,
-                    self.settings.max_steps,
+                    tolerances,
                     out_c,
                     out_s,
                     self.stats,
@@ -182,7 +182,7 @@ class MeasurementSolver:
         solver = self.solver
         initial = np.ascontiguousarray(inputs.initial, dtype=float)
         kernel = network_kernel(solver.network, inputs)
-        rtol, atol = solver.tolerances(initial)
+        tolerances = solver.tolerances(initial)
         prediction = np.empty(self.run_index.size)
         jacobian = np.empty((self.run_index.size, self.n_inputs))
         solver.stats[:] = 0
@@ -193,9 +193,7 @@ class MeasurementSolver:
                 self.time_offsets,
                 kernel,
                 solver.sensitivities,
-                rtol,
-                atol,
-                solver.settings.max_steps,
+                tolerances,
                 self.run_index,
                 self.time_index,
                 self.species_index,

@@ -42,6 +42,9 @@ PROFILE_POINTS = 121
 
 
 class Problem(Protocol):
+    """The interface of a kind of study: what the fit, the verdict, the writer and the comparison ask of it.
+    ``open(study)`` (a classmethod) reads and checks its data."""
+
     study: Study
 
     @property
@@ -75,10 +78,8 @@ class Problem(Protocol):
 
 
 def open_problem(study: Study) -> Problem:
-    """Read and check the study's data and return the problem that fits it."""
-    if study.mode == "rate_constants":
-        return RateConstantProblem(study, read_rate_constants(study))
-    return NetworkProblem(study, read_observations(study))
+    """Read and check the study's data and return the kind of study that fits it (``KINDS``)."""
+    return KINDS[study.mode].open(study)
 
 
 def _prior_lines(study: Study) -> list[str]:
@@ -139,8 +140,14 @@ def _noise_line(study: Study) -> str:
 
 @dataclass(frozen=True)
 class RateConstantProblem:
+    """Measured rate constants (``temperature, k`` per row): the Arrhenius fit alone."""
+
     study: Study
     data: RateConstantData
+
+    @classmethod
+    def open(cls, study: Study) -> RateConstantProblem:
+        return cls(study, read_rate_constants(study))
 
     @property
     def temperatures_K(self) -> np.ndarray:
@@ -209,8 +216,14 @@ class RateConstantProblem:
 
 @dataclass(frozen=True)
 class NetworkProblem:
+    """Isothermal batch runs of a reaction network, measured as concentrations over time."""
+
     study: Study
     obs: Observations
+
+    @classmethod
+    def open(cls, study: Study) -> NetworkProblem:
+        return cls(study, read_observations(study))
 
     @property
     def temperatures_K(self) -> np.ndarray:
@@ -362,3 +375,12 @@ class NetworkProblem:
             plots.run_fit_plot(
                 self.study, obs, r, times[r], curves[r], fit_checks, folder.path(f"figures/run_{safe}.png")
             )
+
+
+#: The kinds of study, by ``Study.mode``. Each reads its own data (``open``) and answers the ``Problem``
+#: interface; the sampler, the writer, the verdict and the comparison see nothing else. A new kind of experiment
+#: is a new class answering ``Problem`` and one line here.
+KINDS: dict[str, type[RateConstantProblem] | type[NetworkProblem]] = {
+    "rate_constants": RateConstantProblem,
+    "network": NetworkProblem,
+}

@@ -1,0 +1,261 @@
+"""The explicit Dormand-Prince 5(4) pair (Dormand and Prince, J. Comput. Appl. Math. 6 (1980) 19; coefficients
+as in ``scipy.integrate.RK45``) on the concentrations and their forward sensitivity equations together, with
+the quartic continuous extension for output times: the cheapest method for the non-stiff profiles of most draws.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numba
+import numpy as np
+
+from .kinetics import INITIAL, LN_ADS, LN_EQ, LN_K, ORDER, adsorption_sensitivity
+from .stepping import DONE, FAILED, evaluate, initial_sensitivities, record_start
+
+#: Dormand-Prince 5(4): nodes, stage coefficients, 5th-order weights, and 5th minus 4th order weights
+#: (the last weight belongs to f at the new point).
+DP_C = np.array([0.0, 1 / 5, 3 / 10, 4 / 5, 8 / 9, 1.0])
+DP_A = np.array(
+    [
+        [0.0, 0.0, 0.0, 0.0, 0.0],
+        [1 / 5, 0.0, 0.0, 0.0, 0.0],
+        [3 / 40, 9 / 40, 0.0, 0.0, 0.0],
+        [44 / 45, -56 / 15, 32 / 9, 0.0, 0.0],
+        [19372 / 6561, -25360 / 2187, 64448 / 6561, -212 / 729, 0.0],
+        [9017 / 3168, -355 / 33, 46732 / 5247, 49 / 176, -5103 / 18656],
+    ]
+)
+DP_B = np.array([35 / 384, 0.0, 500 / 1113, 125 / 192, -2187 / 6784, 11 / 84])
+DP_E = np.array([-71 / 57600, 0.0, 71 / 16695, -71 / 1920, 17253 / 339200, -22 / 525, 1 / 40])
+#: Coefficients of the quartic continuous extension (Shampine, Math. Comp. 46 (1986) 135; as in scipy's RK45):
+#: u(t + x h) = u + h sum_q K_q (P[q, 0] x + P[q, 1] x^2 + P[q, 2] x^3 + P[q, 3] x^4).
+DP_P = np.array(
+    [
+        [1.0, -8048581381 / 2820520608, 8663915743 / 2820520608, -12715105075 / 11282082432],
+        [0.0, 0.0, 0.0, 0.0],
+        [0.0, 131558114200 / 32700410799, -68118460800 / 10900136933, 87487479700 / 32700410799],
+        [0.0, -1754552775 / 470086768, 14199869525 / 1410260304, -10690763975 / 1880347072],
+        [0.0, 127303824393 / 49829197408, -318862633887 / 49829197408, 701980252875 / 199316789632],
+        [0.0, -282668133 / 205662961, 2019193451 / 616988883, -1453857185 / 822651844],
+        [0.0, 40617522 / 29380423, -110615467 / 29380423, 69997945 / 29380423],
+    ]
+)
+
+
+@numba.njit(cache=True)
+def _augmented_rhs(
+    u,
+    n,
+    net,
+    params,
+    out,
+    jac,
+    rate,
+    forward_rate,
+    reverse_rate,
+    dr_dc,
+    c,
+):
+    """d/dt of [c, s_1, ..., s_P]: f(c) and J(c) s_p + d f / d theta_p."""
+    stoichiometry = net.stoichiometry
+    kinds, param_reaction, param_species = params.kind, params.reaction, params.species
+    evaluate(
+        u[:n],
+        net,
+        out[:n],
+        jac,
+        rate,
+        forward_rate,
+        reverse_rate,
+        dr_dc,
+        c,
+    )
+    for p in range(kinds.shape[0]):
+        offset = n * (1 + p)
+        kind = kinds[p]
+        j = param_reaction[p]
+        if kind == LN_K:
+            theta = rate[j]
+        elif kind == LN_EQ:
+            theta = reverse_rate[j]
+        elif kind == ORDER:
+            theta = forward_rate[j] * math.log(max(c[param_species[p]], 1e-300))
+        elif kind == LN_ADS:
+            theta = adsorption_sensitivity(j, param_species[p], c, net.ads, net.inhibition, rate)
+        else:
+            theta = 0.0
+        for i in range(n):
+            total = 0.0
+            for m in range(n):
+                total += jac[i, m] * u[offset + m]
+            if kind != INITIAL:
+                total += stoichiometry[j, i] * theta
+            out[offset + i] = total
+
+
+@numba.njit(cache=True)
+def dopri_run(y0, times, net, params, tolerances, out_c, out_s, stats):
+    """Like ``radau_run`` with the explicit Dormand-Prince pair; FAILED once ``max_steps`` are used."""
+    rtol, atol, max_steps = tolerances.rtol, tolerances.atol, tolerances.max_steps
+    forward = net.forward
+    kinds = params.kind
+    n_reactions, n = forward.shape
+    n_params = kinds.shape[0]
+    size = n * (1 + n_params)
+    u = np.zeros(size)
+    u[:n] = y0
+    u[n:] = initial_sensitivities(params, n).ravel()
+    stages = np.empty((7, size))
+    trial = np.empty(size)
+    new = np.empty(size)
+    jac = np.empty((n, n))
+    rate = np.empty(n_reactions)
+    forward_rate = np.empty(n_reactions)
+    reverse_rate = np.empty(n_reactions)
+    dr_dc = np.empty((n_reactions, n))
+    c = np.empty(n)
+    out_index = record_start(times, u[:n], u[n:].reshape((n_params, n)), out_c, out_s)
+    if out_index == times.shape[0]:
+        return DONE
+    _augmented_rhs(
+        u,
+        n,
+        net,
+        params,
+        stages[0],
+        jac,
+        rate,
+        forward_rate,
+        reverse_rate,
+        dr_dc,
+        c,
+    )
+    # Initial step (Hairer, Norsett and Wanner, "Solving Ordinary Differential Equations I", sec. II.4).
+    d0 = 0.0
+    d1 = 0.0
+    for i in range(size):
+        scale = atol + rtol * abs(u[i])
+        d0 += (u[i] / scale) ** 2
+        d1 += (stages[0, i] / scale) ** 2
+    d0 = math.sqrt(d0 / size)
+    d1 = math.sqrt(d1 / size)
+    h = 1e-6 * times[-1] if (d0 < 1e-5 or d1 < 1e-5) else 0.01 * d0 / d1
+    h = min(h, times[-1])
+    if not (h > 0.0 and math.isfinite(h)):  # rates that overflow (extreme parameters) leave no usable step
+        return FAILED
+    for i in range(size):
+        trial[i] = u[i] + h * stages[0, i]
+    _augmented_rhs(
+        trial,
+        n,
+        net,
+        params,
+        stages[1],
+        jac,
+        rate,
+        forward_rate,
+        reverse_rate,
+        dr_dc,
+        c,
+    )
+    d2 = 0.0
+    for i in range(size):
+        scale = atol + rtol * abs(u[i])
+        d2 += ((stages[1, i] - stages[0, i]) / scale) ** 2
+    d2 = math.sqrt(d2 / size) / h
+    h1 = max(1e-6 * h, h * 1e-3) if max(d1, d2) <= 1e-15 else (0.01 / max(d1, d2)) ** 0.2
+    h = min(100.0 * h, h1, times[-1])
+    if not (h > 0.0 and math.isfinite(h)):
+        return FAILED
+
+    t = 0.0
+    t_end = times[-1]
+    steps = 0
+    while out_index < times.shape[0]:
+        steps += 1
+        if steps > max_steps:
+            return FAILED
+        if t + h >= t_end * (1.0 - 1e-12):
+            h = t_end - t
+        if not (h > 1e-14 * max(t_end, 1.0)):
+            return FAILED
+        for st in range(1, 6):
+            for i in range(size):
+                total = 0.0
+                for q in range(st):
+                    total += DP_A[st, q] * stages[q, i]
+                trial[i] = u[i] + h * total
+            _augmented_rhs(
+                trial,
+                n,
+                net,
+                params,
+                stages[st],
+                jac,
+                rate,
+                forward_rate,
+                reverse_rate,
+                dr_dc,
+                c,
+            )
+        for i in range(size):
+            total = 0.0
+            for q in range(6):
+                total += DP_B[q] * stages[q, i]
+            new[i] = u[i] + h * total
+        _augmented_rhs(
+            new,
+            n,
+            net,
+            params,
+            stages[6],
+            jac,
+            rate,
+            forward_rate,
+            reverse_rate,
+            dr_dc,
+            c,
+        )
+        error = 0.0
+        finite = True
+        for i in range(size):
+            total = 0.0
+            for q in range(7):
+                total += DP_E[q] * stages[q, i]
+            scale = atol + rtol * max(abs(u[i]), abs(new[i]))
+            error += (h * total / scale) ** 2
+            if not math.isfinite(new[i]):
+                finite = False
+        error = math.sqrt(error / size)
+        if not finite or not math.isfinite(error):
+            h *= 0.2
+            stats[1] += 1
+            continue
+        if error > 1.0:
+            h *= max(0.2, 0.9 * error**-0.2)
+            stats[1] += 1
+            continue
+        stats[0] += 1
+        t_new = t_end if t + h >= t_end * (1.0 - 1e-12) else t + h
+        while out_index < times.shape[0] and times[out_index] <= t_new:
+            x = (times[out_index] - t) / h
+            powers = (x, x * x, x * x * x, x * x * x * x)
+            for i in range(size):
+                total = 0.0
+                for q in range(7):
+                    weight = DP_P[q, 0] * powers[0] + DP_P[q, 1] * powers[1] + DP_P[q, 2] * powers[2]
+                    weight += DP_P[q, 3] * powers[3]
+                    total += stages[q, i] * weight
+                trial[i] = u[i] + h * total
+            for i in range(n):
+                out_c[out_index, i] = trial[i]
+                for p in range(n_params):
+                    out_s[out_index, i, p] = trial[n * (1 + p) + i]
+            out_index += 1
+        for i in range(size):
+            u[i] = new[i]
+            stages[0, i] = stages[6, i]
+        t = t_new
+        h *= 10.0 if error == 0.0 else min(10.0, 0.9 * error**-0.2)
+    return DONE

@@ -1,0 +1,287 @@
+"""The three-stage Radau IIA collocation method (Hairer and Wanner, "Solving Ordinary Differential Equations II",
+2nd ed., 1996, sec. IV.5 and IV.8) for stiff runs, with the sensitivities of its discrete solution.
+
+L-stable and stiffly accurate, with simplified Newton iterations on the full 3N stage system, the embedded error
+estimate of that reference (its constants as in ``scipy.integrate.Radau``), and steps that land exactly on every
+requested output time. After each accepted step the linearised stage equations are solved with the Jacobians at
+the stage values, so the gradient is exact for the computed profile.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numba
+import numpy as np
+
+from .kinetics import INITIAL, LN_ADS, LN_EQ, LN_K, ORDER, adsorption_sensitivity
+from .stepping import DONE, FAILED, evaluate, initial_sensitivities, lu_factor, lu_solve, record_start, rms
+
+_S6 = math.sqrt(6.0)
+#: Radau IIA(5) nodes and coefficient matrix (Hairer and Wanner, table IV.5.6).
+C = np.array([(4.0 - _S6) / 10.0, (4.0 + _S6) / 10.0, 1.0])
+A = np.array(
+    [
+        [(88.0 - 7.0 * _S6) / 360.0, (296.0 - 169.0 * _S6) / 1800.0, (-2.0 + 3.0 * _S6) / 225.0],
+        [(296.0 + 169.0 * _S6) / 1800.0, (88.0 + 7.0 * _S6) / 360.0, (-2.0 - 3.0 * _S6) / 225.0],
+        [(16.0 - _S6) / 36.0, (16.0 + _S6) / 36.0, 1.0 / 9.0],
+    ]
+)
+#: Real eigenvalue of inv(A) and the error-estimate weights (Hairer and Wanner, sec. IV.8, eq. 8.20).
+MU_REAL = 3.0 + 3.0 ** (2.0 / 3.0) - 3.0 ** (1.0 / 3.0)
+E = np.array([-13.0 - 7.0 * _S6, -13.0 + 7.0 * _S6, -1.0]) / 3.0
+
+NEWTON_MAX = 7
+NEWTON_MAX = 7
+
+
+@numba.njit(cache=True)
+def _evaluate_stage(y, z, bi, net, stage, fz, jz, rate, forward_rate, reverse_rate, dr_dc, c):
+    """Rates and Jacobian at stage ``bi`` of a Radau step (the state y + z[bi]), into that stage's slots."""
+    for i in range(y.shape[0]):
+        stage[i] = y[i] + z[bi, i]
+    evaluate(stage, net, fz[bi], jz[bi], rate[bi], forward_rate[bi], reverse_rate[bi], dr_dc, c[bi])
+
+
+@numba.njit(cache=True)
+def radau_run(y0, times, net, params, tolerances, out_c, out_s, stats):
+    """Integrate one run from t = 0 to every time in ``times`` (ascending, >= 0).
+
+    Fills ``out_c`` (times, N) and, if ``kinds`` is not empty, ``out_s`` (times, N, P) with d c / d parameter.
+    ``stats`` receives the counts of accepted steps and of rejected steps (error test or Newton failure).
+    Returns DONE, or FAILED when the step count or step size runs out or a value stops being finite.
+    """
+    rtol, atol, max_steps = tolerances.rtol, tolerances.atol, tolerances.max_steps
+    stoichiometry, forward = net.stoichiometry, net.forward
+    kinds, param_reaction, param_species = params.kind, params.reaction, params.species
+    n_reactions, n = forward.shape
+    n_params = kinds.shape[0]
+    a = np.empty((3, 3))
+    for i in range(3):
+        for j in range(3):
+            a[i, j] = A[i, j]
+    y = y0.copy()
+    s = initial_sensitivities(params, n)
+    f0 = np.empty(n)
+    jac0 = np.empty((n, n))
+    fz = np.empty((3, n))
+    jz = np.empty((3, n, n))
+    rate = np.empty((3, n_reactions))
+    forward_rate = np.empty((3, n_reactions))
+    reverse_rate = np.empty((3, n_reactions))
+    dr_dc = np.empty((n_reactions, n))
+    c = np.empty((3, n))
+    newton_tol = max(10.0 * 2.220446049250313e-16 / rtol, min(0.03, math.sqrt(rtol)))
+    newton = np.empty((3 * n, 3 * n))
+    newton_piv = np.empty(3 * n, dtype=np.int64)
+    small = np.empty((n, n))
+    small_piv = np.empty(n, dtype=np.int64)
+    z = np.zeros((3, n))
+    residual = np.empty(3 * n)
+    stage = np.empty(n)
+    scale = np.empty(n)
+    error = np.empty(n)
+    rhs = np.empty(3 * n)
+    source = np.empty((3, n))
+
+    t = 0.0
+    out_index = record_start(times, y, s, out_c, out_s)
+    if out_index == times.shape[0]:
+        return DONE
+
+    evaluate(
+        y,
+        net,
+        f0,
+        jac0,
+        rate[0],
+        forward_rate[0],
+        reverse_rate[0],
+        dr_dc,
+        c[0],
+    )
+    for i in range(n):
+        scale[i] = atol + rtol * abs(y[i])
+    d0 = rms(y, scale)
+    d1 = rms(f0, scale)
+    h = 1e-6 * times[-1] if (d0 < 1e-5 or d1 < 1e-5) else 0.01 * d0 / d1
+    h = min(h, times[-1])
+    if not (h > 0.0 and math.isfinite(h)):  # rates that overflow (extreme parameters) leave no usable step
+        return FAILED
+    steps = 0
+    error_old = -1.0
+    h_old = -1.0
+    while out_index < times.shape[0]:
+        steps += 1
+        if steps > max_steps:
+            return FAILED
+        target = times[out_index]
+        landing = False
+        h_free = h
+        if t + h >= target * (1.0 - 1e-12):
+            h = target - t
+            landing = True
+        if not (h > 1e-14 * max(target, 1.0)):
+            return FAILED
+        evaluate(
+            y,
+            net,
+            f0,
+            jac0,
+            rate[0],
+            forward_rate[0],
+            reverse_rate[0],
+            dr_dc,
+            c[0],
+        )
+        # Simplified Newton on Z = h (A x I) F(y + Z), matrix I - h A x J(y).
+        for bi in range(3):
+            for bj in range(3):
+                for i in range(n):
+                    for m in range(n):
+                        newton[bi * n + i, bj * n + m] = (1.0 if (bi == bj and i == m) else 0.0) - h * a[bi, bj] * jac0[
+                            i, m
+                        ]
+        if not lu_factor(newton, newton_piv):
+            h *= 0.5
+            continue
+        for bi in range(3):
+            for i in range(n):
+                z[bi, i] = 0.0
+        for i in range(n):
+            scale[i] = atol + rtol * abs(y[i])
+        converged = False
+        rate_old = 0.0
+        norm_old = -1.0
+        iterations = 0
+        for iteration in range(NEWTON_MAX):
+            iterations = iteration + 1
+            finite = True
+            for bi in range(3):
+                _evaluate_stage(y, z, bi, net, stage, fz, jz, rate, forward_rate, reverse_rate, dr_dc, c)
+                for i in range(n):
+                    if not math.isfinite(fz[bi, i]):
+                        finite = False
+            if not finite:
+                break
+            for bi in range(3):
+                for i in range(n):
+                    total = -z[bi, i]
+                    for bj in range(3):
+                        total += h * a[bi, bj] * fz[bj, i]
+                    residual[bi * n + i] = total
+            lu_solve(newton, newton_piv, residual)
+            total = 0.0
+            for bi in range(3):
+                for i in range(n):
+                    z[bi, i] += residual[bi * n + i]
+                    ratio = residual[bi * n + i] / scale[i]
+                    total += ratio * ratio
+            norm = math.sqrt(total / (3 * n))
+            if norm_old > 0.0:
+                rate_old = norm / norm_old
+                if rate_old >= 1.0:
+                    break
+                if rate_old / (1.0 - rate_old) * norm < newton_tol:
+                    converged = True
+                    break
+            elif norm < 1e-3 * newton_tol:
+                converged = True
+                break
+            norm_old = norm
+        if not converged:
+            stats[1] += 1
+            h *= 0.5
+            error_old = -1.0
+            continue
+        # Error estimate of the reference: (MU_REAL/h I - J)^-1 (f(y) + sum_i E_i Z_i / h).
+        for i in range(n):
+            for m in range(n):
+                small[i, m] = (MU_REAL / h if i == m else 0.0) - jac0[i, m]
+        if not lu_factor(small, small_piv):
+            h *= 0.5
+            continue
+        for i in range(n):
+            error[i] = f0[i] + (E[0] * z[0, i] + E[1] * z[1, i] + E[2] * z[2, i]) / h
+        lu_solve(small, small_piv, error)
+        for i in range(n):
+            scale[i] = atol + rtol * max(abs(y[i]), abs(y[i] + z[2, i]))
+        error_norm = rms(error, scale)
+        safety = 0.9 * (2 * NEWTON_MAX + 1) / (2 * NEWTON_MAX + iterations)
+        if not math.isfinite(error_norm):
+            h *= 0.25
+            error_old = -1.0
+            continue
+        if error_norm > 1.0:
+            stats[1] += 1
+            h *= max(0.2, safety * error_norm**-0.25)
+            error_old = -1.0
+            continue
+
+        # Accepted: sensitivities of the discrete step, (I - h (A x I) diag(J_j)) dZ = h (A x I)(J_j s + f_theta_j),
+        # with rates and Jacobians at the stage values of the final iterate.
+        if n_params > 0:
+            for bi in range(3):
+                _evaluate_stage(y, z, bi, net, stage, fz, jz, rate, forward_rate, reverse_rate, dr_dc, c)
+            for bi in range(3):
+                for bj in range(3):
+                    for i in range(n):
+                        for m in range(n):
+                            newton[bi * n + i, bj * n + m] = (1.0 if (bi == bj and i == m) else 0.0) - h * a[
+                                bi, bj
+                            ] * jz[bj, i, m]
+            if not lu_factor(newton, newton_piv):
+                return FAILED
+            for p in range(n_params):
+                kind = kinds[p]
+                j = param_reaction[p]
+                for bj in range(3):
+                    if kind == LN_K:
+                        theta = rate[bj, j]
+                    elif kind == LN_EQ:
+                        theta = reverse_rate[bj, j]
+                    elif kind == ORDER:
+                        theta = forward_rate[bj, j] * math.log(max(c[bj, param_species[p]], 1e-300))
+                    elif kind == LN_ADS:
+                        theta = adsorption_sensitivity(j, param_species[p], c[bj], net.ads, net.inhibition, rate[bj])
+                    else:
+                        theta = 0.0
+                    for i in range(n):
+                        total = 0.0
+                        for m in range(n):
+                            total += jz[bj, i, m] * s[p, m]
+                        if kind != INITIAL:
+                            total += stoichiometry[j, i] * theta
+                        source[bj, i] = total
+                for bi in range(3):
+                    for i in range(n):
+                        total = 0.0
+                        for bj in range(3):
+                            total += h * a[bi, bj] * source[bj, i]
+                        rhs[bi * n + i] = total
+                lu_solve(newton, newton_piv, rhs)
+                for i in range(n):
+                    s[p, i] += rhs[2 * n + i]
+        stats[0] += 1
+        for i in range(n):
+            y[i] += z[2, i]
+        t = target if landing else t + h
+        for i in range(n):
+            if not math.isfinite(y[i]):
+                return FAILED
+        if landing:
+            for i in range(n):
+                out_c[out_index, i] = y[i]
+                for p in range(n_params):
+                    out_s[out_index, i, p] = s[p, i]
+            out_index += 1
+        # Step-size proposal with the predictive (Gustafsson) controller of the reference.
+        factor = safety * error_norm**-0.25 if error_norm > 0 else 10.0
+        if error_old > 0.0 and h_old > 0.0 and error_norm > 0.0:
+            factor = min(factor, safety * (h / h_old) * (error_old / error_norm) ** 0.25 * error_norm**-0.25)
+        h_old = h
+        error_old = error_norm
+        h *= min(10.0, max(0.2, factor))
+        if landing:
+            h = max(h, h_free)  # a step shortened to land on an output time says nothing about the next one
+    return DONE
