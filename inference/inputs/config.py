@@ -19,7 +19,6 @@ from .rate_laws import LAW_KEYS, REGISTRY, Z95, missing_keys, undeclared_keys, v
 from .scenarios import check_scenario
 from .schema import ExponentPrior, OrderPrior, Reaction, StudyFile
 from .study import (
-    AdsorptionSite,
     ArrheniusPrior,
     EquilibriumPrior,
     FittedOrder,
@@ -366,7 +365,7 @@ def _resolve_network(file: StudyFile, where: str) -> tuple[tuple[ReactionSpec, .
         fitted_orders = []
         _check_law_keys(reaction, key)
         terms = REGISTRY[reaction.rate_law].kernel_terms(reaction, equation, species, energy, key)
-        inhibition, sites = terms.inhibition_exponent, tuple(AdsorptionSite(*site) for site in terms.sites)
+        inhibition, sites = terms.inhibition_exponent, tuple(terms.sites)
         for name, order in (reaction.orders or {}).items():
             if name not in reactant_orders:
                 raise StudyError(f"{key}.orders.{name}", f"'{name}' is not a reactant of '{reaction.equation}'")

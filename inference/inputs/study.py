@@ -11,6 +11,7 @@ from pathlib import Path
 from typing import Literal
 
 from ..physics.network import Network
+from .rate_laws.law import Site as AdsorptionSite
 from .schema import Noise, Sampling, Scenario, Units
 
 Mode = Literal["rate_constants", "network"]
@@ -51,20 +52,6 @@ class FittedOrder:
     species: str
     lower: float
     upper: float
-
-
-@dataclass(frozen=True)
-class AdsorptionSite:
-    """An adsorption constant of a saturating law, van 't Hoff about T_ref.
-
-    ln K_ref ~ Normal(ln_ref_mean, ln_ref_sd), K in 1/concentration; dH ~ Normal(dh_mean, dh_sd), J/mol.
-    """
-
-    species: str
-    ln_ref_mean: float
-    ln_ref_sd: float
-    dh_mean: float
-    dh_sd: float
 
 
 @dataclass(frozen=True)

@@ -32,7 +32,7 @@ Draws = Any
 
 
 class Site(NamedTuple):
-    """An adsorption constant as the kernel uses it, with the fields of ``study.AdsorptionSite``:
+    """An adsorption constant of a saturating law, van 't Hoff about T_ref (``study.AdsorptionSite`` is this):
     ln K_ref ~ Normal(ln_ref_mean, ln_ref_sd), K in 1/concentration; dH ~ Normal(dh_mean, dh_sd), J/mol."""
 
     species: str
