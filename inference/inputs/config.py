@@ -301,6 +301,22 @@ def _check_law_keys(reaction: Reaction, key: str) -> None:
         raise StudyError(f"{key}.{absent}", "required key is missing", f"rate_law {law.name} needs it")
 
 
+def _reaction_spec(reaction: Reaction, energy: str, key: str, k_unit: str, **parts: object) -> ReactionSpec:
+    """The resolved reaction common to both kinds of study: its Arrhenius prior and temperature exponent, with the
+    ``parts`` of ``ReactionSpec`` only its kind knows (equilibrium, fitted orders, saturation, molecularity)."""
+    exponent, exponent_sd = _temperature_exponent(reaction)
+    return ReactionSpec(
+        reaction.name,
+        reaction.equation,
+        reaction.rate_law,
+        _arrhenius_prior(reaction, energy, key),
+        k_unit,
+        temperature_exponent=exponent,
+        exponent_sd=exponent_sd,
+        **parts,
+    )
+
+
 def _resolve_rate_constant_reactions(file: StudyFile, where: str) -> tuple[ReactionSpec, ...]:
     if file.species or file.initial_uncertainty or file.formulas:
         key = "species" if file.species else ("initial_uncertainty" if file.initial_uncertainty else "formulas")
@@ -319,19 +335,8 @@ def _resolve_rate_constant_reactions(file: StudyFile, where: str) -> tuple[React
             raise StudyError(
                 f"{key}.rate_law", f"{reaction.rate_law} is for reaction networks fitted to concentration data"
             )
-        prior = _arrhenius_prior(reaction, file.units.energy, key)
-        exponent, exponent_sd = _temperature_exponent(reaction)
         specs.append(
-            ReactionSpec(
-                reaction.name,
-                reaction.equation,
-                reaction.rate_law,
-                prior,
-                file.units.rate_constant or "",
-                temperature_exponent=exponent,
-                exponent_sd=exponent_sd,
-                molecularity=order,
-            )
+            _reaction_spec(reaction, file.units.energy, key, file.units.rate_constant or "", molecularity=order)
         )
     return tuple(specs)
 
@@ -394,19 +399,15 @@ def _resolve_network(file: StudyFile, where: str) -> tuple[tuple[ReactionSpec, .
         saturation.append((inhibition, tuple(site.species for site in sites)))
         overall = sum(reactant_orders.values())
         k_unit = _order_unit(conc, time, overall) if not fitted_orders else f"({conc})^(1-n)/{time}"
-        exponent, exponent_sd = _temperature_exponent(reaction)
         specs.append(
-            ReactionSpec(
-                reaction.name,
-                reaction.equation,
-                reaction.rate_law,
-                _arrhenius_prior(reaction, energy, key),
+            _reaction_spec(
+                reaction,
+                energy,
+                key,
                 k_unit,
-                equilibrium,
-                eq_unit,
-                tuple(fitted_orders),
-                temperature_exponent=exponent,
-                exponent_sd=exponent_sd,
+                equilibrium=equilibrium,
+                eq_unit=eq_unit,
+                fitted_orders=tuple(fitted_orders),
                 inhibition_exponent=inhibition,
                 adsorption=sites,
                 molecularity=None if fitted_orders or sites else overall,
