@@ -24,7 +24,7 @@ def _start(folder: Path, env: dict | None = None) -> subprocess.Popen:
         shutil.copy(REPO / "data_demo" / name, folder / name)
     with StagedFolder(folder / "res", overwrite=False) as earlier:  # results of an earlier run, as Arrhenia writes
         earlier.write_text("summary.csv", "earlier results\n")
-        earlier.write_manifest({"arrhenia_version": "earlier"})
+        earlier.write_manifest("fit", {})
     command = [
         sys.executable,
         "-m",

@@ -195,7 +195,7 @@ def test_stale_staging_folders_of_dead_processes_are_removed_and_live_ones_kept(
     (tmp_path / f".res.partial-{dead}@otherhost").mkdir()  # another machine sharing the folder: not ours to judge
     (tmp_path / ".other.lock").write_text(f"{dead}\n")  # a killed process's lock file, held by nobody
     with StagedFolder(tmp_path / "res", overwrite=False) as folder:
-        folder.write_manifest({"arrhenia_version": "test"})
+        folder.write_manifest("test", {})
     names = sorted(p.name for p in tmp_path.iterdir())
     assert names == sorted([f".res.partial-{dead}@otherhost", f".res.partial-{live}", "res"])
 
@@ -221,7 +221,7 @@ def test_replacement_swaps_old_for_new_either_way(tmp_path, monkeypatch, atomic_
     for version in ("old", "new"):
         with StagedFolder(tmp_path / "res", overwrite=True) as folder:
             folder.write_text("which.txt", version)
-            folder.write_manifest({"arrhenia_version": version})
+            folder.write_manifest("test", {"which": version})
     assert (tmp_path / "res" / "which.txt").read_text() == "new"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["res"]
 
@@ -229,7 +229,7 @@ def test_replacement_swaps_old_for_new_either_way(tmp_path, monkeypatch, atomic_
 def test_a_failure_while_staging_keeps_the_old_results(tmp_path):
     with StagedFolder(tmp_path / "res", overwrite=False) as folder:
         folder.write_text("which.txt", "old")
-        folder.write_manifest({"arrhenia_version": "old"})
+        folder.write_manifest("test", {})
     with pytest.raises(KeyboardInterrupt), StagedFolder(tmp_path / "res", overwrite=True) as folder:
         folder.write_text("which.txt", "new")
         raise KeyboardInterrupt
