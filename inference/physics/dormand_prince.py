@@ -60,17 +60,7 @@ def _augmented_rhs(
     """d/dt of [c, s_1, ..., s_P]: f(c) and J(c) s_p + d f / d theta_p."""
     stoichiometry = net.stoichiometry
     kinds, param_reaction, param_species = params.kind, params.reaction, params.species
-    evaluate(
-        u[:n],
-        net,
-        out[:n],
-        jac,
-        rate,
-        forward_rate,
-        reverse_rate,
-        dr_dc,
-        c,
-    )
+    evaluate(u[:n], net, out[:n], jac, rate, forward_rate, reverse_rate, dr_dc, c)
     for p in range(kinds.shape[0]):
         offset = n * (1 + p)
         kind = kinds[p]

@@ -89,17 +89,7 @@ def radau_run(y0, times, net, params, tolerances, out_c, out_s, stats):
     if out_index == times.shape[0]:
         return DONE
 
-    evaluate(
-        y,
-        net,
-        f0,
-        jac0,
-        rate[0],
-        forward_rate[0],
-        reverse_rate[0],
-        dr_dc,
-        c[0],
-    )
+    evaluate(y, net, f0, jac0, rate[0], forward_rate[0], reverse_rate[0], dr_dc, c[0])
     for i in range(n):
         scale[i] = atol + rtol * abs(y[i])
     d0 = rms(y, scale)
@@ -123,17 +113,7 @@ def radau_run(y0, times, net, params, tolerances, out_c, out_s, stats):
             landing = True
         if not (h > 1e-14 * max(target, 1.0)):
             return FAILED
-        evaluate(
-            y,
-            net,
-            f0,
-            jac0,
-            rate[0],
-            forward_rate[0],
-            reverse_rate[0],
-            dr_dc,
-            c[0],
-        )
+        evaluate(y, net, f0, jac0, rate[0], forward_rate[0], reverse_rate[0], dr_dc, c[0])
         # Simplified Newton on Z = h (A x I) F(y + Z), matrix I - h A x J(y).
         for bi in range(3):
             for bj in range(3):
