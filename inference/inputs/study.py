@@ -11,6 +11,7 @@ from pathlib import Path
 from typing import Literal
 
 from ..physics.network import Network
+from ..physics.parameters import SensitivityLayout
 from .rate_laws.law import Site as AdsorptionSite
 from .schema import Noise, Sampling, Scenario, Units
 
@@ -122,6 +123,16 @@ class Study:
     run_variability: RunVariabilitySpec | None = None
     temperature_sd_K: float | None = None
     transition_state: TransitionStateSpec | None = None
+
+    def sensitivity_layout(self) -> SensitivityLayout:
+        """Which kinetic parameters are free: the fitted orders and the uncertain initial concentrations (the
+        columns of the ``orders`` and ``initial`` blocks of ``physics.parameters.BLOCKS``)."""
+        species = self.species
+        free_orders = tuple(
+            (j, species.index(fitted.species)) for j, r in enumerate(self.reactions) for fitted in r.fitted_orders
+        )
+        free_initial = tuple(species.index(name) for name, _ in self.initial_uncertainty)
+        return SensitivityLayout(self.network, free_orders, free_initial)
 
     @property
     def reaction_names(self) -> tuple[str, ...]:

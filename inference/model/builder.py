@@ -34,7 +34,7 @@ from ..inputs.schema import Noise
 from ..inputs.study import Study
 from ..physics import closed_form
 from ..physics.arrhenius import ln_rate_constant
-from ..physics.parameters import BLOCKS, KineticInputs, SensitivityLayout
+from ..physics.parameters import BLOCKS, KineticInputs
 from ..physics.solution import NetworkSolver
 from .ops import NetworkPrediction
 
@@ -117,17 +117,9 @@ def build_rate_constant_model(study: Study, data: RateConstantData, temperature_
     return model
 
 
-def sensitivity_layout(study: Study) -> SensitivityLayout:
-    """Which kinetic parameters of the study are free: its fitted orders and uncertain initial concentrations."""
-    species = study.species
-    free_orders = tuple((j, species.index(f.species)) for j, r in enumerate(study.reactions) for f in r.fitted_orders)
-    free_initial = tuple(species.index(name) for name, _ in study.initial_uncertainty)
-    return SensitivityLayout(study.network, free_orders, free_initial)
-
-
 def network_solver(study: Study, obs: Observations) -> NetworkSolver:
     """The solver for this study's network, runs and sampling times (free orders and initial values marked)."""
-    layout = sensitivity_layout(study)
+    layout = study.sensitivity_layout()
     return NetworkSolver(
         study.network, list(obs.times), free_orders=layout.free_orders, free_initial=layout.free_initial
     )
@@ -190,7 +182,7 @@ def network_coords(study: Study, obs: Observations) -> dict:
         "measurement": np.arange(obs.value.size),
         "observed_species": [study.species[i] for i in obs.observed_species],
     }
-    layout = sensitivity_layout(study)
+    layout = study.sensitivity_layout()
     for block in BLOCKS:  # a coordinate for every parameter block the study has
         labels = block.labels(layout)
         if labels:

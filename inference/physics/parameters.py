@@ -136,6 +136,8 @@ BLOCKS: tuple[ParameterBlock, ...] = (
 if tuple(block.name for block in BLOCKS) != KineticInputs._fields:  # one order for the kernel, the Op and draws
     raise ImportError("parameters.BLOCKS and KineticInputs must list the same blocks in the same order")
 
+#: The blocks by name.
+BLOCK: dict[str, ParameterBlock] = {block.name: block for block in BLOCKS}
 #: Posterior variables of the kinetic parameter blocks, in block order.
 BLOCK_VARIABLES: tuple[str, ...] = tuple(name for block in BLOCKS for name in block.posterior_variables)
 

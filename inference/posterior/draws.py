@@ -10,7 +10,7 @@ import numpy as np
 import xarray as xr
 
 from ..inputs.study import Study
-from ..physics.parameters import ParameterDraws
+from ..physics.parameters import BLOCK, ParameterDraws
 
 
 def pick_draws(posterior: xr.Dataset, count: int) -> np.ndarray:
@@ -65,18 +65,16 @@ def parameter_draws(
     reversible = [r for r in study.reactions if r.equilibrium is not None]
     ln_eq_ref = values("ln_K_ref") if reversible else np.zeros((count, 0))
     dh = values("dH") if reversible else np.zeros((count, 0))
+    layout = study.sensitivity_layout()
     orders = np.repeat(np.array(study.network.forward_orders)[None], count, axis=0)
-    column = 0
-    for j, spec in enumerate(study.reactions):
-        for fitted in spec.fitted_orders:
-            orders[:, j, study.species.index(fitted.species)] = values("order")[:, column]
-            column += 1
+    for column, (j, i) in enumerate(BLOCK["orders"].sites(layout)):
+        orders[:, j, i] = values("order")[:, column]
     initial = None
     if "initial" in stacked and initial_runs is not None:
         initial = np.repeat(np.asarray(initial_runs, dtype=float)[None], count, axis=0)
         uncertain = values("initial")  # (D, runs, uncertain species)
-        for g, (name, _) in enumerate(study.initial_uncertainty):
-            initial[:, :, study.species.index(name)] = uncertain[:, :, g]
+        for column, (_, i) in enumerate(BLOCK["initial"].sites(layout)):
+            initial[:, :, i] = uncertain[:, :, column]
     if "temperature_exponent" in stacked:
         exponent = values("temperature_exponent")
     else:

@@ -24,6 +24,7 @@ from ..inputs.rate_laws.law import lognormal_text, normal_text
 from ..inputs.study import Study
 from ..outputs import plots
 from ..physics import closed_form
+from ..physics.parameters import BLOCKS
 from ..physics.solution import NetworkSolver, SolverFailure
 from ..posterior.diagnostics import KINETIC_VARIABLES
 from ..posterior.draws import parameter_draws, pick_draws, prior_centre_draws
@@ -282,6 +283,13 @@ class NetworkProblem:
                 + ", ".join(f"{name} (±{share:.0%} lognormal)" for name, share in study.initial_uncertainty)
             )
         lines.append(_noise_line(study))
+        layout = study.sensitivity_layout()
+        blocks = [
+            f"{block.name} ({block.count(layout)}{' per run' if block.per_run else ''})"
+            for block in BLOCKS
+            if block.count(layout)
+        ]
+        lines.append("  kinetic parameters the profiles depend on: " + ", ".join(blocks))
         lines.append(
             "  profiles: "
             + (
