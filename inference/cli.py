@@ -8,6 +8,7 @@ import select
 import shlex
 import signal
 import sys
+import threading
 import traceback
 from pathlib import Path
 from typing import NoReturn
@@ -296,13 +297,24 @@ def _what_was_written(stop: BaseException) -> str:
     return "; ".join(getattr(stop, "__notes__", ())) or "no results were written"
 
 
+def _listen_for_interrupts() -> None:
+    """Ctrl-C and SIGTERM end every command cleanly, whatever the parent process left behind: a parent that ignores
+    SIGINT (as shells do for background jobs, and as some test runners and job launchers pass on) or blocks it
+    would otherwise make Arrhenia deaf to Ctrl-C, so the handlers are set and the signals unblocked here."""
+    if threading.current_thread() is not threading.main_thread():
+        return  # called from a thread (an embedding program): signals are the main thread's business
+    signal.signal(signal.SIGINT, signal.default_int_handler)
+    signal.signal(signal.SIGTERM, _on_sigterm)
+    signal.pthread_sigmask(signal.SIG_UNBLOCK, {signal.SIGINT, signal.SIGTERM})
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point of the console script; returns the exit code."""
     global _MAIN_PID
     args = _parser().parse_args(argv)
     args.command_line = shlex.join(["arrhenia", *(sys.argv[1:] if argv is None else argv)])
     _MAIN_PID = os.getpid()
-    signal.signal(signal.SIGTERM, _on_sigterm)
+    _listen_for_interrupts()
     try:
         return int(_run(args))
     except StudyError as error:
