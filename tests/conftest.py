@@ -57,3 +57,16 @@ def run_cli(capsys):
         return code, captured.out, captured.err
 
     return run
+
+
+def still_running(pids) -> list[int]:
+    """Those of ``pids`` that still run (Linux /proc); a zombie, dead but not yet reaped, does not count."""
+    running = []
+    for pid in pids:
+        try:
+            state = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0]
+        except OSError:
+            continue
+        if state not in ("Z", "X"):
+            running.append(pid)
+    return running

@@ -17,6 +17,7 @@ from pathlib import Path
 
 import pandas as pd
 import pytest
+from conftest import still_running
 
 from inference import fit_study
 from inference.cli import main
@@ -211,19 +212,6 @@ def test_a_dead_worker_s_task_runs_once_more_then_is_a_failed_row(tmp_path):
     assert batch.BatchResult(pd.DataFrame([row]), tmp_path, 1).exit_code == ExitCode.FAULT
 
 
-def _alive(pids: set[int]) -> list[int]:
-    """Those of ``pids`` that still run (zombies, dead but not yet reaped, do not count)."""
-    alive = []
-    for pid in pids:
-        try:
-            state = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0]
-        except OSError:
-            continue
-        if state not in ("Z", "X"):
-            alive.append(pid)
-    return alive
-
-
 @pytest.mark.skipif(not sys.platform.startswith("linux"), reason="finds the batch's processes in /proc (Linux)")
 def test_ctrl_c_stops_the_workers_says_what_finished_and_writes_the_table(tmp_path):
     quick = write(tmp_path, "lot-a", 3, draws=200)
@@ -252,8 +240,8 @@ def test_ctrl_c_stops_the_workers_says_what_finished_and_writes_the_table(tmp_pa
     assert table.loc["lot-a", "status"] in ("fitted", "not converged")
     assert table.loc["lot-b", "status"] == "interrupted"
     deadline = time.monotonic() + 15  # workers and their chain processes are gone, and stay gone
-    while _alive(family) and time.monotonic() < deadline:
+    while still_running(family) and time.monotonic() < deadline:
         time.sleep(0.2)
-    assert _alive(family) == []
+    assert still_running(family) == []
     time.sleep(10)
     assert not (tmp_path / "r" / "lot-b").exists()

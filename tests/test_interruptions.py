@@ -13,6 +13,7 @@ import time
 from pathlib import Path
 
 import pytest
+from conftest import still_running
 
 from inference.outputs.results import StagedFolder
 
@@ -116,19 +117,6 @@ def test_signal_during_sampling(tmp_path, how, code):
     assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == []
 
 
-def _running(pids: list[int]) -> list[int]:
-    """Those of ``pids`` that still run; a zombie (dead, not yet reaped by its new parent) does not."""
-    running = []
-    for pid in pids:
-        try:
-            state = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0]
-        except OSError:
-            continue
-        if state not in ("Z", "X"):
-            running.append(pid)
-    return running
-
-
 @pytest.mark.skipif(not sys.platform.startswith("linux"), reason="the death signal of chain processes is Linux's")
 def test_kill_9_takes_the_chain_processes_along_and_the_next_fit_clears_the_scratch(tmp_path, monkeypatch):
     from inference.model import sampling
@@ -142,11 +130,11 @@ def test_kill_9_takes_the_chain_processes_along_and_the_next_fit_clears_the_scra
         process.kill()  # kill -9: no handler runs, nothing is cleaned up by the fit itself
         process.wait(timeout=30)
         deadline = time.monotonic() + 10
-        while _running(chains) and time.monotonic() < deadline:
+        while still_running(chains) and time.monotonic() < deadline:
             time.sleep(0.1)
-        left = _running(chains)
+        left = still_running(chains)
     finally:
-        for pid in _running(chains):
+        for pid in still_running(chains):
             os.kill(pid, signal.SIGKILL)
         if process.poll() is None:
             os.killpg(process.pid, signal.SIGKILL)
