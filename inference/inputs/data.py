@@ -129,6 +129,17 @@ def read_table(path: Path, required: set[str], optional: set[str] = frozenset())
     return frame
 
 
+def _position(label: str, names: tuple[str, ...] | list[str], what: str, where: str) -> int:
+    """Index of a cell's ``label`` among the study's ``names`` (reactions or species); ``StudyError`` naming the
+    cell (``where`` is file and line), with a close match or the list as a hint, when it is none of them."""
+    if label in names:
+        return list(names).index(label)
+    close = difflib.get_close_matches(label, list(names), n=1)
+    plural = "reactions" if what == "reaction" else what
+    hint = f"did you mean '{close[0]}'?" if close else f"the study's {plural}: {', '.join(names)}"
+    raise StudyError(f"{where}, column '{what}'", f"'{excerpt(label)}' is not a {what} of the study", hint)
+
+
 def numeric_column(
     frame: pd.DataFrame, column: str, where: str, *, positive: bool = False, allow_blank: bool = False
 ) -> np.ndarray:
@@ -193,15 +204,7 @@ def read_rate_constants(study: Study) -> RateConstantData:
     if "reaction" in frame.columns:
         index = np.empty(len(frame), dtype=int)
         for row, label in enumerate(frame["reaction"]):
-            if label not in names:
-                close = difflib.get_close_matches(label, names, n=1)
-                hint = f"did you mean '{close[0]}'?" if close else f"the study's reactions: {', '.join(names)}"
-                raise StudyError(
-                    f"{where}: line {frame['line'].iloc[row]}, column 'reaction'",
-                    f"'{excerpt(label)}' is not a reaction of the study",
-                    hint,
-                )
-            index[row] = names.index(label)
+            index[row] = _position(label, names, "reaction", f"{where}: line {frame['line'].iloc[row]}")
     elif len(names) == 1:
         index = np.zeros(len(frame), dtype=int)
     else:
@@ -383,15 +386,8 @@ def read_observations(study: Study) -> Observations:
     if long_layout:
         values = numeric_column(with_header, "value", where)
         for row, name in enumerate(with_header["species"]):
-            if name not in species:
-                close = difflib.get_close_matches(name, species, n=1)
-                hint = f"did you mean '{close[0]}'?" if close else f"the study's species: {', '.join(species)}"
-                raise StudyError(
-                    f"{where}: line {lines[row]}, column 'species'",
-                    f"'{excerpt(name)}' is not a species of the study",
-                    hint,
-                )
-            records.append((run_ids.index(labels[row]), time[row], species.index(name), values[row], lines[row]))
+            column = _position(name, species, "species", f"{where}: line {lines[row]}")
+            records.append((run_ids.index(labels[row]), time[row], column, values[row], lines[row]))
     else:
         measured = [name for name in species if name in columns]
         if not measured:

@@ -112,12 +112,14 @@ def assess(
     max_tree_depth: int = 10,
     solver_failures: int = 0,
     problem: Problem | None = None,
+    fit_checks: pd.DataFrame | None = None,
 ) -> Diagnostics:
     """Compute R-hat, ESS, divergences, tree-depth hits and BFMI over ``var_names`` and give a verdict.
 
     ``solver_failures`` (integrations that failed during sampling, each a rejected proposal) is reported and,
     when it is more than 1 % of the draws, advised on. With the ``problem`` the posterior came from, the fit
-    is also judged against its data (``misfit_findings``); any misfit makes the verdict at least ``warn``."""
+    is also judged against its data (``misfit_findings``, on ``fit_checks`` when the caller has them already);
+    any misfit makes the verdict at least ``warn``."""
     posterior = idata.posterior[var_names]
     r_hat = float(np.nanmax(az.rhat(posterior).to_array().values))
     ess_bulk = float(np.nanmin(az.ess(posterior, method="bulk").to_array().values))
@@ -164,7 +166,7 @@ def assess(
         or divergences > FAIL_LIMITS["divergent_share_max"] * chains * draws
     )
     sampler_verdict = "fail" if failing else ("warn" if advice else "pass")
-    misfit = misfit_findings(problem, idata) if problem is not None else []
+    misfit = misfit_findings(problem, idata, fit_checks) if problem is not None else []
     if misfit:
         advice += [finding["message"] for finding in misfit]
         worst = next((f["worst_points"] for f in misfit if f.get("worst_points")), [])
@@ -204,11 +206,11 @@ def standardised_residuals(fit_checks: pd.DataFrame, log_scale: bool) -> np.ndar
     return np.where(np.isfinite(z), z, np.nan)
 
 
-def misfit_findings(problem: Problem, idata: az.InferenceData) -> list[dict]:
+def misfit_findings(problem: Problem, idata: az.InferenceData, fit_checks: pd.DataFrame | None = None) -> list[dict]:
     """Signs that the model does not describe the data, one dict per finding: ``check``, ``message`` (plain
     words), the ``statistic`` and ``p_value`` it rests on, the ``threshold`` used and, for findings about the
     data points, the ``worst_points`` (file and line of the worst-predicted measurements)."""
-    fit_checks = problem.fit_checks(idata)
+    fit_checks = problem.fit_checks(idata) if fit_checks is None else fit_checks
     z = standardised_residuals(fit_checks, log_scale=problem.study.noise.model != "absolute")
     findings = [
         *_coverage(fit_checks["inside_90"].to_numpy(dtype=bool)),

@@ -107,7 +107,10 @@ def _fit(
         idata, failures = sample_posterior(model, sampling, progress=not quiet, failure_log=failure_log)
     steps.done("sampled", f"{sampling.chains} chains x {sampling.draws} draws after {sampling.tune} tuning")
 
-    diagnostics = assess(idata, problem.kinetic_var_names(idata), solver_failures=failures, problem=problem)
+    fit_checks = problem.fit_checks(idata)
+    diagnostics = assess(
+        idata, problem.kinetic_var_names(idata), solver_failures=failures, problem=problem, fit_checks=fit_checks
+    )
     quantities = derived_quantities(study, idata.posterior, temperature_ref)
     result = FitResult(
         study=study,
@@ -117,7 +120,7 @@ def _fit(
         summary=summary_table(quantities),
         tables=problem.extra_tables(),
         correlations=correlation_table(study, idata.posterior, temperature_ref),
-        fit_checks=problem.fit_checks(idata),
+        fit_checks=fit_checks,
         extrapolations=extrapolation_notes(study, problem.temperatures_K),
         idata=idata,
     )
