@@ -8,7 +8,7 @@ from scipy.integrate import solve_ivp
 
 from inference.physics import closed_form
 from inference.physics.network import EquationError, build_network, element_counts, imbalance, parse_equation
-from inference.physics.parameters import KineticInputs
+from inference.physics.parameters import KineticInputs, SensitivityLayout
 from inference.physics.solution import NetworkSolver, SolverSettings
 
 
@@ -128,7 +128,7 @@ def test_sensitivities_match_finite_differences():
     # Every kind of sensitivity parameter at once: ln k, ln K, a fitted order, an uncertain initial value.
     net = network("ABCD", "A + B <=> C", "C -> D")
     times = np.array([0.5, 2.0, 5.0, 12.0])
-    solver = NetworkSolver(net, [times], free_orders=((0, 1),), free_initial=(0,))
+    solver = NetworkSolver(net, [times], layout=SensitivityLayout(net, free_orders=((0, 1),), free_initial=(0,)))
     base = np.array([np.log(0.8), np.log(0.05), np.log(4.0), 1.3, 1.1])  # ln k1, ln k2, ln K1, order, A0
 
     def run(x, sensitivities=False):

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import csv
 import difflib
+import functools
 import io
 from dataclasses import dataclass
 from pathlib import Path
@@ -16,6 +17,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import StudyError
+from ..physics.conditions import Conditions, RunSetup, build_conditions, isothermal_conditions
 from . import units
 from .files import excerpt, read_text, shown_path
 from .study import Study
@@ -260,6 +262,21 @@ class Observations:
     runs_path: Path
     measurements_path: Path
     run_group: tuple[str, ...] = ()
+    setups: tuple[RunSetup, ...] = ()
+    factor: np.ndarray | None = None
+
+    @functools.cached_property
+    def conditions(self) -> Conditions:
+        """How every run was carried out, in the compiled integrators' form (isothermal batch by default)."""
+        if not self.setups:
+            return isothermal_conditions(self.temperature_K, self.initial.shape[1])
+        return build_conditions(self.setups, self.initial.shape[1])
+
+    @property
+    def isothermal_batch(self) -> bool:
+        """Every run an isothermal batch run at constant volume, measured as concentrations."""
+        plain = all(not s.ramped and not s.feeds and not s.overflow for s in self.setups)
+        return plain and (self.factor is None or bool(np.all(self.factor == 1.0)))
 
     @property
     def observed_species(self) -> np.ndarray:

@@ -125,14 +125,17 @@ class Study:
     transition_state: TransitionStateSpec | None = None
 
     def sensitivity_layout(self) -> SensitivityLayout:
-        """Which kinetic parameters are free: the fitted orders and the uncertain initial concentrations (the
-        columns of the ``orders`` and ``initial`` blocks of ``physics.parameters.BLOCKS``)."""
+        """Which kinetic parameters are free: the fitted orders, the uncertain initial concentrations, and the
+        temperature slopes when the study has temperature histories (the columns of the blocks of
+        ``physics.parameters.BLOCKS``)."""
         species = self.species
         free_orders = tuple(
             (j, species.index(fitted.species)) for j, r in enumerate(self.reactions) for fitted in r.fitted_orders
         )
         free_initial = tuple(species.index(name) for name, _ in self.initial_uncertainty)
-        return SensitivityLayout(self.network, free_orders, free_initial)
+        fitted_exponents = tuple(j for j, r in enumerate(self.reactions) if r.exponent_sd is not None)
+        varies = "temperatures" in dict(self.data_files)
+        return SensitivityLayout(self.network, free_orders, free_initial, varies, fitted_exponents)
 
     @property
     def reaction_names(self) -> tuple[str, ...]:

@@ -33,7 +33,7 @@ from ..inputs.data import Observations, RateConstantData
 from ..inputs.schema import Noise
 from ..inputs.study import Study
 from ..physics import closed_form
-from ..physics.arrhenius import ln_rate_constant
+from ..physics.arrhenius import R, ln_rate_constant
 from ..physics.parameters import BLOCKS, KineticInputs
 from ..physics.solution import NetworkSolver
 from .ops import NetworkPrediction
@@ -118,11 +118,8 @@ def build_rate_constant_model(study: Study, data: RateConstantData, temperature_
 
 
 def network_solver(study: Study, obs: Observations) -> NetworkSolver:
-    """The solver for this study's network, runs and sampling times (free orders and initial values marked)."""
-    layout = study.sensitivity_layout()
-    return NetworkSolver(
-        study.network, list(obs.times), free_orders=layout.free_orders, free_initial=layout.free_initial
-    )
+    """The solver for this study's network, runs, their conditions and sampling times (free parameters marked)."""
+    return NetworkSolver(study.network, list(obs.times), layout=study.sensitivity_layout(), conditions=obs.conditions)
 
 
 def _van_t_hoff_pair(ln_name: str, dh_name: str, dims: str, priors: np.ndarray):
@@ -172,6 +169,21 @@ def _run_effects(study: Study, obs: Observations, ln_k):
         z = pm.Normal("z_run_effect", 0.0, 1.0, dims=("group", "varying_reaction"))
         effect = pm.Deterministic("run_effect", spread * z, dims=("group", "varying_reaction"))
     return pt.inc_subtensor(ln_k[:, varying], effect[obs.group_index])
+
+
+def _temperature_slopes(study: Study, ea, dh, dh_ads, exponents) -> dict:
+    """The shared slopes Ea/R, dH/R, dH_ads/R (K) and fitted temperature exponents, where some run's temperature
+    changes (``SensitivityLayout.temperature_varies``); empty otherwise."""
+    layout = study.sensitivity_layout()
+    if not layout.temperature_varies:
+        return {name: pt.zeros(0) for name in ("activation", "eq_enthalpy", "ads_enthalpy", "exponent")}
+    fitted = list(layout.fitted_exponents)
+    return {
+        "activation": ea / R,
+        "eq_enthalpy": dh / R if dh is not None else pt.zeros(0),
+        "ads_enthalpy": dh_ads / R if dh_ads is not None else pt.zeros(0),
+        "exponent": exponents[fitted] if fitted else pt.zeros(0),
+    }
 
 
 def network_coords(study: Study, obs: Observations) -> dict:
@@ -239,14 +251,20 @@ def build_network_model(
             if ln_ads_ref is not None
             else pt.zeros((len(obs.run_ids), 0))
         )
+        slopes = _temperature_slopes(study, ea, dh, dh_ads, exponents)
         kind = closed_form.closed_form_kind(network)
-        if kind is not None and not study.initial_uncertainty:
+        if kind is not None and not study.initial_uncertainty and obs.isothermal_batch:
             k = pt.exp(ln_k[obs.run_index, 0])
             profiles = closed_form.concentrations(kind, network, obs.initial[obs.run_index], k, obs.time, xp=pt)
             predicted = profiles[pt.arange(obs.value.size), obs.species_index]
         else:
-            op = NetworkPrediction(network_solver(study, obs), obs, network.forward_orders, failure_log)
-            raw, _ = op(*KineticInputs(ln_k=ln_k, ln_eq=ln_eq, ln_ads=ln_ads, orders=orders, initial=initial_free))
+            fixed_exponents = np.array([r.temperature_exponent for r in study.reactions])
+            op = NetworkPrediction(
+                network_solver(study, obs), obs, network.forward_orders, failure_log, fixed_exponents
+            )
+            raw, _ = op(
+                *KineticInputs(ln_k=ln_k, ln_eq=ln_eq, ln_ads=ln_ads, orders=orders, initial=initial_free, **slopes)
+            )
             failed = pt.any(pt.isnan(raw))
             # A failed integration rejects the draw: the log-density is -inf there.
             pm.Potential("solver_guard", pt.switch(failed, -np.inf, 0.0))

@@ -23,7 +23,8 @@ from ..physics.solution import MeasurementSolver, NetworkSolver, SolverFailure
 class NetworkPrediction(Op):
     """Inputs: one per block of ``parameters.BLOCKS``, in its order, in the free form of ``KineticInputs``
     (ln_k (runs, reactions), ln_eq (runs, reversible), ln_ads (runs, adsorption sites), fitted orders (F,),
-    uncertain initial concentrations (runs, G)). Outputs: predicted concentration per measurement (M,), and
+    uncertain initial concentrations (runs, G), and the shared temperature slopes where a run's temperature
+    changes). Outputs: predicted concentration per measurement (M,), and
     d(prediction)/d(inputs, flattened) (M, P).
 
     A failed integration returns NaN predictions (the model turns them into a log-density of -inf), is
@@ -37,12 +38,14 @@ class NetworkPrediction(Op):
         observations: Observations,
         fixed_orders: np.ndarray,
         failure_log: Path | None = None,
+        fixed_exponents: np.ndarray | None = None,
     ) -> None:
         self.solver = solver
         self.failure_log = failure_log
         self.last_failure = ""
         self.observations = observations
         self.fixed_orders = np.array(fixed_orders, dtype=float)
+        self.fixed_exponents = fixed_exponents
         self.failures = 0
         n_runs = len(observations.run_ids)
         counts = [block.count(solver.layout) for block in BLOCKS]
@@ -57,6 +60,7 @@ class NetworkPrediction(Op):
             observations.species_index,
             self._jacobian_columns(n_runs, counts),
             sum(self.sizes),
+            observations.factor,
         )
 
     def __hash__(self) -> int:
@@ -89,7 +93,7 @@ class NetworkPrediction(Op):
         n_total = sum(self.sizes)
         free = KineticInputs(*inputs)
         try:
-            solver_inputs = self.solver.layout.expand(free, self.fixed_orders, obs.initial)
+            solver_inputs = self.solver.layout.expand(free, self.fixed_orders, obs.initial, self.fixed_exponents)
             prediction, jacobian = self.measurements.solve(solver_inputs)
         except SolverFailure as failure:
             self.failures += 1

@@ -10,7 +10,8 @@ import math
 import numba
 import numpy as np
 
-from .kinetics import INITIAL, LN_ADS, LN_EQ, LN_K, ORDER, adsorption_sensitivity
+from .conditions import dose_piece, next_stop
+from .kinetics import INITIAL, parameter_rate
 from .stepping import DONE, FAILED, evaluate, initial_sensitivities, record_start
 
 #: Dormand-Prince 5(4): nodes, stage coefficients, 5th-order weights, and 5th minus 4th order weights
@@ -44,37 +45,17 @@ DP_P = np.array(
 
 
 @numba.njit(cache=True)
-def _augmented_rhs(
-    u,
-    n,
-    net,
-    params,
-    out,
-    jac,
-    rate,
-    forward_rate,
-    reverse_rate,
-    dr_dc,
-    c,
-):
-    """d/dt of [c, s_1, ..., s_P]: f(c) and J(c) s_p + d f / d theta_p."""
+def _augmented_rhs(u, t, piece, n, net, cond, params, out, work):
+    """d/dt of [c, s_1, ..., s_P] at time t: f(c) and J(c) s_p + d f / d theta_p."""
+    jac, rate, forward_rate, reverse_rate, dr_dc, c = work
     stoichiometry = net.stoichiometry
     kinds, param_reaction, param_species = params.kind, params.reaction, params.species
-    evaluate(u[:n], net, out[:n], jac, rate, forward_rate, reverse_rate, dr_dc, c)
+    x, log_ratio = evaluate(u[:n], t, piece, net, cond, out[:n], jac, rate, forward_rate, reverse_rate, dr_dc, c)
     for p in range(kinds.shape[0]):
         offset = n * (1 + p)
         kind = kinds[p]
         j = param_reaction[p]
-        if kind == LN_K:
-            theta = rate[j]
-        elif kind == LN_EQ:
-            theta = reverse_rate[j]
-        elif kind == ORDER:
-            theta = forward_rate[j] * math.log(max(c[param_species[p]], 1e-300))
-        elif kind == LN_ADS:
-            theta = adsorption_sensitivity(j, param_species[p], c, net.ads, net.inhibition, rate)
-        else:
-            theta = 0.0
+        theta = parameter_rate(kind, j, param_species[p], c, net, rate, forward_rate, reverse_rate, x, log_ratio)
         for i in range(n):
             total = 0.0
             for m in range(n):
@@ -85,8 +66,9 @@ def _augmented_rhs(
 
 
 @numba.njit(cache=True)
-def dopri_run(y0, times, net, params, tolerances, out_c, out_s, stats):
-    """Like ``radau_run`` with the explicit Dormand-Prince pair; FAILED once ``max_steps`` are used."""
+def dopri_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
+    """Like ``radau_run`` with the explicit Dormand-Prince pair; FAILED once ``max_steps`` are used. Steps end
+    where the inflow jumps (``conditions.next_stop``), so no step straddles a discontinuity."""
     rtol, atol, max_steps = tolerances.rtol, tolerances.atol, tolerances.max_steps
     forward = net.forward
     kinds = params.kind
@@ -99,28 +81,18 @@ def dopri_run(y0, times, net, params, tolerances, out_c, out_s, stats):
     stages = np.empty((7, size))
     trial = np.empty(size)
     new = np.empty(size)
-    jac = np.empty((n, n))
-    rate = np.empty(n_reactions)
-    forward_rate = np.empty(n_reactions)
-    reverse_rate = np.empty(n_reactions)
-    dr_dc = np.empty((n_reactions, n))
-    c = np.empty(n)
+    work = (
+        np.empty((n, n)),
+        np.empty(n_reactions),
+        np.empty(n_reactions),
+        np.empty(n_reactions),
+        np.empty((n_reactions, n)),
+        np.empty(n),
+    )
     out_index = record_start(times, u[:n], u[n:].reshape((n_params, n)), out_c, out_s)
     if out_index == times.shape[0]:
         return DONE
-    _augmented_rhs(
-        u,
-        n,
-        net,
-        params,
-        stages[0],
-        jac,
-        rate,
-        forward_rate,
-        reverse_rate,
-        dr_dc,
-        c,
-    )
+    _augmented_rhs(u, 0.0, 0, n, net, cond, params, stages[0], work)
     # Initial step (Hairer, Norsett and Wanner, "Solving Ordinary Differential Equations I", sec. II.4).
     d0 = 0.0
     d1 = 0.0
@@ -136,19 +108,7 @@ def dopri_run(y0, times, net, params, tolerances, out_c, out_s, stats):
         return FAILED
     for i in range(size):
         trial[i] = u[i] + h * stages[0, i]
-    _augmented_rhs(
-        trial,
-        n,
-        net,
-        params,
-        stages[1],
-        jac,
-        rate,
-        forward_rate,
-        reverse_rate,
-        dr_dc,
-        c,
-    )
+    _augmented_rhs(trial, h, 0, n, net, cond, params, stages[1], work)
     d2 = 0.0
     for i in range(size):
         scale = atol + rtol * abs(u[i])
@@ -161,13 +121,16 @@ def dopri_run(y0, times, net, params, tolerances, out_c, out_s, stats):
 
     t = 0.0
     t_end = times[-1]
+    piece = dose_piece(cond, t)
+    stop = next_stop(cond, t)
     steps = 0
     while out_index < times.shape[0]:
         steps += 1
         if steps > max_steps:
             return FAILED
-        if t + h >= t_end * (1.0 - 1e-12):
-            h = t_end - t
+        end = min(t_end, stop)
+        if t + h >= end * (1.0 - 1e-12):
+            h = end - t
         if not (h > 1e-14 * max(t_end, 1.0)):
             return FAILED
         for st in range(1, 6):
@@ -176,37 +139,13 @@ def dopri_run(y0, times, net, params, tolerances, out_c, out_s, stats):
                 for q in range(st):
                     total += DP_A[st, q] * stages[q, i]
                 trial[i] = u[i] + h * total
-            _augmented_rhs(
-                trial,
-                n,
-                net,
-                params,
-                stages[st],
-                jac,
-                rate,
-                forward_rate,
-                reverse_rate,
-                dr_dc,
-                c,
-            )
+            _augmented_rhs(trial, t + DP_C[st] * h, piece, n, net, cond, params, stages[st], work)
         for i in range(size):
             total = 0.0
             for q in range(6):
                 total += DP_B[q] * stages[q, i]
             new[i] = u[i] + h * total
-        _augmented_rhs(
-            new,
-            n,
-            net,
-            params,
-            stages[6],
-            jac,
-            rate,
-            forward_rate,
-            reverse_rate,
-            dr_dc,
-            c,
-        )
+        _augmented_rhs(new, t + h, piece, n, net, cond, params, stages[6], work)
         error = 0.0
         finite = True
         for i in range(size):
@@ -227,7 +166,7 @@ def dopri_run(y0, times, net, params, tolerances, out_c, out_s, stats):
             stats[1] += 1
             continue
         stats[0] += 1
-        t_new = t_end if t + h >= t_end * (1.0 - 1e-12) else t + h
+        t_new = end if t + h >= end * (1.0 - 1e-12) else t + h
         while out_index < times.shape[0] and times[out_index] <= t_new:
             x = (times[out_index] - t) / h
             powers = (x, x * x, x * x * x, x * x * x * x)
@@ -247,5 +186,9 @@ def dopri_run(y0, times, net, params, tolerances, out_c, out_s, stats):
             u[i] = new[i]
             stages[0, i] = stages[6, i]
         t = t_new
+        if t >= stop:  # the inflow jumps here: the next step starts from the new interval's derivative
+            piece = dose_piece(cond, t)
+            stop = next_stop(cond, t)
+            _augmented_rhs(u, t, piece, n, net, cond, params, stages[0], work)
         h *= 10.0 if error == 0.0 else min(10.0, 0.9 * error**-0.2)
     return DONE

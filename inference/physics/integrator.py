@@ -1,7 +1,8 @@
 """One run, or every run of a study, integrated with sensitivities: ``integrate_run`` tries the explicit
 Dormand-Prince pair (``dormand_prince``) first; when that needs more than ``EXPLICIT_BUDGET`` steps (the mark of a
-stiff draw) it integrates the run again with Radau IIA (``radau``). ``predict_measurements`` does every run and
-gathers predictions and their Jacobian at the measurements in one compiled call.
+stiff draw) it integrates the run again with Radau IIA (``radau``). A run with ``overflow`` (a CSTR) goes to its
+steady state instead (``steady_state``). ``predict_measurements`` does every run and gathers predictions and
+their Jacobian at the measurements in one compiled call.
 
 Sensitivities are those of the discrete solution, so the gradient is exact for the computed profile (what NUTS
 needs) rather than an approximation of the exact one.
@@ -12,25 +13,41 @@ from __future__ import annotations
 import numba
 import numpy as np
 
+from .conditions import run_conditions
 from .dormand_prince import dopri_run
-from .kinetics import run_kernel
+from .kinetics import Sensitivities, run_kernel
 from .radau import radau_run
-from .stepping import DONE, Tolerances
+from .steady_state import STARTUP_RESIDENCE_TIMES, steady_state_run
+from .stepping import DONE, FAILED, Tolerances
 
 #: Steps of the explicit pair before a run counts as stiff and goes to the implicit method.
 EXPLICIT_BUDGET = 1500
 
 
 @numba.njit(cache=True)
-def integrate_run(y0, times, net, params, tolerances, out_c, out_s, stats):
+def _transient(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
     """Dormand-Prince first; if the run proves stiff (or the explicit pair fails), Radau IIA."""
-
     explicit = Tolerances(tolerances.rtol, tolerances.atol, min(EXPLICIT_BUDGET, tolerances.max_steps))
-    status = dopri_run(y0, times, net, params, explicit, out_c, out_s, stats)
+    status = dopri_run(y0, times, net, cond, params, explicit, out_c, out_s, stats)
     if status == DONE:
         return DONE
     stats[2] += 1
-    return radau_run(y0, times, net, params, tolerances, out_c, out_s, stats)
+    return radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats)
+
+
+@numba.njit(cache=True)
+def integrate_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
+    """Run ``y0`` under its conditions ``cond`` to every time of ``times``, with the sensitivities ``params``;
+    an overflow run (a CSTR started full of its feed ``y0``) reports its steady state at every time."""
+    if not cond.overflow:
+        return _transient(y0, times, net, cond, params, tolerances, out_c, out_s, stats)
+    n = y0.shape[0]
+    horizon = np.array([STARTUP_RESIDENCE_TIMES * cond.dose_volume[0] / cond.dose_flow[0]])
+    none = Sensitivities(params.kind[:0], params.reaction[:0], params.species[:0])
+    start = np.empty((1, n))
+    if _transient(y0, horizon, net, cond, none, tolerances, start, np.empty((1, n, 0)), stats) != DONE:
+        return FAILED
+    return steady_state_run(y0, start[0], times, net, cond, params, tolerances, out_c, out_s, stats)
 
 
 @numba.njit(cache=True)
@@ -39,12 +56,14 @@ def predict_measurements(
     all_times,
     time_offsets,
     kernel,
+    conditions,
     params,
     tolerances,
     run_index,
     time_index,
     species_index,
     columns,
+    factor,
     prediction,
     jacobian,
     stats,
@@ -53,7 +72,8 @@ def predict_measurements(
 
     Run r's times are ``all_times[time_offsets[r]:time_offsets[r + 1]]``; measurement m reads run
     ``run_index[m]`` at its time ``time_index[m]`` and species ``species_index[m]``; ``columns[r, p]`` is the
-    input column of run r's sensitivity parameter p. Returns the index of the first failing run, or -1.
+    input column of run r's sensitivity parameter p; ``factor[m]`` multiplies the concentration (the volume
+    there, for a measured amount; else 1). Returns the index of the first failing run, or -1.
     """
     n_runs, n = initial.shape
     n_params = params.kind.shape[0]
@@ -62,7 +82,8 @@ def predict_measurements(
         times = all_times[time_offsets[r] : time_offsets[r + 1]]
         out_c = np.empty((times.shape[0], n))
         out_s = np.empty((times.shape[0], n, n_params))
-        status = integrate_run(initial[r].copy(), times, run_kernel(kernel, r), params, tolerances, out_c, out_s, stats)
+        net, cond = run_kernel(kernel, r), run_conditions(conditions, r)
+        status = integrate_run(initial[r].copy(), times, net, cond, params, tolerances, out_c, out_s, stats)
         if status != DONE:
             return r
         for m in range(run_index.shape[0]):
@@ -70,7 +91,7 @@ def predict_measurements(
                 continue
             t = time_index[m]
             i = species_index[m]
-            prediction[m] = out_c[t, i]
+            prediction[m] = factor[m] * out_c[t, i]
             for p in range(n_params):
-                jacobian[m, columns[r, p]] += out_s[t, i, p]
+                jacobian[m, columns[r, p]] += factor[m] * out_s[t, i, p]
     return -1

@@ -1,7 +1,8 @@
 """The kinetic parameter vector of a network, declared once, and draws of it as plain arrays.
 
 ``BLOCKS`` declares each block of the vector the compiled kernel differentiates against (ln k, ln K_c, ln K of
-adsorption sites, fitted orders, uncertain initial concentrations): its name, whether it has one row per run,
+adsorption sites, fitted orders, uncertain initial concentrations, and, where a run's temperature changes, the
+temperature slopes Ea/R, dH/R, dH_ads/R and fitted temperature exponents): its name, whether it has one row per run,
 the posterior coordinate of its columns, the sampled variables it is made of, and its kernel slot. The solver's
 sensitivity parameters and their names, the PyTensor Op's inputs, shapes and Jacobian columns, and the verdict's
 variable list all iterate over it; ``KineticInputs`` carries the values block by block, by name.
@@ -18,44 +19,79 @@ from typing import NamedTuple
 
 import numpy as np
 
-from .arrhenius import ln_rate_constant
-from .kinetics import INITIAL, LN_ADS, LN_EQ, LN_K, ORDER
+from .arrhenius import R, ln_rate_constant
+from .kinetics import ACTIVATION, ADS_ENTHALPY, EQ_ENTHALPY, EXPONENT, INITIAL, LN_ADS, LN_EQ, LN_K, ORDER
 from .network import Network
 
 
 class KineticInputs(NamedTuple):
     """Values of every block, for a set of runs: ``ln_k`` (runs, reactions), ``ln_eq`` (runs, reversible
-    reactions), ``ln_ads`` (runs, adsorption sites), ``orders`` and ``initial``. For the solver ``orders`` is the
-    full forward-order matrix (reactions, species) and ``initial`` the full (runs, species) concentrations; for the
-    Op's free inputs they are the fitted orders (F,) and the uncertain initial concentrations (runs, G)
-    (``SensitivityLayout.expand`` turns the one into the other)."""
+    reactions), ``ln_ads`` (runs, adsorption sites), each at the run's nominal temperature; ``orders`` and
+    ``initial``; the temperature slopes ``activation`` (Ea/R, K), ``eq_enthalpy`` (dH/R of the reversible
+    reactions, K), ``ads_enthalpy`` (dH_ads/R of the adsorption sites, K) and ``exponent`` (temperature exponents).
+
+    For the solver ``orders`` is the full forward-order matrix (reactions, species), ``initial`` the full
+    (runs, species) concentrations and the slopes have a run axis (runs, reactions | reversible | sites); for the
+    Op's free inputs they are the fitted orders (F,), the uncertain initial concentrations (runs, G), and the
+    slopes shared by all runs, present only where some run's temperature changes (the fitted exponents alone)
+    (``SensitivityLayout.expand`` turns the one into the other). Slopes left None mean isothermal runs."""
 
     ln_k: np.ndarray
     ln_eq: np.ndarray
     ln_ads: np.ndarray
     orders: np.ndarray
     initial: np.ndarray
+    activation: np.ndarray | None = None
+    eq_enthalpy: np.ndarray | None = None
+    ads_enthalpy: np.ndarray | None = None
+    exponent: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
 class SensitivityLayout:
-    """Which parameters of a network are free: fitted forward orders ``(reaction, species)`` and species whose
-    initial concentration is uncertain."""
+    """Which parameters of a network are free: fitted forward orders ``(reaction, species)``, species whose
+    initial concentration is uncertain, whether the temperature changes within some run (then the temperature
+    slopes are free too), and the reactions whose temperature exponent is fitted."""
 
     network: Network
     free_orders: tuple[tuple[int, int], ...] = ()
     free_initial: tuple[int, ...] = ()
+    temperature_varies: bool = False
+    fitted_exponents: tuple[int, ...] = ()
 
-    def expand(self, free: KineticInputs, fixed_orders: np.ndarray, nominal_initial: np.ndarray) -> KineticInputs:
+    def expand(
+        self,
+        free: KineticInputs,
+        fixed_orders: np.ndarray,
+        nominal_initial: np.ndarray,
+        fixed_exponents: np.ndarray | None = None,
+    ) -> KineticInputs:
         """Solver inputs from the Op's free inputs: fitted orders written into ``fixed_orders`` (R, N), uncertain
-        initial concentrations into ``nominal_initial`` (runs, N)."""
+        initial concentrations into ``nominal_initial`` (runs, N), fitted exponents into ``fixed_exponents``
+        (R,; zeros when None), the shared slopes repeated for every run (zeros where no temperature changes)."""
         orders = np.array(fixed_orders, dtype=float)
         for value, (j, i) in zip(free.orders, self.free_orders, strict=True):
             orders[j, i] = value
         initial = np.array(nominal_initial, dtype=float)
         for g, i in enumerate(self.free_initial):
             initial[:, i] = free.initial[:, g]
-        return free._replace(orders=orders, initial=initial)
+        net = self.network
+        n_runs, n_reactions = initial.shape[0], len(net.reactions)
+        exponent = np.zeros(n_reactions) if fixed_exponents is None else np.array(fixed_exponents, dtype=float)
+        if not self.temperature_varies:
+            slopes = (np.zeros(n_reactions), np.zeros(int(np.sum(net.reversible))), np.zeros(len(net.adsorption_sites)))
+        else:
+            slopes = (free.activation, free.eq_enthalpy, free.ads_enthalpy)
+            exponent[list(self.fitted_exponents)] = free.exponent
+        activation, eq_enthalpy, ads_enthalpy = (np.tile(np.asarray(v, dtype=float), (n_runs, 1)) for v in slopes)
+        return free._replace(
+            orders=orders,
+            initial=initial,
+            activation=activation,
+            eq_enthalpy=eq_enthalpy,
+            ads_enthalpy=ads_enthalpy,
+            exponent=np.tile(exponent, (n_runs, 1)),
+        )
 
 
 @dataclass(frozen=True)
@@ -81,6 +117,10 @@ class ParameterBlock:
         return [text.format(reaction=net.reactions[j], species=net.species[i]) for j, i in self.sites(layout)]
 
 
+def _reversible_sites(layout: SensitivityLayout) -> tuple[tuple[int, int], ...]:
+    return tuple((int(j), 0) for j in np.flatnonzero(layout.network.reversible))
+
+
 BLOCKS: tuple[ParameterBlock, ...] = (
     ParameterBlock(
         "ln_k",
@@ -100,7 +140,7 @@ BLOCKS: tuple[ParameterBlock, ...] = (
         ("ln_K_ref", "dH"),
         "ln_K[{reaction}]",
         "{reaction}",
-        lambda layout: tuple((int(j), 0) for j in np.flatnonzero(layout.network.reversible)),
+        _reversible_sites,
     ),
     ParameterBlock(
         "ln_ads",
@@ -131,6 +171,46 @@ BLOCKS: tuple[ParameterBlock, ...] = (
         "c0[{species}]",
         "{species}",
         lambda layout: tuple((0, i) for i in layout.free_initial),
+    ),
+    ParameterBlock(
+        "activation",
+        ACTIVATION,
+        False,
+        "reaction",
+        (),
+        "Ea/R[{reaction}]",
+        "{reaction}",
+        lambda layout: tuple((j, 0) for j in range(len(layout.network.reactions))) if layout.temperature_varies else (),
+    ),
+    ParameterBlock(
+        "eq_enthalpy",
+        EQ_ENTHALPY,
+        False,
+        "reversible",
+        (),
+        "dH/R[{reaction}]",
+        "{reaction}",
+        lambda layout: _reversible_sites(layout) if layout.temperature_varies else (),
+    ),
+    ParameterBlock(
+        "ads_enthalpy",
+        ADS_ENTHALPY,
+        False,
+        "adsorption_site",
+        (),
+        "dH_ads/R[{reaction}, {species}]",
+        "{reaction}:{species}",
+        lambda layout: tuple(layout.network.adsorption_sites) if layout.temperature_varies else (),
+    ),
+    ParameterBlock(
+        "exponent",
+        EXPONENT,
+        False,
+        "fitted_exponent",
+        (),
+        "n[{reaction}]",
+        "{reaction}",
+        lambda layout: tuple((j, 0) for j in layout.fitted_exponents) if layout.temperature_varies else (),
     ),
 )
 if tuple(block.name for block in BLOCKS) != KineticInputs._fields:  # one order for the kernel, the Op and draws
@@ -209,23 +289,37 @@ class ParameterDraws:
         return ParameterDraws(**values)
 
     def inputs(self, d: int, kelvin: np.ndarray, initial: np.ndarray, ln_k: np.ndarray | None = None) -> KineticInputs:
-        """Solver inputs of draw d for runs at ``kelvin`` (runs,) starting from ``initial`` (runs, N); ``ln_k``
-        (runs, R) replaces the new-run ln k (e.g. the fitted runs' own, with their shifts)."""
+        """Solver inputs of draw d for runs at (nominal) temperatures ``kelvin`` (runs,) starting from ``initial``
+        (runs, N); ``ln_k`` (runs, R) replaces the new-run ln k (e.g. the fitted runs' own, with their shifts)."""
         kelvin = np.asarray(kelvin, dtype=float)
         one = self.draw(d)
         ln_k = one.ln_k(kelvin) if ln_k is None else ln_k
-        return KineticInputs(ln_k, one.ln_eq(kelvin), _sites(one.ln_ads(kelvin), kelvin.size), self.orders[d], initial)
+        slopes = one._slopes(kelvin.size)
+        return KineticInputs(
+            ln_k, one.ln_eq(kelvin), _sites(one.ln_ads(kelvin), kelvin.size), self.orders[d], initial, *slopes
+        )
 
     def as_runs(self, kelvin: float, initial: np.ndarray) -> KineticInputs:
-        """Solver inputs with every draw as a run of its own at ``kelvin``, all from ``initial`` (N,); the draws'
-        orders must not vary (``orders_vary``)."""
+        """Solver inputs with every draw as a run of its own at (nominal) ``kelvin``, all from ``initial`` (N,);
+        the draws' orders must not vary (``orders_vary``)."""
         return KineticInputs(
             self.ln_k(kelvin),
             self.ln_eq(kelvin),
             _sites(self.ln_ads(kelvin), self.size),
             self.orders[0],
             np.repeat(np.asarray(initial, dtype=float)[None], self.size, axis=0),
+            *self._slopes(None),
         )
+
+    def _slopes(self, runs: int | None) -> tuple[np.ndarray, ...]:
+        """Ea/R, dH/R, dH_ads/R (K) and temperature exponents: one row per draw (``runs`` None), or draw 0's row
+        repeated for ``runs`` runs."""
+        exponent = np.zeros_like(self.ea) if self.exponent is None else np.broadcast_to(self.exponent, self.ea.shape)
+        dh_ads = np.zeros((self.size, 0)) if self.dh_ads is None else self.dh_ads
+        rows = (self.ea / R, self.dh / R, dh_ads / R, exponent)
+        if runs is None:
+            return tuple(np.asarray(row, dtype=float) for row in rows)
+        return tuple(np.repeat(np.asarray(row[:1], dtype=float), runs, axis=0) for row in rows)
 
     @property
     def orders_vary(self) -> bool:

@@ -14,7 +14,8 @@ import math
 import numba
 import numpy as np
 
-from .kinetics import INITIAL, LN_ADS, LN_EQ, LN_K, ORDER, adsorption_sensitivity
+from .conditions import dose_piece, next_stop
+from .kinetics import INITIAL, parameter_rate
 from .stepping import DONE, FAILED, evaluate, initial_sensitivities, lu_factor, lu_solve, record_start, rms
 
 _S6 = math.sqrt(6.0)
@@ -32,20 +33,23 @@ MU_REAL = 3.0 + 3.0 ** (2.0 / 3.0) - 3.0 ** (1.0 / 3.0)
 E = np.array([-13.0 - 7.0 * _S6, -13.0 + 7.0 * _S6, -1.0]) / 3.0
 
 NEWTON_MAX = 7
-NEWTON_MAX = 7
 
 
 @numba.njit(cache=True)
-def _evaluate_stage(y, z, bi, net, stage, fz, jz, rate, forward_rate, reverse_rate, dr_dc, c):
-    """Rates and Jacobian at stage ``bi`` of a Radau step (the state y + z[bi]), into that stage's slots."""
+def _evaluate_stage(y, z, bi, t, piece, net, cond, stage, fz, jz, rate, forward_rate, reverse_rate, dr_dc, c):
+    """Rates and Jacobian at stage ``bi`` of a Radau step (the state y + z[bi] at time t), into that stage's
+    slots; returns the temperature terms there."""
     for i in range(y.shape[0]):
         stage[i] = y[i] + z[bi, i]
-    evaluate(stage, net, fz[bi], jz[bi], rate[bi], forward_rate[bi], reverse_rate[bi], dr_dc, c[bi])
+    return evaluate(
+        stage, t, piece, net, cond, fz[bi], jz[bi], rate[bi], forward_rate[bi], reverse_rate[bi], dr_dc, c[bi]
+    )
 
 
 @numba.njit(cache=True)
-def radau_run(y0, times, net, params, tolerances, out_c, out_s, stats):
-    """Integrate one run from t = 0 to every time in ``times`` (ascending, >= 0).
+def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
+    """Integrate one run, under its ``conditions.RunConditions``, from t = 0 to every time in ``times``
+    (ascending, >= 0); steps also end where the inflow jumps.
 
     Fills ``out_c`` (times, N) and, if ``kinds`` is not empty, ``out_s`` (times, N, P) with d c / d parameter.
     ``stats`` receives the counts of accepted steps and of rejected steps (error test or Newton failure).
@@ -83,13 +87,15 @@ def radau_run(y0, times, net, params, tolerances, out_c, out_s, stats):
     error = np.empty(n)
     rhs = np.empty(3 * n)
     source = np.empty((3, n))
+    temperature_x = np.zeros(3)
+    temperature_l = np.zeros(3)
 
     t = 0.0
     out_index = record_start(times, y, s, out_c, out_s)
     if out_index == times.shape[0]:
         return DONE
 
-    evaluate(y, net, f0, jac0, rate[0], forward_rate[0], reverse_rate[0], dr_dc, c[0])
+    evaluate(y, 0.0, 0, net, cond, f0, jac0, rate[0], forward_rate[0], reverse_rate[0], dr_dc, c[0])
     for i in range(n):
         scale[i] = atol + rtol * abs(y[i])
     d0 = rms(y, scale)
@@ -105,7 +111,8 @@ def radau_run(y0, times, net, params, tolerances, out_c, out_s, stats):
         steps += 1
         if steps > max_steps:
             return FAILED
-        target = times[out_index]
+        piece = dose_piece(cond, t)
+        target = min(times[out_index], next_stop(cond, t))
         landing = False
         h_free = h
         if t + h >= target * (1.0 - 1e-12):
@@ -113,7 +120,7 @@ def radau_run(y0, times, net, params, tolerances, out_c, out_s, stats):
             landing = True
         if not (h > 1e-14 * max(target, 1.0)):
             return FAILED
-        evaluate(y, net, f0, jac0, rate[0], forward_rate[0], reverse_rate[0], dr_dc, c[0])
+        evaluate(y, t, piece, net, cond, f0, jac0, rate[0], forward_rate[0], reverse_rate[0], dr_dc, c[0])
         # Simplified Newton on Z = h (A x I) F(y + Z), matrix I - h A x J(y).
         for bi in range(3):
             for bj in range(3):
@@ -138,7 +145,9 @@ def radau_run(y0, times, net, params, tolerances, out_c, out_s, stats):
             iterations = iteration + 1
             finite = True
             for bi in range(3):
-                _evaluate_stage(y, z, bi, net, stage, fz, jz, rate, forward_rate, reverse_rate, dr_dc, c)
+                _evaluate_stage(
+                    y, z, bi, t + C[bi] * h, piece, net, cond, stage, fz, jz, rate, forward_rate, reverse_rate, dr_dc, c
+                )
                 for i in range(n):
                     if not math.isfinite(fz[bi, i]):
                         finite = False
@@ -202,7 +211,9 @@ def radau_run(y0, times, net, params, tolerances, out_c, out_s, stats):
         # with rates and Jacobians at the stage values of the final iterate.
         if n_params > 0:
             for bi in range(3):
-                _evaluate_stage(y, z, bi, net, stage, fz, jz, rate, forward_rate, reverse_rate, dr_dc, c)
+                temperature_x[bi], temperature_l[bi] = _evaluate_stage(
+                    y, z, bi, t + C[bi] * h, piece, net, cond, stage, fz, jz, rate, forward_rate, reverse_rate, dr_dc, c
+                )
             for bi in range(3):
                 for bj in range(3):
                     for i in range(n):
@@ -216,16 +227,18 @@ def radau_run(y0, times, net, params, tolerances, out_c, out_s, stats):
                 kind = kinds[p]
                 j = param_reaction[p]
                 for bj in range(3):
-                    if kind == LN_K:
-                        theta = rate[bj, j]
-                    elif kind == LN_EQ:
-                        theta = reverse_rate[bj, j]
-                    elif kind == ORDER:
-                        theta = forward_rate[bj, j] * math.log(max(c[bj, param_species[p]], 1e-300))
-                    elif kind == LN_ADS:
-                        theta = adsorption_sensitivity(j, param_species[p], c[bj], net.ads, net.inhibition, rate[bj])
-                    else:
-                        theta = 0.0
+                    theta = parameter_rate(
+                        kind,
+                        j,
+                        param_species[p],
+                        c[bj],
+                        net,
+                        rate[bj],
+                        forward_rate[bj],
+                        reverse_rate[bj],
+                        temperature_x[bj],
+                        temperature_l[bj],
+                    )
                     for i in range(n):
                         total = 0.0
                         for m in range(n):
@@ -249,7 +262,7 @@ def radau_run(y0, times, net, params, tolerances, out_c, out_s, stats):
         for i in range(n):
             if not math.isfinite(y[i]):
                 return FAILED
-        if landing:
+        if landing and t == times[out_index]:
             for i in range(n):
                 out_c[out_index, i] = y[i]
                 for p in range(n_params):

@@ -20,6 +20,7 @@ import numpy as np
 from scipy.integrate import solve_ivp
 from scipy.optimize import root
 
+from .conditions import isothermal_conditions, run_conditions
 from .kinetics import run_kernel
 from .network import Network
 from .parameters import ParameterDraws
@@ -32,16 +33,10 @@ def _rate_terms(network: Network, one: ParameterDraws, kelvin: float, c: np.ndar
     kernel = network_kernel(network, one.inputs(0, np.array([kelvin]), np.asarray(c, dtype=float)[None]))
     n_reactions, n = network.forward_orders.shape
     f, jac = np.empty(n), np.empty((n, n))
+    scratch = (np.empty(n_reactions), np.empty(n_reactions), np.empty(n_reactions), np.empty((n_reactions, n)))
+    conditions = run_conditions(isothermal_conditions(np.array([kelvin]), n), 0)
     evaluate(
-        np.ascontiguousarray(c, dtype=float),
-        run_kernel(kernel, 0),
-        f,
-        jac,
-        np.empty(n_reactions),
-        np.empty(n_reactions),
-        np.empty(n_reactions),
-        np.empty((n_reactions, n)),
-        np.empty(n),
+        np.ascontiguousarray(c, dtype=float), 0.0, 0, run_kernel(kernel, 0), conditions, f, jac, *scratch, np.empty(n)
     )
     return f, jac
 

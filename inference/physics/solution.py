@@ -1,8 +1,8 @@
-"""Concentration profiles of batch runs with exact parameter sensitivities.
+"""Concentration profiles of runs with exact parameter sensitivities.
 
-``NetworkSolver`` integrates every run of a study with the compiled Radau IIA integrator of ``integrator``
-(each run with its own step sizes), returning the concentrations and their sensitivities to ln k, ln K,
-fitted orders, uncertain initial concentrations and adsorption constants. No PyMC here.
+``NetworkSolver`` integrates every run of a study with the compiled integrators of ``integrator`` (each run
+with its own step sizes, under its own ``conditions``: temperature history, dosing, or a CSTR's steady state),
+returning the concentrations and their sensitivities to the blocks of ``parameters.BLOCKS``. No PyMC here.
 """
 
 from __future__ import annotations
@@ -11,6 +11,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .conditions import Conditions, isothermal_conditions, run_conditions
 from .integrator import DONE, integrate_run, predict_measurements
 from .kinetics import Kernel, Sensitivities, run_kernel
 from .network import Network
@@ -61,6 +62,22 @@ def rate_arrays(
     return k_runs, inv_eq, ads
 
 
+def _slope_arrays(network: Network, inputs: KineticInputs, n_runs: int) -> tuple[np.ndarray, ...]:
+    """Ea/R and exponents (runs, R), dH/R (runs, R; zero for irreversible steps) and dH_ads/R (runs, R, N)."""
+    n_reactions, n_species = network.forward_orders.shape
+    activation = np.zeros((n_runs, n_reactions))
+    exponent = np.zeros((n_runs, n_reactions))
+    eq_enthalpy = np.zeros((n_runs, n_reactions))
+    ads_enthalpy = np.zeros((n_runs, n_reactions, n_species))
+    if inputs.activation is not None:
+        activation[:] = inputs.activation
+        exponent[:] = inputs.exponent
+        eq_enthalpy[:, np.flatnonzero(network.reversible)] = inputs.eq_enthalpy
+        for s, (j, i) in enumerate(network.adsorption_sites):
+            ads_enthalpy[:, j, i] = np.asarray(inputs.ads_enthalpy)[..., s]
+    return activation, exponent, eq_enthalpy, ads_enthalpy
+
+
 def network_kernel(network: Network, inputs: KineticInputs) -> Kernel:
     """The compiled kernel's inputs for every run of ``inputs`` (solver form: full orders); the one place they
     are assembled. ``SolverFailure`` when a constant overflows."""
@@ -74,6 +91,7 @@ def network_kernel(network: Network, inputs: KineticInputs) -> Kernel:
         network.reversible,
         ads,
         network.inhibition,
+        *_slope_arrays(network, inputs, k.shape[0]),
     )
 
 
@@ -82,7 +100,8 @@ class NetworkSolver:
 
     Its sensitivity parameters are the columns of ``parameters.BLOCKS``, block by block: ln k of every reaction;
     ln K of every reversible reaction; ln K of every adsorption site of a saturating law; each free forward order;
-    each species whose initial concentration is uncertain.
+    each species whose initial concentration is uncertain; the temperature slopes where a run's temperature
+    changes. ``conditions`` say how each run was carried out (default: isothermal batch runs).
     """
 
     def __init__(
@@ -90,13 +109,14 @@ class NetworkSolver:
         network: Network,
         times: list[np.ndarray],
         *,
-        free_orders: tuple[tuple[int, int], ...] = (),
-        free_initial: tuple[int, ...] = (),
+        layout: SensitivityLayout | None = None,
+        conditions: Conditions | None = None,
         settings: SolverSettings = SolverSettings(),
     ) -> None:
         self.network = network
         self.settings = settings
-        self.layout = SensitivityLayout(network, tuple(free_orders), tuple(free_initial))
+        self.layout = SensitivityLayout(network) if layout is None else layout
+        self.conditions = conditions
         columns = [(block.kernel_kind, j, i) for block in BLOCKS for j, i in block.sites(self.layout)]
         table = np.array(columns, dtype=np.int64).reshape(-1, 3)
         self.sensitivities = Sensitivities(*(np.ascontiguousarray(table[:, c]) for c in range(3)))
@@ -112,6 +132,12 @@ class NetworkSolver:
     def parameter_names(self) -> list[str]:
         return [name for block in BLOCKS for name in block.labels(self.layout, block.label)]
 
+    def conditions_for(self, n_runs: int) -> Conditions:
+        """The runs' conditions: as given, or isothermal batch runs (their nominal temperature is irrelevant)."""
+        if self.conditions is None or self.conditions.nominal_kelvin.size != n_runs:
+            self.conditions = isothermal_conditions(np.full(n_runs, 300.0), len(self.network.species))
+        return self.conditions
+
     def tolerances(self, initial: np.ndarray) -> Tolerances:
         """The settings' tolerances, the absolute one scaled by the largest initial concentration."""
         scale = float(np.max(initial)) if np.max(initial) > 0 else 1.0
@@ -124,6 +150,7 @@ class NetworkSolver:
         n_runs, n_species = initial.shape
         n_params = self.n_params if sensitivities else 0
         kernel = network_kernel(self.network, inputs)
+        conditions = self.conditions_for(n_runs)
         columns = Sensitivities(*(values[:n_params] for values in self.sensitivities))
         tolerances = self.tolerances(initial)
         concentrations, sens = [], [] if sensitivities else None
@@ -137,6 +164,7 @@ class NetworkSolver:
                     np.ascontiguousarray(initial[r]),
                     times,
                     run_kernel(kernel, r),
+                    run_conditions(conditions, r),
                     columns,
                     tolerances,
                     out_c,
@@ -156,7 +184,8 @@ class NetworkSolver:
 class MeasurementSolver:
     """Predictions at a fixed set of measurements and their Jacobian, computed in one compiled call.
 
-    ``columns[r, p]`` maps sensitivity parameter p of run r to a column of the Jacobian (see ``ops``).
+    ``columns[r, p]`` maps sensitivity parameter p of run r to a column of the Jacobian (see ``ops``);
+    ``factor`` (M,) multiplies each prediction (a run's volume at that time for a measured amount; default 1).
     """
 
     def __init__(
@@ -167,6 +196,7 @@ class MeasurementSolver:
         species_index: np.ndarray,
         columns: np.ndarray,
         n_inputs: int,
+        factor: np.ndarray | None = None,
     ) -> None:
         self.solver = solver
         self.all_times = np.concatenate(solver.times)
@@ -176,6 +206,7 @@ class MeasurementSolver:
         self.species_index = np.asarray(species_index, dtype=np.int64)
         self.columns = np.ascontiguousarray(columns, dtype=np.int64)
         self.n_inputs = n_inputs
+        self.factor = np.ones(self.run_index.size) if factor is None else np.asarray(factor, dtype=float)
 
     def solve(self, inputs: KineticInputs) -> tuple[np.ndarray, np.ndarray]:
         """(prediction (M,), jacobian (M, inputs)) for ``inputs`` in solver form; raises ``SolverFailure``."""
@@ -192,12 +223,14 @@ class MeasurementSolver:
                 self.all_times,
                 self.time_offsets,
                 kernel,
+                solver.conditions_for(initial.shape[0]),
                 solver.sensitivities,
                 tolerances,
                 self.run_index,
                 self.time_index,
                 self.species_index,
                 self.columns,
+                self.factor,
                 prediction,
                 jacobian,
                 solver.stats,

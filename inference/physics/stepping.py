@@ -10,7 +10,8 @@ from typing import NamedTuple
 import numba
 import numpy as np
 
-from .kinetics import INITIAL, _rates_and_jacobian
+from .conditions import temperature_terms, volume_at
+from .kinetics import INITIAL, rates_and_jacobian
 
 FAILED, DONE = 0, 1
 
@@ -69,26 +70,15 @@ def lu_solve(lu, pivots, b):
 
 
 @numba.njit(cache=True)
-def evaluate(y, net, f, jac, rate, forward_rate, reverse_rate, dr_dc, c):
-    """f = dc/dt and jac = d f / d c at concentrations y (negative values read as zero)."""
+def evaluate(y, t, piece, net, cond, f, jac, rate, forward_rate, reverse_rate, dr_dc, c):
+    """f = dc/dt and jac = d f / d c at concentrations y (negative values read as zero in the rates) and time t,
+    within dosing interval ``piece`` of the run's conditions; returns the temperature terms (x, log_ratio) at t."""
     stoichiometry = net.stoichiometry
     n_reactions, n_species = net.forward.shape
     for i in range(n_species):
         c[i] = max(y[i], 0.0)
-    _rates_and_jacobian(
-        c,
-        net.k,
-        net.inv_eq,
-        net.forward,
-        net.reverse,
-        net.reversible,
-        net.ads,
-        net.inhibition,
-        rate,
-        forward_rate,
-        reverse_rate,
-        dr_dc,
-    )
+    x, log_ratio = temperature_terms(cond, t)
+    rates_and_jacobian(c, net, x, log_ratio, rate, forward_rate, reverse_rate, dr_dc)
     for i in range(n_species):
         total = 0.0
         for j in range(n_reactions):
@@ -99,6 +89,14 @@ def evaluate(y, net, f, jac, rate, forward_rate, reverse_rate, dr_dc, c):
             for j in range(n_reactions):
                 total += stoichiometry[j, i] * dr_dc[j, m]
             jac[i, m] = total
+    flow = cond.dose_flow[piece]
+    inflow = cond.dose_inflow[piece]
+    if flow != 0.0:
+        volume = volume_at(cond, piece, t)
+        for i in range(n_species):
+            f[i] += (inflow[i] - flow * y[i]) / volume
+            jac[i, i] -= flow / volume
+    return x, log_ratio
 
 
 @numba.njit(cache=True)
