@@ -259,7 +259,7 @@ def _run(args: argparse.Namespace) -> int:
     if args.command == "demo":
         from .outputs import reporting
         from .outputs.results import check_target, check_writable_parent
-        from .workflows.demo import ALTERNATIVE_STUDY_FILE, SCENARIOS_FILE, write_demo
+        from .workflows.demo import ALTERNATIVE_STUDY_FILE, FITTED_STUDY_FILES, SCENARIOS_FILE, write_demo
 
         out: Path = args.out
         if out.exists() and not out.is_dir():
@@ -287,6 +287,10 @@ def _run(args: argparse.Namespace) -> int:
         )
         if not args.quiet:
             print(reporting.prediction_report(predicted))
+        for name in FITTED_STUDY_FILES[1:]:
+            if not args.quiet:
+                print(f"\nfitting {name}")
+            fitted = max(fitted, _fit_and_report(out / name, args, results / load_study(out / name).name))
         return max(fitted, compared)
     raise AssertionError(args.command)  # argparse allows only the commands above
 

@@ -15,6 +15,7 @@ from ..errors import StudyError
 from ..physics.network import Equation, EquationError, Network, build_network, element_counts, imbalance, parse_equation
 from . import units
 from .files import excerpt, read_text, resolve, shown_path
+from .measured import resolve_quantities
 from .rate_laws import LAW_KEYS, REGISTRY, Z95, missing_keys, undeclared_keys, van_t_hoff_prior
 from .scenarios import check_scenario
 from .schema import ExponentPrior, OrderPrior, Reaction, StudyFile
@@ -244,9 +245,13 @@ def _parse_reference_temperature(value: float | str, unit: str, where: str) -> f
     return float(units.to_kelvin(number, parts[1] if len(parts) > 1 else unit, where)[0])
 
 
+#: The keys of ``data`` that name files (``measured_as`` does not), in the order ``Study.data_files`` lists them.
+DATA_ROLES = ("rate_constants", "runs", "measurements", "temperatures", "feeds", "steady_states")
+
+
 def _resolve_paths(file: StudyFile, base: Path, where: str) -> tuple[tuple[str, Path], ...]:
     resolved = []
-    for role in ("rate_constants", "runs", "measurements"):
+    for role in DATA_ROLES:
         name = getattr(file.data, role)
         if name is None:
             continue
@@ -449,7 +454,7 @@ def _check_units(file: StudyFile, where: str) -> None:
     given = file.units
     units.parse_unit(given.temperature, "temperature", f"{where}: units.temperature")
     units.parse_unit(given.energy, "energy", f"{where}: units.energy")
-    for kind in ("time", "concentration", "rate_constant"):
+    for kind in ("time", "concentration", "rate_constant", "volume"):
         text = getattr(given, kind)
         if text is not None:
             units.parse_unit(text, kind, f"{where}: units.{kind}")
@@ -459,7 +464,7 @@ def _check_units(file: StudyFile, where: str) -> None:
             "required key is missing",
             "rate-constant data need the unit of k, e.g. 1/s or L/(mol*s)",
         )
-    if file.data.runs is not None:
+    if file.data.runs is not None or file.data.steady_states is not None:
         for kind in ("time", "concentration"):
             if getattr(given, kind) is None:
                 raise StudyError(
@@ -538,8 +543,20 @@ def load_study(path: str | Path) -> Study:
         if file.report.k_at
         else ()
     )
+    if file.temperature_uncertainty is not None and file.data.temperatures is not None:
+        raise StudyError(
+            f"{where}: temperature_uncertainty",
+            "is for isothermal runs, not with a temperatures file (data.temperatures)",
+            "a latent temperature per run cannot stand for a temperature history; remove one of the two",
+        )
     if file.scenarios and file.data.rate_constants is not None:
         raise StudyError(f"{where}: scenarios", "reactor scenarios need a reaction network fitted to batch runs")
+    if file.observations and file.data.runs is None:
+        raise StudyError(
+            f"{where}: observations",
+            "measured quantities are declared for batch runs (data.runs with data.measurements)",
+            "rate constants and steady-state outlets are read as they are",
+        )
     temperature_sd = (
         file.temperature_uncertainty * units.kelvin_per_degree(file.units.temperature)
         if file.temperature_uncertainty is not None
@@ -566,6 +583,8 @@ def load_study(path: str | Path) -> Study:
         run_variability=_run_variability(file, where),
         temperature_sd_K=temperature_sd,
         transition_state=_transition_state(file, reactions, where),
+        measured_as=file.data.measured_as,
+        quantities=resolve_quantities(file.observations, file.species, where) if file.observations else (),
     )
     for index, scenario in enumerate(file.scenarios):
         check_scenario(scenario, study, f"{where}: scenarios[{index}]")

@@ -68,12 +68,24 @@ def rate_constant_warnings(study: Study, data: RateConstantData, label: Callable
 def network_warnings(study: Study, obs: Observations, label: Callable[[int], str]) -> list[str]:
     """Warnings about a network study; ``label(i)`` names measurement i (file, line, run and species)."""
     notes = _study_warnings(study, obs.temperature_K)
-    notes += temperature_warnings(
-        obs.temperature_K,
-        study.units.temperature,
-        str(obs.runs_path),
-        [f"{obs.runs_path}: run '{run}', column 'temperature'" for run in obs.run_ids],
-    )
+    histories = study.data_file("temperatures") if study.has_data("temperatures") else None
+    where = [
+        f"{histories}: run '{run}' (its time-weighted mean temperature)"
+        if histories is not None and obs.setups[r].nominal_kelvin is None
+        else f"{obs.runs_path}: run '{run}', column 'temperature'"
+        for r, run in enumerate(obs.run_ids)
+    ]
+    from_histories = histories is not None and all(s.nominal_kelvin is None for s in obs.setups)
+    file = str(histories if from_histories else obs.runs_path)
+    notes += temperature_warnings(obs.temperature_K, study.units.temperature, file, where)
+    if histories is not None and _celsius(study.units.temperature):
+        for run, setup in zip(obs.run_ids, obs.setups, strict=True):
+            if setup.nominal_kelvin is not None:
+                continue  # an isothermal run, its temperature in the runs file
+            readings = np.asarray(setup.history, dtype=float)
+            stated = np.asarray(units.kelvin_to(readings[:, 1], study.units.temperature), dtype=float)
+            shown = [f"{histories}: run '{run}', time {t:g}, column 'temperature'" for t in readings[:, 0]]
+            notes += _kelvin_typed(stated, study.units.temperature, shown)[0]
     notes += _concentration_scale(study, obs, label)
     parameters = _network_parameter_count(study, obs)
     if obs.value.size <= parameters:
@@ -111,19 +123,8 @@ def temperature_warnings(kelvin: np.ndarray, unit: str, file: str, where: list[s
             )
             flagged[:] = True
         else:
-            cool = stated[stated <= HIGH_DEGC]
-            if cool.size:
-                margin = max(0.5 * float(np.ptp(cool)), 10.0)
-                for value in np.unique(stated[stated > HIGH_DEGC]):
-                    as_celsius = value - 273.15
-                    if cool.min() - margin <= as_celsius <= cool.max() + margin:
-                        rows = stated == value
-                        i = int(np.flatnonzero(rows)[0])
-                        notes.append(
-                            f"{where[i]}: {value:g} {unit} among readings of {cool.min():g} to {cool.max():g} "
-                            f"{unit}; read as kelvin it would be {as_celsius:.4g} {unit}: was it typed in K?"
-                        )
-                        flagged |= rows
+            typed, flagged = _kelvin_typed(stated, unit, where)
+            notes += typed
     distinct = np.unique(kelvin)
     if distinct.size >= 4:
         inverse = 1.0 / distinct
@@ -142,6 +143,28 @@ def temperature_warnings(kelvin: np.ndarray, unit: str, file: str, where: list[s
                     "point decides Ea almost by itself"
                 )
     return notes
+
+
+def _kelvin_typed(stated: np.ndarray, unit: str, where: list[str]) -> tuple[list[str], np.ndarray]:
+    """Celsius readings above ``HIGH_DEGC`` that, read as kelvin, would lie among the cooler readings: typed in K.
+    The notes, and which readings they name."""
+    notes: list[str] = []
+    flagged = np.zeros(stated.size, dtype=bool)
+    cool = stated[stated <= HIGH_DEGC]
+    if not cool.size:
+        return notes, flagged
+    margin = max(0.5 * float(np.ptp(cool)), 10.0)
+    for value in np.unique(stated[stated > HIGH_DEGC]):
+        as_celsius = value - 273.15
+        if cool.min() - margin <= as_celsius <= cool.max() + margin:
+            rows = stated == value
+            i = int(np.flatnonzero(rows)[0])
+            notes.append(
+                f"{where[i]}: {value:g} {unit} among readings of {cool.min():g} to {cool.max():g} "
+                f"{unit}; read as kelvin it would be {as_celsius:.4g} {unit}: was it typed in K?"
+            )
+            flagged |= rows
+    return notes, flagged
 
 
 def energy_warnings(study: Study) -> list[str]:
@@ -250,20 +273,35 @@ def _relative_errors(data: RateConstantData, label: Callable[[int], str]) -> lis
 
 
 def _concentration_scale(study: Study, obs: Observations, label: Callable[[int], str]) -> list[str]:
-    """Measured values far above what the runs' initial concentrations allow, or far below all of them."""
+    """Measured values far above what the runs' initial (or fed) concentrations allow, or far below all of them.
+    Measured amounts are compared as concentrations (divided by the run's volume at the time)."""
     unit = study.units.concentration
-    magnitude = np.abs(obs.value)
-    total = obs.initial.sum(axis=1)[obs.run_index]
-    ratio = magnitude / total
+    volume = obs.factor
+    if obs.design is not None:  # only plain concentrations (or amounts) are on the concentration scale
+        plain = np.array([q.kind == "concentration" for q in obs.quantities])[obs.quantity_index]
+        volume = obs.design.multiplier if study.measured_as == "amount" else None
+    else:
+        plain = np.ones(obs.value.size, dtype=bool)
+    if not plain.any():
+        return []
+    magnitude = np.abs(obs.value) if volume is None else np.abs(obs.value) / volume
+    total = obs.initial.sum(axis=1)
+    for r, setup in enumerate(obs.setups):  # a dosed run may start with little and be fed more
+        for feed in setup.feeds:
+            total[r] = max(total[r], float(np.sum(feed.concentration)))
+    ratio = np.where(plain, magnitude / total[obs.run_index], 0.0)
     worst = int(np.argmax(ratio))
     if ratio[worst] > SCALE_RATIO:
+        measured = f"{obs.value[worst]:g} {unit}"
+        if volume is not None:
+            measured = f"amount {obs.value[worst]:g} ({magnitude[worst]:g} {unit} at the run's volume then)"
         return [
-            f"{label(worst)}: measured {obs.value[worst]:g} {unit} is {ratio[worst]:.3g} times the run's total "
-            f"initial concentration in {obs.runs_path.name}: are the measurements in another unit (e.g. mmol/L "
-            "against mol/L)? Both files are read in units.concentration"
+            f"{label(worst)}: measured {measured} is {ratio[worst]:.3g} times the run's total initial or fed "
+            f"concentration in {obs.runs_path.name}: are the measurements in another unit (e.g. mmol/L against "
+            "mol/L, or mL against L)? Both files are read in the study's units"
         ]
     initial = obs.initial[obs.run_index, obs.species_index]
-    present = initial > 0
+    present = (initial > 0) & plain
     if present.any() and np.all(magnitude[present] < initial[present] / SCALE_RATIO):
         first = int(np.flatnonzero(present)[0])
         return [

@@ -45,32 +45,55 @@ class HalfNormalPrior(Strict):
 
 
 class Units(Strict):
-    """Units of every number in the study file and its data files (pint spellings)."""
+    """Units of every number in the study file and its data files (pint spellings). ``volume`` is the unit of
+    liquid volumes and of feed rates (volume per time unit)."""
 
     temperature: str
     energy: str = "kJ/mol"
     time: str | None = None
     concentration: str | None = None
     rate_constant: str | None = None
+    volume: str = "L"
 
 
 class DataFiles(Strict):
-    """Data file paths, relative to the study file. Either ``rate_constants`` (the Arrhenius fit of measured
-    rate constants) or ``runs`` with ``measurements`` (concentration-time data from batch runs)."""
+    """Data file paths, relative to the study file, in one of three layouts: ``rate_constants`` (the Arrhenius fit
+    of measured rate constants); ``runs`` with ``measurements`` (concentration-time data from batch runs),
+    optionally with ``temperatures`` (temperature histories of runs) and ``feeds`` (dosing into runs); or
+    ``steady_states`` (outlet concentrations of CSTRs and PFRs). ``measured_as``: whether the measured values of
+    batch runs are concentrations or amounts (concentration x volume)."""
 
     rate_constants: str | None = None
     runs: str | None = None
     measurements: str | None = None
+    temperatures: str | None = None
+    feeds: str | None = None
+    steady_states: str | None = None
+    measured_as: Literal["concentration", "amount"] = "concentration"
 
     @model_validator(mode="after")
     def _one_mode(self) -> DataFiles:
-        network = self.runs is not None or self.measurements is not None
-        if self.rate_constants is not None and network:
-            raise ValueError("give either 'rate_constants' or 'runs' with 'measurements', not both")
-        if self.rate_constants is None and not network:
-            raise ValueError("give 'rate_constants', or 'runs' with 'measurements'")
-        if network and (self.runs is None or self.measurements is None):
+        batch = self.runs is not None or self.measurements is not None
+        layouts = [
+            name
+            for name, given in (
+                ("'rate_constants'", self.rate_constants is not None),
+                ("'runs' with 'measurements'", batch),
+                ("'steady_states'", self.steady_states is not None),
+            )
+            if given
+        ]
+        if len(layouts) > 1:
+            raise ValueError(f"give either {' or '.join(layouts)}, {'not both' if len(layouts) == 2 else 'one only'}")
+        if not layouts:
+            raise ValueError("give 'rate_constants', or 'runs' with 'measurements', or 'steady_states'")
+        if batch and (self.runs is None or self.measurements is None):
             raise ValueError("'runs' and 'measurements' go together")
+        for extra in ("temperatures", "feeds"):
+            if getattr(self, extra) is not None and not batch:
+                raise ValueError(f"'{extra}' describes batch runs: it goes with 'runs' and 'measurements'")
+        if self.measured_as == "amount" and not batch:
+            raise ValueError("'measured_as: amount' is for batch runs ('runs' with 'measurements')")
         return self
 
 
@@ -209,22 +232,38 @@ class TemperatureFor(Strict):
         return self
 
 
+class ScenarioFeed(Strict):
+    """One dosing interval of a ``dosed_batch``: a constant volumetric ``rate`` (the study's volume unit per time
+    unit) from ``start`` to ``stop`` (times) of a feed whose ``concentration`` names each species in it."""
+
+    start: float
+    stop: float
+    rate: float
+    concentration: dict[str, Annotated[float, Field(ge=0.0)]]
+
+
 class Scenario(Strict):
     """One reactor scenario. Times, temperatures and concentrations are in the study's units.
 
     ``batch``: isothermal, constant volume, from ``initial`` until ``until``. ``pfr``: isothermal plug flow at
     constant density, ``initial`` is the feed, ``until`` the longest space time. ``cstr``: isothermal steady
     state at each of ``residence_times``. ``programmed_batch``: a batch whose temperature follows ``programme``,
-    a list of (time, temperature) points joined by straight lines.
+    a list of (time, temperature) points joined by straight lines. ``dosed_batch``: a semi-batch vessel holding
+    ``volume`` (the study's volume unit) of ``initial`` at t = 0, fed by ``feeds``, at ``temperature`` or under a
+    ``programme``, until ``until``; ``dosed`` names the species whose accumulation is reported (default: every
+    species the feeds carry).
     """
 
     name: Name
-    reactor: Literal["batch", "pfr", "cstr", "programmed_batch"]
+    reactor: Literal["batch", "pfr", "cstr", "programmed_batch", "dosed_batch"]
     initial: dict[str, Annotated[float, Field(ge=0.0)]]
     temperature: float | None = None
     programme: tuple[tuple[float, float], ...] | None = None
     until: PositiveFloat | None = None
     residence_times: tuple[PositiveFloat, ...] | None = None
+    volume: float | None = None
+    feeds: tuple[ScenarioFeed, ...] | None = None
+    dosed: tuple[str, ...] | None = None
     points: Annotated[int, Field(ge=10, le=2000)] = 121
     key_reactant: str | None = None
     products: tuple[str, ...] = ()
@@ -235,13 +274,22 @@ class Scenario(Strict):
 
     @model_validator(mode="after")
     def _reactor_needs(self) -> Scenario:
-        if self.reactor == "programmed_batch":
-            if self.programme is None or len(self.programme) < 2:
-                raise ValueError("a programmed_batch needs 'programme': two or more [time, temperature] points")
+        if self.reactor == "programmed_batch" and self.programme is None:
+            raise ValueError("a programmed_batch needs 'programme': two or more [time, temperature] points")
+        if self.programme is not None and self.reactor in ("programmed_batch", "dosed_batch"):
             times = [p[0] for p in self.programme]
+            if len(times) < 2:
+                raise ValueError(f"a {self.reactor} needs 'programme': two or more [time, temperature] points")
             if times[0] != 0 or any(b <= a for a, b in itertools.pairwise(times)):
                 raise ValueError("'programme' times start at 0 and rise")
-        elif self.temperature is None:
+        if self.reactor == "dosed_batch":
+            if (self.temperature is None) == (self.programme is None):
+                raise ValueError("a dosed_batch needs either 'temperature' or 'programme' (not both)")
+            if self.volume is None or not self.feeds:
+                raise ValueError("a dosed_batch needs 'volume' (the initial liquid volume) and one or more 'feeds'")
+        elif self.volume is not None or self.feeds is not None or self.dosed is not None:
+            raise ValueError("'volume', 'feeds' and 'dosed' are for a dosed_batch")
+        elif self.reactor != "programmed_batch" and self.temperature is None:
             raise ValueError(f"a {self.reactor} needs 'temperature'")
         if self.reactor == "cstr":
             if not self.residence_times:
@@ -276,6 +324,67 @@ class TransitionState(Strict):
     standard_concentration: PositiveFloat | None = None
 
 
+#: A weight or factor: a known positive number, or a lognormal prior to fit it.
+Factor = PositiveFloat | LogNormalPrior
+
+
+class MeasuredQuantity(Strict):
+    """What one measured quantity (a column of the wide measurements layout, or a ``species`` cell of the long
+    one) is, in terms of the concentrations c_s (study unit) at that time:
+
+    - ``concentration``: c of ``species`` (the default for any species name without a declaration);
+    - ``signal``: ``response`` x c of ``species`` + ``offset`` (a peak area, with its response factor known or
+      given a lognormal prior; ``response_per_run``: one factor per run instead of one shared);
+    - ``composition``: ``scale`` x c of ``species`` / sum of c over ``among`` (area %, ``scale: 100``);
+    - ``combination``: ``path_length`` x sum over ``weights`` of a_s c_s (an absorbance: a_s molar absorptivities,
+      known or with lognormal priors; a class total or a sum of isomers with weights 1);
+    - ``conversion``: 1 - n_s(t)/n_s(0) of ``species`` (amounts, so dosing and volume changes count);
+    - ``yield``: n_s(t)/n_k(0), ``species`` formed from key reactant ``of`` (amounts).
+    """
+
+    quantity: Name
+    kind: Literal["concentration", "signal", "composition", "combination", "conversion", "yield"]
+    species: Name | None = None
+    response: Factor | None = None
+    response_per_run: bool = False
+    offset: float = 0.0
+    among: tuple[Name, ...] | None = None
+    scale: PositiveFloat = 1.0
+    weights: dict[str, Factor] | None = None
+    path_length: PositiveFloat = 1.0
+    of: Name | None = None
+
+    @model_validator(mode="after")
+    def _kind_needs(self) -> MeasuredQuantity:
+        needs = {
+            "concentration": {"species"},
+            "signal": {"species", "response"},
+            "composition": {"species", "among"},
+            "combination": {"weights"},
+            "conversion": {"species"},
+            "yield": {"species", "of"},
+        }[self.kind]
+        for key in sorted(needs):
+            if getattr(self, key) is None:
+                raise ValueError(f"a {self.kind} needs '{key}'")
+        takes = (
+            needs
+            | {"quantity", "kind"}
+            | {
+                "signal": {"response_per_run", "offset"},
+                "composition": {"scale"},
+                "combination": {"path_length"},
+            }.get(self.kind, set())
+        )
+        for key in sorted(self.model_fields_set - takes):
+            raise ValueError(f"'{key}' does not apply to a {self.kind}")
+        if self.kind == "composition" and (len(self.among) < 2 or self.species not in self.among):
+            raise ValueError("'among' lists two or more species, 'species' among them (a share of one is always 1)")
+        if self.kind == "combination" and not self.weights:
+            raise ValueError("'weights' names at least one species")
+        return self
+
+
 class StudyFile(Strict):
     """A whole study file as written by the user."""
 
@@ -295,6 +404,7 @@ class StudyFile(Strict):
     run_variability: RunVariability | None = None
     temperature_uncertainty: Annotated[float, Field(gt=0.0, le=50.0)] | None = None
     transition_state: TransitionState | None = None
+    observations: tuple[MeasuredQuantity, ...] = ()
 
     @model_validator(mode="after")
     def _unique_names(self) -> StudyFile:

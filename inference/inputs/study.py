@@ -12,6 +12,7 @@ from typing import Literal
 
 from ..physics.network import Network
 from ..physics.parameters import SensitivityLayout
+from .measured import QuantitySpec
 from .rate_laws.law import Site as AdsorptionSite
 from .schema import Noise, Sampling, Scenario, Units
 
@@ -123,6 +124,10 @@ class Study:
     run_variability: RunVariabilitySpec | None = None
     temperature_sd_K: float | None = None
     transition_state: TransitionStateSpec | None = None
+    #: Declared measured quantities (signals, compositions, ...); a species name alone means its concentration.
+    quantities: tuple[QuantitySpec, ...] = ()
+    #: Whether measured values of batch runs are concentrations or amounts (``data.measured_as``).
+    measured_as: Literal["concentration", "amount"] = "concentration"
 
     def sensitivity_layout(self) -> SensitivityLayout:
         """Which kinetic parameters are free: the fitted orders, the uncertain initial concentrations, and the
@@ -134,7 +139,7 @@ class Study:
         )
         free_initial = tuple(species.index(name) for name, _ in self.initial_uncertainty)
         fitted_exponents = tuple(j for j, r in enumerate(self.reactions) if r.exponent_sd is not None)
-        varies = "temperatures" in dict(self.data_files)
+        varies = self.has_data("temperatures")
         return SensitivityLayout(self.network, free_orders, free_initial, varies, fitted_exponents)
 
     @property
@@ -142,5 +147,10 @@ class Study:
         return tuple(r.name for r in self.reactions)
 
     def data_file(self, role: str) -> Path:
-        """Absolute path of the data file with this role (``rate_constants``, ``runs``, ``measurements``)."""
+        """Absolute path of the data file with this role (``rate_constants``, ``runs``, ``measurements``,
+        ``temperatures``, ``feeds``, ``steady_states``)."""
         return dict(self.data_files)[role]
+
+    def has_data(self, role: str) -> bool:
+        """Whether the study gives a data file with this role."""
+        return role in dict(self.data_files)

@@ -22,6 +22,7 @@ _DIMENSIONS = {
     "time": "[time]",
     "concentration": "[substance] / [length] ** 3",
     "energy": "[mass] * [length] ** 2 / [time] ** 2 / [substance]",
+    "volume": "[length] ** 3",
 }
 
 EXAMPLES = {
@@ -30,6 +31,7 @@ EXAMPLES = {
     "concentration": "mol/L, mmol/L or mol/m^3",
     "energy": "kJ/mol, kcal/mol or J/mol",
     "rate_constant": "1/s, 1/min or L/(mol*s)",
+    "volume": "L, mL or m^3",
 }
 
 
@@ -41,7 +43,7 @@ def registry() -> pint.UnitRegistry:
 
 
 def parse_unit(text: str, kind: str, where: str) -> pint.Unit:
-    """Parse ``text`` as a unit of ``kind`` (temperature, time, concentration, energy or rate_constant).
+    """Parse ``text`` as a unit of ``kind`` (temperature, time, concentration, energy, volume or rate_constant).
 
     Raises ``StudyError`` naming ``where`` if the text is not a unit or has the wrong dimension.
     """

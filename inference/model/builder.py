@@ -23,6 +23,7 @@ of about unit scale. Variables in the posterior, with their units:
 
 from __future__ import annotations
 
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -30,6 +31,7 @@ import pymc as pm
 import pytensor.tensor as pt
 
 from ..inputs.data import Observations, RateConstantData
+from ..inputs.measured import MeasurementDesign, measured_values
 from ..inputs.schema import Noise
 from ..inputs.study import Study
 from ..physics import closed_form
@@ -77,23 +79,30 @@ def _true_temperatures(study: Study, nominal_K: np.ndarray, dims: str):
     return pm.Deterministic("temperature", nominal_K + study.temperature_sd_K * z, dims=dims)
 
 
-def _likelihood(noise: Noise, predicted, sigma, observed: np.ndarray) -> None:
+def _likelihood(noise: Noise, predicted, sigma, observed: np.ndarray, lower=None, upper=None) -> None:
     """The observation node. ``predicted`` is on the data scale; proportional and robust noise act on its log,
-    and their densities are of the values themselves, so log-likelihoods compare across noise models."""
+    and their densities are of the values themselves, so log-likelihoods compare across noise models. With
+    ``lower``/``upper`` (per value; -inf/inf where exact) a censored value contributes the probability of lying
+    beyond its limit (the noise model's log CDF), still one pointwise term per value."""
     if noise.model == "absolute":
-        pm.Normal("observation", mu=predicted, sigma=sigma, observed=observed, dims="measurement")
-        return
-    log_predicted = pt.log(pt.maximum(predicted, TINY))
-    if noise.model == "proportional":
-        pm.LogNormal("observation", mu=log_predicted, sigma=sigma, observed=observed, dims="measurement")
-        return
+        dist = pm.Normal.dist(mu=predicted, sigma=sigma)
+    else:
+        log_predicted = pt.log(pt.maximum(predicted, TINY))
+        if noise.model == "proportional":
+            dist = pm.LogNormal.dist(mu=log_predicted, sigma=sigma)
+        else:
 
-    def log_student_t(nu, mu, scale, size):
-        return pt.exp(pm.StudentT.dist(nu=nu, mu=mu, sigma=scale, size=size))
+            def log_student_t(nu, mu, scale, size):
+                return pt.exp(pm.StudentT.dist(nu=nu, mu=mu, sigma=scale, size=size))
 
-    pm.CustomDist(
-        "observation", noise.nu, log_predicted, sigma, dist=log_student_t, observed=observed, dims="measurement"
-    )
+            dist = pm.CustomDist.dist(noise.nu, log_predicted, sigma, dist=log_student_t)
+    if lower is None and upper is None:
+        model = pm.modelcontext(None)
+        model.register_rv(dist, "observation", observed=observed, dims="measurement")
+        return
+    low = np.full(observed.size, -np.inf) if lower is None else lower
+    high = np.full(observed.size, np.inf) if upper is None else upper
+    pm.Censored("observation", dist, lower=low, upper=high, observed=observed, dims="measurement")
 
 
 def build_rate_constant_model(study: Study, data: RateConstantData, temperature_ref: float) -> pm.Model:
@@ -192,8 +201,16 @@ def network_coords(study: Study, obs: Observations) -> dict:
         "reaction": list(study.reaction_names),
         "run": list(obs.run_ids),
         "measurement": np.arange(obs.value.size),
-        "observed_species": [study.species[i] for i in obs.observed_species],
     }
+    if obs.quantity_index is None:
+        coords["observed_species"] = [study.species[i] for i in obs.observed_species]
+    else:
+        coords["observed_quantity"] = [obs.quantities[q].name for q in np.unique(obs.quantity_index)]
+    if obs.design is not None:
+        if obs.design.fitted_scales:
+            coords["response_factor"] = [f.label for f in obs.design.fitted_scales]
+        if obs.design.fitted_weights:
+            coords["weight_factor"] = [f.label for f in obs.design.fitted_weights]
     layout = study.sensitivity_layout()
     for block in BLOCKS:  # a coordinate for every parameter block the study has
         labels = block.labels(layout)
@@ -252,15 +269,17 @@ def build_network_model(
             else pt.zeros((len(obs.run_ids), 0))
         )
         slopes = _temperature_slopes(study, ea, dh, dh_ads, exponents)
+        # Concentrations are predicted at ``points``: the measurements, or the basis points of declared quantities.
+        points = obs if obs.design is None else basis_points(obs)
         kind = closed_form.closed_form_kind(network)
         if kind is not None and not study.initial_uncertainty and obs.isothermal_batch:
-            k = pt.exp(ln_k[obs.run_index, 0])
-            profiles = closed_form.concentrations(kind, network, obs.initial[obs.run_index], k, obs.time, xp=pt)
-            predicted = profiles[pt.arange(obs.value.size), obs.species_index]
+            k = pt.exp(ln_k[points.run_index, 0])
+            profiles = closed_form.concentrations(kind, network, obs.initial[points.run_index], k, points.time, xp=pt)
+            predicted = profiles[pt.arange(points.value.size), points.species_index]
         else:
             fixed_exponents = np.array([r.temperature_exponent for r in study.reactions])
             op = NetworkPrediction(
-                network_solver(study, obs), obs, network.forward_orders, failure_log, fixed_exponents
+                network_solver(study, obs), points, network.forward_orders, failure_log, fixed_exponents
             )
             raw, _ = op(
                 *KineticInputs(ln_k=ln_k, ln_eq=ln_eq, ln_ads=ln_ads, orders=orders, initial=initial_free, **slopes)
@@ -269,13 +288,58 @@ def build_network_model(
             # A failed integration rejects the draw: the log-density is -inf there.
             pm.Potential("solver_guard", pt.switch(failed, -np.inf, 0.0))
             predicted = pt.switch(pt.isnan(raw), 1.0, raw)
+        if obs.design is not None:
+            predicted = _measured_scale(obs.design, predicted)
 
         noise = study.noise
         if noise.per_species:
-            sigma_all = pm.HalfNormal("sigma", sigma=noise.sigma.scale, dims="observed_species")
-            position = np.searchsorted(obs.observed_species, obs.species_index)
-            sigma = sigma_all[position]
+            sigma_all = pm.HalfNormal("sigma", sigma=noise.sigma.scale, dims=_noise_dimension(obs))
+            measured = obs.species_index if obs.quantity_index is None else obs.quantity_index
+            sigma = sigma_all[np.searchsorted(np.unique(measured), measured)]
         else:
             sigma = pm.HalfNormal("sigma", sigma=noise.sigma.scale)
-        _likelihood(noise, predicted, sigma, obs.value)
+        _likelihood(noise, predicted, sigma, obs.value, obs.lower, obs.upper)
     return model
+
+
+def _noise_dimension(obs: Observations) -> str:
+    """One noise scale per observed species, or per declared measured quantity when the study declares them."""
+    return "observed_species" if obs.quantity_index is None else "observed_quantity"
+
+
+def basis_points(obs: Observations) -> Observations:
+    """The runs of ``obs`` with the design's basis points (run, time, species) in place of the measurements."""
+    design = obs.design
+    return replace(
+        obs,
+        run_index=design.basis_run,
+        time_index=design.basis_time,
+        species_index=design.basis_species,
+        value=np.zeros(design.basis_run.size),
+        line=np.zeros(design.basis_run.size, dtype=int),
+        factor=None,
+        design=None,
+        quantity_index=None,
+        lower=None,
+        upper=None,
+    )
+
+
+def _fitted_factors(name: str, dims: str, factors: tuple) -> list:
+    """Fitted positive factors, lognormal, sampled standardised: exp(ln mean + ln sd z)."""
+    if not factors:
+        return []
+    ln_mean = np.array([f.ln_mean for f in factors])
+    ln_sd = np.array([f.ln_sd for f in factors])
+    z = pm.Normal(f"z_{name}", 0.0, 1.0, dims=dims)
+    return [pm.Deterministic(name, pt.exp(ln_mean + ln_sd * z), dims=dims)]
+
+
+def _measured_scale(design: MeasurementDesign, concentrations):
+    """Predicted values on the scale each quantity was measured (``inputs.measured``), with fitted response
+    factors (``response[response_factor]``) and weights (``weight[weight_factor]``)."""
+    scales = pt.concatenate(
+        [design.fixed_scales, *_fitted_factors("response", "response_factor", design.fitted_scales)]
+    )
+    weights = pt.concatenate([design.fixed_weights, *_fitted_factors("weight", "weight_factor", design.fitted_weights)])
+    return measured_values(design, concentrations, weights, scales)

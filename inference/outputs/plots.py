@@ -75,17 +75,26 @@ def run_fit_plot(
     study: Study, obs: Observations, run: int, times: np.ndarray, curves: np.ndarray, checks, path: Path
 ) -> None:
     """One run: observed points with their 90 % predictive intervals, and every species' posterior median
-    profile with its 90 % credible band (``curves`` is draws x times x species); unobserved species dashed."""
-    fig, ax = plt.subplots(figsize=(6.4, 4.2))
+    profile with its 90 % credible band (``curves`` is draws x times x species); unobserved species dashed.
+    A run with a temperature history or feeds gets a panel underneath with its temperature trace (and the dosing
+    intervals shaded)."""
+    setup = obs.setups[run] if obs.setups else None
+    underneath = setup is not None and (setup.ramped or bool(setup.feeds))
+    if underneath:
+        fig, (ax, trace) = plt.subplots(2, 1, figsize=(6.4, 5.4), sharex=True, gridspec_kw={"height_ratios": [3, 1]})
+        _temperature_trace(trace, study, setup, times)
+    else:
+        fig, ax = plt.subplots(figsize=(6.4, 4.2))
     colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
-    observed = set(obs.species_index[obs.run_index == run].tolist())
+    plain = _concentration_rows(study, obs)
+    observed = set(obs.species_index[(obs.run_index == run) & plain].tolist())
     q05, median, q95 = np.nanquantile(curves, [0.05, 0.5, 0.95], axis=0)
     for i, species in enumerate(study.species):
         colour = colours[i % len(colours)]
         style = "-" if i in observed else "--"
         ax.fill_between(times, q05[:, i], q95[:, i], color=colour, alpha=0.2, linewidth=0)
         ax.plot(times, median[:, i], style, color=colour, label=species + ("" if i in observed else " (not measured)"))
-        rows = (obs.run_index == run) & (obs.species_index == i)
+        rows = (obs.run_index == run) & (obs.species_index == i) & plain
         if rows.any():
             table = checks[rows]
             ax.errorbar(
@@ -104,8 +113,14 @@ def run_fit_plot(
             )
     kelvin = obs.temperature_K[run]
     unit = study.units.temperature
-    ax.set_title(f"run {obs.run_ids[run]} at {float(units.kelvin_to(kelvin, unit)):g} {unit}")
-    ax.set_xlabel(f"time ({study.units.time})")
+    shown = f"{float(units.kelvin_to(kelvin, unit)):.4g} {unit}"
+    kind = "dosed, " if setup is not None and setup.feeds else ""
+    if setup is not None and setup.ramped:
+        ax.set_title(f"run {obs.run_ids[run]} ({kind}temperature history, time-weighted mean {shown})")
+    else:
+        ax.set_title(f"run {obs.run_ids[run]} ({kind}at {shown})")
+    if not underneath:
+        ax.set_xlabel(f"time ({study.units.time})")
     ax.set_ylabel(f"concentration ({study.units.concentration})")
     ax.legend(fontsize=7, frameon=False)
     ax.text(
@@ -118,6 +133,133 @@ def run_fit_plot(
         fontsize=6,
         color="0.4",
     )
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    plt.close(fig)
+
+
+def _concentration_rows(study: Study, obs: Observations) -> np.ndarray:
+    """Measurements that are plain concentrations (drawn over the profiles; the others have figures of their
+    own)."""
+    if obs.quantity_index is None:
+        return np.ones(obs.value.size, dtype=bool)
+    kinds = np.array([q.kind for q in obs.quantities])
+    return kinds[obs.quantity_index] == "concentration"
+
+
+def measured_quantities_plot(study: Study, obs: Observations, checks, path: Path) -> None:
+    """Declared measured quantities (signals, compositions, combinations, conversions, yields) on the scale they
+    were measured: per quantity, each run's values over time with the posterior predictive median and 90 %
+    interval; censored values drawn at their limit as open triangles (pointing to the side they lie on)."""
+    names = [
+        n
+        for n in dict.fromkeys(checks["quantity"])
+        if any(q.name == n and q.kind != "concentration" for q in obs.quantities)
+    ]
+    if not names:
+        return
+    fig, axes = plt.subplots(len(names), 1, figsize=(6.4, 3.0 * len(names)), squeeze=False)
+    colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    censored = checks["censored"] if "censored" in checks.columns else None
+    for ax, name in zip(axes[:, 0], names, strict=True):
+        for r, run in enumerate(obs.run_ids):
+            rows = checks[(checks["quantity"] == name) & (checks["run"] == run)].sort_values("time")
+            if rows.empty:
+                continue
+            colour = colours[r % len(colours)]
+            ax.fill_between(rows["time"], rows["q05"], rows["q95"], color=colour, alpha=0.15, linewidth=0)
+            ax.plot(rows["time"], rows["median"], "-", color=colour, linewidth=0.8)
+            exact = rows if censored is None else rows[rows["censored"] == ""]
+            ax.plot(exact["time"], exact["observed"], "o", color=colour, markersize=4, label=f"run {run}")
+            if censored is not None:
+                for side, marker in (("below", "v"), ("above", "^")):
+                    limit = rows[rows["censored"] == side]
+                    ax.plot(
+                        limit["time"], limit["observed"], marker, markerfacecolor="none", color=colour, markersize=6
+                    )
+        ax.set_title(f"{name} (as measured)")
+        ax.set_xlabel(f"time ({study.units.time})")
+        ax.set_ylabel(name)
+        ax.legend(fontsize=6, frameon=False, ncol=2)
+    axes[-1, 0].text(
+        0.99,
+        0.01,
+        "lines: predictive median; bands: 90 % predictive; open triangles: censored at the limit",
+        transform=axes[-1, 0].transAxes,
+        ha="right",
+        va="bottom",
+        fontsize=6,
+        color="0.4",
+    )
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    plt.close(fig)
+
+
+def _temperature_trace(ax, study: Study, setup, times: np.ndarray) -> None:
+    """The run's temperature over ``times`` in the study's unit, with its dosing intervals shaded."""
+    unit = study.units.temperature
+    history = np.asarray(setup.history, dtype=float)
+    kelvin = np.interp(times, history[:, 0], history[:, 1])
+    ax.plot(times, units.kelvin_to(kelvin, unit), color="0.2", linewidth=1.2)
+    for feed in setup.feeds:
+        ax.axvspan(feed.start, min(feed.stop, float(times[-1])), color="tab:orange", alpha=0.15, linewidth=0)
+    if setup.feeds:
+        ax.text(0.01, 0.95, "shaded: dosing", transform=ax.transAxes, va="top", fontsize=6, color="0.4")
+    ax.set_ylabel(f"T ({unit})")
+    ax.set_xlabel(f"time ({study.units.time})")
+
+
+def steady_state_plot(study: Study, obs: Observations, checks, path: Path) -> None:
+    """Steady states of continuous reactors: each measured outlet concentration against its residence time, one
+    panel per reactor kind, colour by species and marker by temperature, with the 90 % predictive interval."""
+    kinds = [k for k in ("cstr", "pfr") if (checks["reactor"] == k).any()]
+    fig, axes = plt.subplots(1, len(kinds), figsize=(6.0 * len(kinds), 4.2), squeeze=False)
+    colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
+    markers = "osD^v<>ph*"
+    temperatures = sorted(checks["temperature"].unique())
+    unit = study.units.temperature
+    for ax, kind in zip(axes[0], kinds, strict=True):
+        table = checks[checks["reactor"] == kind]
+        for i, species in enumerate(study.species):
+            for t_index, temperature in enumerate(temperatures):
+                rows = table[(table["species"] == species) & (table["temperature"] == temperature)]
+                if rows.empty:
+                    continue
+                colour = colours[i % len(colours)]
+                order = np.argsort(rows["time"].to_numpy())
+                x = rows["time"].to_numpy()[order]
+                ax.fill_between(
+                    x,
+                    rows["q05"].to_numpy()[order],
+                    rows["q95"].to_numpy()[order],
+                    color=colour,
+                    alpha=0.12,
+                    linewidth=0,
+                )
+                ax.plot(x, rows["median"].to_numpy()[order], "-", color=colour, linewidth=0.8)
+                ax.plot(
+                    x,
+                    rows["observed"].to_numpy()[order],
+                    markers[t_index % len(markers)],
+                    color=colour,
+                    markersize=4,
+                    label=f"{species}, {temperature:.4g} {unit}",
+                )
+        ax.set_title(f"{kind.upper()} steady states")
+        ax.set_xlabel(f"{'residence' if kind == 'cstr' else 'space'} time ({study.units.time})")
+        ax.set_ylabel(f"outlet concentration ({study.units.concentration})")
+        ax.legend(fontsize=6, frameon=False, ncol=2)
+        ax.text(
+            0.99,
+            0.01,
+            "lines: posterior median at each measured state; bands: 90 % predictive",
+            transform=ax.transAxes,
+            ha="right",
+            va="bottom",
+            fontsize=6,
+            color="0.4",
+        )
     fig.tight_layout()
     fig.savefig(path, dpi=110)
     plt.close(fig)
@@ -301,7 +443,19 @@ def caption(name: str) -> str:
     if name.startswith("run_"):
         return (
             f"Run {name[4:-4]}: measurements with 90 % predictive intervals and posterior median profiles with "
-            "90 % credible bands"
+            "90 % credible bands (a run with a temperature history or feeds: its temperature trace underneath, "
+            "dosing shaded)"
+        )
+    if name == "measured_quantities.png":
+        return (
+            "Declared measured quantities on the scale they were measured (signals, area %, absorbances, "
+            "conversions, yields), with the posterior predictive median and 90 % interval; open triangles: values "
+            "known only to lie beyond a detection or saturation limit"
+        )
+    if name == "steady_states.png":
+        return (
+            "Steady states of continuous reactors: measured outlet concentrations against residence (CSTR) or "
+            "space (PFR) time, with the posterior median and 90 % predictive interval at each measured state"
         )
     if name == "comparison.png":
         return "Expected log predictive density of each candidate, with its standard error"

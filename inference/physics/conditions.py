@@ -166,20 +166,36 @@ class RunSetup:
             return self.nominal_kelvin
         return time_weighted_kelvin(self.history, self.horizon)
 
-    def dosing(self, n_species: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-        """(interval starts, volumetric inflow, molar inflow (B, N), volume at each start) of this run."""
+    def _intervals(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(interval starts, volumetric inflow on each, volume at each start) of this run's dosing."""
         edges = sorted({0.0, *(f.start for f in self.feeds), *(f.stop for f in self.feeds if math.isfinite(f.stop))})
         starts = np.array(edges, dtype=float)
         flow = np.zeros(starts.size)
-        inflow = np.zeros((starts.size, n_species))
         for feed in self.feeds:
-            active = (starts >= feed.start) & (starts < feed.stop)
-            flow[active] += feed.rate
-            inflow[active] += feed.rate * np.asarray(feed.concentration, dtype=float)
+            flow[(starts >= feed.start) & (starts < feed.stop)] += feed.rate
         volume = np.full(starts.size, float(self.volume))
         if not self.overflow:
             volume[1:] += np.cumsum(flow[:-1] * np.diff(starts))
+        return starts, flow, volume
+
+    def dosing(self, n_species: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """(interval starts, volumetric inflow, molar inflow (B, N), volume at each start) of this run."""
+        starts, flow, volume = self._intervals()
+        inflow = np.zeros((starts.size, n_species))
+        for feed in self.feeds:
+            active = (starts >= feed.start) & (starts < feed.stop)
+            inflow[active] += feed.rate * np.asarray(feed.concentration, dtype=float)
         return starts, flow, inflow, volume
+
+    def volume_at(self, times: np.ndarray) -> np.ndarray:
+        """V(t) at ``times``: the volume at the start of the interval each time lies in plus the inflow since
+        (constant under overflow); the numpy twin of the compiled ``volume_at``."""
+        starts, flow, volume = self._intervals()
+        times = np.asarray(times, dtype=float)
+        piece = np.maximum(np.searchsorted(starts, times, side="right") - 1, 0)
+        if self.overflow:
+            return volume[piece]
+        return volume[piece] + flow[piece] * (times - starts[piece])
 
 
 def time_weighted_kelvin(history: np.ndarray, horizon: float) -> float:

@@ -7,25 +7,30 @@ Pure numerics, no PyMC. Concentrations and times are in the study's units, tempe
 - CSTR at steady state: 0 = (c_feed - c)/tau + S^T r(c), solved per draw by Newton's method (scipy's
   ``root``) from several starting guesses; a solution must be physical (no negative concentration) and is
   called stable when every eigenvalue of -I/tau + d(S^T r)/dc has a negative real part.
-- Programmed batch: T(t) piecewise-linear; integrated with ``scipy.integrate.solve_ivp`` (LSODA) piece by
-  piece, since k changes along the way.
+- Programmed batch: T(t) piecewise-linear; the compiled integrators follow it inside each step (the draws' rate
+  constants stated at the programme's first temperature, scaled along the way by their temperature slopes).
+- Dosed (semi-batch): the same, with feeds; the liquid volume grows with the inflow (``conditions``), and the
+  amounts fed so far are ``fed_amounts``.
 """
 
 from __future__ import annotations
 
-import itertools
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.integrate import solve_ivp
 from scipy.optimize import root
 
-from .conditions import isothermal_conditions, run_conditions
+from .conditions import Feed, RunSetup, build_conditions, dose_piece, isothermal_conditions, run_conditions, volume_at
 from .kinetics import run_kernel
 from .network import Network
 from .parameters import ParameterDraws
-from .solution import NetworkSolver, SolverFailure, network_kernel
+from .solution import NetworkSolver, SolverFailure, SolverSettings, network_kernel
 from .stepping import evaluate
+
+#: Relative tolerance of runs whose temperature or volume changes: steps are not cut at the kinks of a temperature
+#: programme, and a step across one loses accuracy, so these runs are integrated more tightly than a plain batch.
+PROGRAMMED_RTOL = 1e-8
 
 
 def _rate_terms(network: Network, one: ParameterDraws, kelvin: float, c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -41,28 +46,50 @@ def _rate_terms(network: Network, one: ParameterDraws, kelvin: float, c: np.ndar
     return f, jac
 
 
-def batch_profiles(
-    network: Network, draws: ParameterDraws, kelvin: float, initial: np.ndarray, times: np.ndarray
+def _draw_profiles(
+    network: Network,
+    draws: ParameterDraws,
+    kelvin: float | np.ndarray,
+    initial: np.ndarray,
+    times: np.ndarray,
+    setup: RunSetup | None = None,
+    settings: SolverSettings | None = None,
 ) -> np.ndarray:
-    """Isothermal batch (or PFR) profiles of every draw: (draws, times, species); NaN where a draw failed."""
+    """Profiles of every draw, each a run of its own: (draws, times, species); NaN where a draw failed.
+
+    ``kelvin`` (K; one value, or one per draw) is the nominal temperature the draws' constants are stated at;
+    ``setup`` how each draw's run is carried out (its nominal must be ``kelvin``; None: isothermal batch).
+    """
     n = initial.size
-    out = np.full((draws.size, times.size, n), np.nan)
+    kelvin = np.broadcast_to(np.asarray(kelvin, dtype=float), (draws.size,))
+    settings = SolverSettings() if settings is None else settings
     if not draws.orders_vary:
         # Each draw is a "run" of one solver call: one compiled loop for every draw.
-        solver = NetworkSolver(network, [times] * draws.size)
+        conditions = None if setup is None else build_conditions([setup] * draws.size, n)
+        solver = NetworkSolver(network, [times] * draws.size, conditions=conditions, settings=settings)
         try:
             solution = solver.solve(draws.as_runs(kelvin, initial), sensitivities=False)
             return np.stack(solution.concentrations)
         except SolverFailure:
             pass  # find the failing draws one by one below
-    solver = NetworkSolver(network, [times])
+    out = np.full((draws.size, times.size, n), np.nan)
+    conditions = None if setup is None else build_conditions([setup], n)
+    solver = NetworkSolver(network, [times], conditions=conditions, settings=settings)
     for d in range(draws.size):
         try:
-            solution = solver.solve(draws.inputs(d, np.array([kelvin]), initial[None]), sensitivities=False)
+            solution = solver.solve(draws.inputs(d, kelvin[d : d + 1], initial[None]), sensitivities=False)
             out[d] = solution.concentrations[0]
         except SolverFailure:
             continue
     return out
+
+
+def batch_profiles(
+    network: Network, draws: ParameterDraws, kelvin: float | np.ndarray, initial: np.ndarray, times: np.ndarray
+) -> np.ndarray:
+    """Isothermal batch (or PFR) profiles of every draw at ``kelvin`` (K; one value, or one per draw):
+    (draws, times, species); NaN where a draw failed."""
+    return _draw_profiles(network, draws, kelvin, initial, times)
 
 
 @dataclass(frozen=True)
@@ -166,46 +193,49 @@ def programmed_batch_profiles(
     programme: np.ndarray,
     initial: np.ndarray,
     times: np.ndarray,
-    rtol: float = 1e-7,
+    rtol: float = PROGRAMMED_RTOL,
 ) -> np.ndarray:
-    """Batch profiles under a piecewise-linear temperature programme: (draws, times, species)."""
-    n = initial.size
-    out = np.full((draws.size, times.size, n), np.nan)
-    edges = np.unique(np.concatenate([programme[:, 0], [times[-1]]]))
-    edges = edges[edges <= times[-1]]
-    if edges[0] > 0.0:
-        edges = np.concatenate([[0.0], edges])
-    for d in range(draws.size):
-        one = draws.draw(d)
+    """Batch profiles under a temperature programme ((time, K) points joined by straight lines, held after the
+    last): (draws, times, species); NaN where a draw failed."""
+    setup = _setup(programme, 1.0, ())
+    return _draw_profiles(network, draws, setup.nominal, initial, times, setup, SolverSettings(rtol=rtol))
 
-        def rhs(t: float, c: np.ndarray, one: ParameterDraws = one) -> np.ndarray:
-            kelvin = float(programme_temperature(programme, np.array([t]))[0])
-            return _rate_terms(network, one, kelvin, c)[0]
 
-        def jacobian(t: float, c: np.ndarray, one: ParameterDraws = one) -> np.ndarray:
-            kelvin = float(programme_temperature(programme, np.array([t]))[0])
-            return _rate_terms(network, one, kelvin, c)[1]
+def dosed_batch_profiles(
+    network: Network,
+    draws: ParameterDraws,
+    history_or_kelvin: float | np.ndarray,
+    initial: np.ndarray,
+    volume: float,
+    feeds: Sequence[Feed],
+    times: np.ndarray,
+    rtol: float = PROGRAMMED_RTOL,
+) -> tuple[np.ndarray, np.ndarray]:
+    """A dosed (semi-batch) vessel holding ``volume`` of ``initial`` concentrations at t = 0, fed by ``feeds``,
+    at a temperature in K (isothermal) or under a (time, K) programme: concentrations (draws, times, species;
+    NaN where a draw failed) and the liquid volume V(t) (times,) in the unit of ``volume``."""
+    setup = _setup(history_or_kelvin, volume, tuple(feeds))
+    concentrations = _draw_profiles(network, draws, setup.nominal, initial, times, setup, SolverSettings(rtol=rtol))
+    compiled = run_conditions(build_conditions([setup], initial.size), 0)
+    liquid = np.array([volume_at(compiled, dose_piece(compiled, t), t) for t in np.asarray(times, dtype=float)])
+    return concentrations, liquid
 
-        state = initial.astype(float)
-        for start, stop in itertools.pairwise(edges):
-            inside = times[(times > start) & (times <= stop)]
-            evaluations = np.unique(np.concatenate([inside, [stop]]))
-            piece = solve_ivp(
-                rhs,
-                (start, stop),
-                state,
-                method="LSODA",
-                jac=jacobian,
-                t_eval=evaluations,
-                rtol=rtol,
-                atol=1e-12 * max(float(initial.max()), 1e-300),
-            )
-            if not piece.success:
-                out[d] = np.nan
-                break
-            positions = np.searchsorted(evaluations, inside)
-            out[d, np.searchsorted(times, inside)] = piece.y.T[positions]
-            state = piece.y[:, -1]
-        else:
-            out[d, times == 0.0] = initial
-    return out
+
+def fed_amounts(feeds: Sequence[Feed], times: np.ndarray, n_species: int) -> np.ndarray:
+    """Amount of each species fed up to each time (times, species): the integral of rate x concentration, in
+    concentration x volume units."""
+    times = np.asarray(times, dtype=float)
+    total = np.zeros((times.size, n_species))
+    for feed in feeds:
+        duration = np.clip(times - feed.start, 0.0, feed.stop - feed.start)
+        total += np.outer(duration * feed.rate, np.asarray(feed.concentration, dtype=float))
+    return total
+
+
+def _setup(history_or_kelvin: float | np.ndarray, volume: float, feeds: tuple[Feed, ...]) -> RunSetup:
+    """A run at one temperature (K) or under a (time, K) programme, its constants stated at the first
+    temperature (what ``_draw_profiles`` must be given as the nominal temperature)."""
+    history = np.atleast_2d(np.asarray(history_or_kelvin, dtype=float))
+    if history.shape == (1, 1):
+        return RunSetup.isothermal(float(history[0, 0]), volume=float(volume), feeds=feeds)
+    return RunSetup(history, nominal_kelvin=float(history[0, 1]), volume=float(volume), feeds=feeds)

@@ -20,7 +20,12 @@ from .stepping import Tolerances
 
 
 class SolverFailure(RuntimeError):
-    """The integrator could not reach the requested times (too stiff, or a blow-up at extreme parameters)."""
+    """The integrator could not reach the requested times (too stiff, or a blow-up at extreme parameters);
+    ``run`` is the index of the run that failed, where known."""
+
+    def __init__(self, message: str, run: int = 0) -> None:
+        super().__init__(message)
+        self.run = run
 
 
 @dataclass(frozen=True)
@@ -174,7 +179,7 @@ class NetworkSolver:
             except ArithmeticError:  # numba raises Python's errors (x / 0) where extreme parameters lead
                 status = -1
             if status != DONE or not np.all(np.isfinite(out_c)):
-                raise SolverFailure(f"the integration of run {r} did not reach t = {times[-1]:g}")
+                raise SolverFailure(f"the integration of run {r} did not reach t = {times[-1]:g}", r)
             concentrations.append(out_c)
             if sens is not None:
                 sens.append(out_s)
@@ -238,5 +243,5 @@ class MeasurementSolver:
         except ArithmeticError as error:  # numba raises Python's errors (x / 0) where extreme parameters lead
             raise SolverFailure(f"the integration failed ({type(error).__name__})") from None
         if failed >= 0:
-            raise SolverFailure(f"the integration of run {failed} did not reach its last time")
+            raise SolverFailure(f"the integration of run {failed} did not reach its last time", failed)
         return prediction, jacobian

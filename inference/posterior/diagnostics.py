@@ -29,8 +29,9 @@ from ..inputs.study import Study
 from ..physics.parameters import BLOCK_VARIABLES
 
 #: Posterior variables the convergence verdict looks at, in this order (those present in a model): the
-#: variables of the kinetic parameter blocks, then run-to-run spreads, latent run temperatures and the noise.
-KINETIC_VARIABLES = (*BLOCK_VARIABLES, "ln_k_spread", "temperature", "sigma")
+#: variables of the kinetic parameter blocks, then run-to-run spreads, latent run temperatures, fitted response
+#: factors and weights of measured quantities, and the noise.
+KINETIC_VARIABLES = (*BLOCK_VARIABLES, "ln_k_spread", "temperature", "response", "weight", "sigma")
 
 
 class Problem(Protocol):
@@ -155,6 +156,7 @@ def assess(
             "consider tighter priors on the noise scale."
         )
 
+    advice += confounded_factors(idata.posterior)
     if solver_failures > 0.01 * chains * draws:
         advice.append(
             f"{solver_failures} integrations failed during sampling (those proposals were rejected): "
@@ -193,6 +195,50 @@ def assess(
     )
 
 
+#: |posterior correlation| of a fitted factor's log with another parameter above which the two are called
+#: confounded (our choice: the data then pin little more than their product).
+CONFOUNDED_CORRELATION = 0.95
+
+
+def _scalar_draws(posterior, names: tuple[str, ...], logged: tuple[str, ...]) -> dict[str, np.ndarray]:
+    """Each scalar element of the named variables as a flat vector of draws, named ``name[label, ...]``; the
+    variables in ``logged`` on the log scale."""
+    columns: dict[str, np.ndarray] = {}
+    for name in names:
+        if name not in posterior:
+            continue
+        values = posterior[name].stack(sample=("chain", "draw")).transpose(..., "sample")
+        coords = [values.coords[d].values for d in values.dims[:-1]]
+        for index in np.ndindex(*values.shape[:-1]):
+            label = ", ".join(str(c[i]) for c, i in zip(coords, index, strict=True))
+            row = values.values[index]
+            columns[f"{name}[{label}]" if label else name] = np.log(row) if name in logged else row
+    return columns
+
+
+def confounded_factors(posterior) -> list[str]:
+    """Advice naming each fitted response factor or weight whose log is almost perfectly correlated, over the
+    posterior draws, with a kinetic parameter, an initial concentration or another factor."""
+    factors = ("response", "weight")
+    columns = _scalar_draws(posterior, (*BLOCK_VARIABLES, *factors), factors)
+    names = [n for n in columns if np.std(columns[n]) > 0]
+    advice = []
+    for position, first in enumerate(names):
+        if not first.startswith(tuple(f"{f}[" for f in factors)):
+            continue
+        for other in names:
+            if other == first or (other.startswith(tuple(f"{f}[" for f in factors)) and names.index(other) < position):
+                continue  # each pair of factors once
+            r = float(np.corrcoef(columns[first], columns[other])[0, 1])
+            if abs(r) > CONFOUNDED_CORRELATION:
+                advice.append(
+                    f"{first} and {other} are confounded (posterior correlation {r:.2f}): the data pin little "
+                    "more than their combination; add a calibration standard (a known amount measured the same "
+                    "way), measure that species on an absolute scale, or fix the factor."
+                )
+    return advice
+
+
 def standardised_residuals(fit_checks: pd.DataFrame, log_scale: bool) -> np.ndarray:
     """(observed - predictive median) / predictive sd per measurement, the sd read off the 90 % predictive
     interval as if it were normal; on the log of the values when ``log_scale`` (proportional and robust
@@ -212,10 +258,13 @@ def misfit_findings(problem: Problem, idata: az.InferenceData, fit_checks: pd.Da
     data points, the ``worst_points`` (file and line of the worst-predicted measurements)."""
     fit_checks = problem.fit_checks(idata) if fit_checks is None else fit_checks
     z = standardised_residuals(fit_checks, log_scale=problem.study.noise.model != "absolute")
+    # A censored value says only on which side of its limit it lies: no residual, no interval to be inside.
+    exact = (fit_checks["censored"] == "").to_numpy() if "censored" in fit_checks.columns else np.ones(z.size, bool)
+    z = np.where(exact, z, np.nan)
     findings = [
-        *_coverage(fit_checks["inside_90"].to_numpy(dtype=bool)),
+        *_coverage(fit_checks["inside_90"].to_numpy(dtype=bool)[exact]),
         *_trends(fit_checks, z),
-        *_lack_of_fit(fit_checks, z, _location_parameters(idata.posterior)),
+        *_lack_of_fit(fit_checks[exact].reset_index(drop=True), z[exact], _location_parameters(idata.posterior)),
     ]
     if findings:
         worst = _worst_points(problem, idata, fit_checks, z)
@@ -243,7 +292,7 @@ def _coverage(inside: np.ndarray) -> list[dict]:
 
 def _trends(fit_checks: pd.DataFrame, z: np.ndarray) -> list[dict]:
     """Spearman tests of the residuals against temperature and time, per reaction or per species."""
-    by = next((c for c in ("reaction", "species") if c in fit_checks.columns), None)
+    by = next((c for c in ("reaction", "quantity", "species") if c in fit_checks.columns), None)
     groups = fit_checks.groupby(by, sort=False).indices if by else {"": np.arange(len(fit_checks))}
     tests = []
     for name, rows in groups.items():

@@ -93,12 +93,22 @@ def derived_quantities(
             for species in posterior["initial"].coords["uncertain_species"].values:
                 draws = posterior["initial"].sel(run=run, uncertain_species=species, drop=True)
                 quantities[f"initial[{run}, {species}]"] = (study.units.concentration or "", draws)
+    for name, dim, unit in (
+        ("response", "response_factor", "signal per concentration"),
+        ("weight", "weight_factor", "signal per concentration and path length"),
+    ):
+        if name in posterior:
+            for label in posterior[name].coords[dim].values:
+                quantities[f"{name}[{label}]"] = (unit, posterior[name].sel({dim: label}, drop=True))
     if "sigma" in posterior:
         unit = study.units.concentration if study.noise.model == "absolute" else "log units"
         sigma = posterior["sigma"]
-        if "observed_species" in sigma.dims:
-            for species in sigma.coords["observed_species"].values:
-                quantities[f"sigma[{species}]"] = (unit or "", sigma.sel(observed_species=species, drop=True))
+        per = next((dim for dim in ("observed_species", "observed_quantity") if dim in sigma.dims), None)
+        if per is not None:
+            if study.noise.model == "absolute" and per == "observed_quantity":
+                unit = "measured units"
+            for label in sigma.coords[per].values:
+                quantities[f"sigma[{label}]"] = (unit or "", sigma.sel({per: label}, drop=True))
         else:
             quantities["sigma"] = (unit or "", sigma)
     return quantities
@@ -269,15 +279,23 @@ def rate_constant_fit_checks(study: Study, data: RateConstantData, idata: az.Inf
 
 
 def network_fit_checks(study: Study, obs: Observations, idata: az.InferenceData) -> pd.DataFrame:
-    """Columns: measurement, line, run, temperature, time, species, observed, median, q05, q95, inside_90."""
+    """Columns: measurement, line, run, temperature (at the time of the measurement), time (for steady states:
+    the residence time), species, observed, median, q05, q95, inside_90; steady states add ``reactor``."""
     labels = pd.DataFrame(
         {
             "measurement": np.arange(obs.value.size),
             "line": obs.line,
             "run": np.array(obs.run_ids)[obs.run_index],
-            "temperature": units.kelvin_to(obs.temperature_K[obs.run_index], study.units.temperature),
+            "temperature": units.kelvin_to(obs.measurement_kelvin(), study.units.temperature),
             "time": obs.time,
             "species": np.array(study.species)[obs.species_index],
         }
     )
+    if obs.steady:
+        kinds = np.array(["cstr" if s.overflow else "pfr" for s in obs.setups])
+        labels.insert(3, "reactor", kinds[obs.run_index])
+    if obs.quantity_index is not None:  # the value is of a declared quantity, on the scale it was measured
+        labels.insert(labels.columns.get_loc("species") + 1, "quantity", obs.measured_names(study.species))
+    if obs.lower is not None or obs.upper is not None:
+        labels["censored"] = obs.censored
     return pd.concat([labels, predictive_intervals(obs.value, idata)], axis=1)

@@ -13,6 +13,14 @@ Catalyst scenario (invented): a reactant A converts to P on a supported catalyst
 (Langmuir-Hinshelwood with A adsorbed), three catalyst lots whose activity differs (ln k shifted per lot by
 tau z, tau = 0.25), runs at 50 and 70 degC from 0.5 and 2.0 mol/L; A and P sampled with 3 % lognormal error.
 
+Dosed scenario (invented): a substrate A is charged (800 mL), a reagent B (4 mol/L) is dosed over 30-60 min
+while the jacket heats the batch from about 20 degC to a set point of 50 to 70 degC; A + B -> P (second order)
+and the product slowly goes on to an impurity, P -> I (first order, higher Ea). Five runs, each with its reactor
+temperature log (every 5 min) and pump programme; A, P and I sampled every 20-30 min by HPLC with 4 % lognormal
+error, I left blank below the reporting limit, B not measured. Profiles come from Arrhenia's compiled solver
+(``NetworkSolver`` under each run's ``RunSetup`` and ``Feed``, rtol 1e-10); ``tests/test_demo.py`` checks them
+against ``scipy.integrate.solve_ivp``.
+
 ``data_demo/generate.py`` calls ``write_demo`` to regenerate the committed copy in ``data_demo/``;
 ``arrhenia demo`` calls it to write the same files wherever the user asks.
 """
@@ -26,6 +34,10 @@ from scipy.integrate import solve_ivp
 
 from ..errors import StudyError
 from ..physics.arrhenius import ln_rate_constant
+from ..physics.conditions import Feed, RunSetup, build_conditions
+from ..physics.network import build_network, parse_equation
+from ..physics.parameters import ParameterDraws
+from ..physics.solution import NetworkSolver, SolverSettings
 
 NETWORK_SEED = 20261202
 T_REF_K = 333.15  # 60 degC, where the true k values below are stated
@@ -57,6 +69,27 @@ CATALYST_LOTS = ("lot-A", "lot-B", "lot-C")
 CATALYST_CONDITIONS = ((50.0, 0.5), (50.0, 2.0), (70.0, 0.5), (70.0, 2.0))  # degC, A0 in mol/L
 CATALYST_NOISE = 0.03
 
+DOSED_SEED = 20261204
+TRUE_DOSED = {  # reaction: (equation, k at 60 degC, Ea in J/mol)
+    "coupling": ("A + B -> P", 0.12, 65_000.0),  # L/(mol min)
+    "overreaction": ("P -> I", 0.0006, 105_000.0),  # 1/min
+}
+DOSED_SPECIES = ("A", "B", "P", "I")
+DOSED_NOISE = 0.04
+DOSED_CHARGE_ML = 800.0  # liquid volume charged with A
+DOSED_FEED_B = 4.0  # mol/L of B in the dosed solution
+HEATUP_MINUTES = 12.0  # time constant of the batch temperature's approach to the set point
+LOG_INTERVAL = 5.0  # min between lines of the reactor's temperature log
+REPORTING_LIMIT = 0.002  # mol/L: HPLC results of I below it are left blank
+DOSED_RUNS = (  # run id, set point degC, batch degC at t = 0, A0 mol/L, pump programme, sampling interval, samples
+    # pump programme: (start, stop, mL/min) rows of the B solution; about 1.15 equivalents of B in each run
+    ("S50", 50.0, 20.4, 1.00, ((0.0, 60.0, 3.8),), 30.0, 7),
+    ("S55", 55.0, 21.1, 0.90, ((0.0, 45.0, 4.6),), 30.0, 6),
+    ("S60", 60.0, 19.6, 1.00, ((0.0, 15.0, 6.0), (15.0, 45.0, 4.6)), 25.0, 6),
+    ("S65", 65.0, 20.8, 1.10, ((10.0, 70.0, 4.2),), 20.0, 7),
+    ("S70", 70.0, 22.0, 0.95, ((0.0, 40.0, 5.5),), 20.0, 6),
+)
+
 STUDY_FILE = "study.yaml"
 RUNS_FILE = "runs.csv"
 MEASUREMENTS_FILE = "measurements.csv"
@@ -67,6 +100,14 @@ RATE_CONSTANTS_FILE = "rate_constants.csv"
 CATALYST_STUDY_FILE = "catalyst_study.yaml"
 CATALYST_RUNS_FILE = "catalyst_runs.csv"
 CATALYST_MEASUREMENTS_FILE = "catalyst_measurements.csv"
+DOSED_STUDY_FILE = "dosed_study.yaml"
+DOSED_RUNS_FILE = "dosed_runs.csv"
+DOSED_TEMPERATURES_FILE = "dosed_temperatures.csv"
+DOSED_FEEDS_FILE = "dosed_feeds.csv"
+DOSED_MEASUREMENTS_FILE = "dosed_measurements.csv"
+#: The studies ``arrhenia demo`` fits, in order; the first is compared with ``ALTERNATIVE_STUDY_FILE`` and its
+#: posterior runs ``SCENARIOS_FILE``.
+FITTED_STUDY_FILES = (STUDY_FILE, DOSED_STUDY_FILE)
 
 CATALYST_STUDY_TEXT = """\
 # Demo study of Arrhenia: an invented catalytic conversion A -> P, saturating in A, on three catalyst lots.
@@ -91,6 +132,35 @@ run_variability: {sd: {scale: 0.5}, by: lot}   # ln k varies from lot to lot
 reference_temperature: 60                  # degC
 noise: {model: proportional, sigma: {scale: 0.2}}
 sampling: {draws: 500, tune: 500, chains: 4, seed: 1, target_accept: 0.95}
+"""
+
+DOSED_STUDY_TEXT = """\
+# Demo study of Arrhenia: an invented semi-batch coupling A + B -> P, B dosed during the heat-up, with the
+# consecutive impurity P -> I. Data simulated by inference/workflows/demo.py (seed 20261204). True values at 60 degC:
+#   coupling k = 0.12 L/(mol min), Ea = 65 kJ/mol;  overreaction k = 0.0006 1/min, Ea = 105 kJ/mol.
+study: demo-dosed-heatup
+title: Coupling with B dosed during the heat-up, and the impurity it leads to (invented demo data)
+units: {time: min, temperature: degC, concentration: mol/L, energy: kJ/mol, volume: mL}
+data:
+  runs: dosed_runs.csv                  # run, temperature (blank: see the log), volume charged, initial A, B, P, I
+  temperatures: dosed_temperatures.csv  # reactor temperature log: run, time, temperature
+  feeds: dosed_feeds.csv                # pump programme of the B solution: run, start, stop, rate (mL/min), B
+  measurements: dosed_measurements.csv  # HPLC, wide layout: run, time, A, P, I (I blank below 0.002 mol/L)
+species: [A, B, P, I]
+reactions:
+  - name: coupling
+    equation: A + B -> P
+    rate_law: mass_action
+    k_ref: {median: 0.1, factor: 20}      # L/(mol min) at T_ref
+    Ea: {mean: 70, sd: 30}                # kJ/mol
+  - name: overreaction
+    equation: P -> I
+    rate_law: mass_action
+    k_ref: {median: 0.001, factor: 20}    # 1/min at T_ref
+    Ea: {mean: 90, sd: 30}
+reference_temperature: 60                 # degC
+noise: {model: proportional, sigma: {scale: 0.2}}
+sampling: {draws: 500, tune: 500, chains: 4, seed: 1, target_accept: 0.9}
 """
 
 STUDY_TEXT = """\
@@ -288,13 +358,77 @@ def simulate_catalyst(seed: int = CATALYST_SEED) -> tuple[list[str], list[str]]:
     return runs, measurements
 
 
+def dosed_setups() -> tuple[list[str], list[str], list[str], list[RunSetup], list[np.ndarray]]:
+    """Lines of dosed_runs.csv, dosed_temperatures.csv and dosed_feeds.csv, with each run's ``RunSetup`` (what
+    those lines say, temperatures in K) and its sampling times (min)."""
+    runs = ["run,temperature,volume,A,B,P,I"]
+    log = ["run,time,temperature"]
+    feeds = ["run,start,stop,rate,B"]
+    setups, times = [], []
+    for run, set_point, start, a0, programme, interval, samples in DOSED_RUNS:
+        runs.append(f"{run},,{DOSED_CHARGE_ML:g},{a0:g},0,0,0")
+        sampled = interval * np.arange(1, samples + 1)
+        clock = np.arange(0.0, sampled[-1] + LOG_INTERVAL / 2, LOG_INTERVAL)
+        celsius = np.round(set_point - (set_point - start) * np.exp(-clock / HEATUP_MINUTES), 1)
+        log += [f"{run},{t:g},{c:.1f}" for t, c in zip(clock, celsius, strict=True)]
+        feeds += [f"{run},{t0:g},{t1:g},{rate:g},{DOSED_FEED_B:g}" for t0, t1, rate in programme]
+        dose = np.array([0.0, DOSED_FEED_B, 0.0, 0.0])
+        setups.append(
+            RunSetup(
+                np.column_stack([clock, celsius + 273.15]),
+                horizon=float(sampled[-1]),
+                volume=DOSED_CHARGE_ML,
+                feeds=tuple(Feed(t0, t1, rate, dose) for t0, t1, rate in programme),
+            )
+        )
+        times.append(sampled)
+    return runs, log, feeds, setups, times
+
+
+def dosed_profiles(setups: list[RunSetup], times: list[np.ndarray], initial: np.ndarray) -> list[np.ndarray]:
+    """True concentrations (times, A B P I) of each run of the dosed demo, from Arrhenia's compiled solver."""
+    network = build_network(
+        DOSED_SPECIES, tuple(TRUE_DOSED), tuple(parse_equation(e) for e, _, _ in TRUE_DOSED.values())
+    )
+    truth = ParameterDraws(
+        ln_k_ref=np.log([[k for _, k, _ in TRUE_DOSED.values()]]),
+        ea=np.array([[ea for _, _, ea in TRUE_DOSED.values()]]),
+        ln_eq_ref=np.zeros((1, 0)),
+        dh=np.zeros((1, 0)),
+        orders=network.forward_orders[None],
+        initial=None,
+        temperature_ref=T_REF_K,
+    )
+    conditions = build_conditions(setups, len(DOSED_SPECIES))
+    tight = SolverSettings(rtol=1e-10, atol_share=1e-13)
+    solver = NetworkSolver(network, times, conditions=conditions, settings=tight)
+    inputs = truth.inputs(0, conditions.nominal_kelvin, initial)
+    return solver.solve(inputs, sensitivities=False).concentrations
+
+
+def simulate_dosed(seed: int = DOSED_SEED) -> tuple[list[str], list[str], list[str], list[str]]:
+    """Lines of dosed_runs.csv, dosed_temperatures.csv, dosed_feeds.csv and dosed_measurements.csv (wide layout;
+    B not measured, I blank below ``REPORTING_LIMIT``)."""
+    rng = np.random.default_rng(seed)
+    runs, log, feeds, setups, times = dosed_setups()
+    initial = np.array([[a0, 0.0, 0.0, 0.0] for _, _, _, a0, *_ in DOSED_RUNS])
+    measurements = ["run,time,A,P,I"]
+    for (run, *_), sampled, profile in zip(DOSED_RUNS, times, dosed_profiles(setups, times, initial), strict=True):
+        for t, (a, _, p, i) in zip(sampled, profile, strict=True):
+            noisy = np.array([a, p, i]) * np.exp(DOSED_NOISE * rng.standard_normal(3))
+            cells = [f"{v:.5g}" for v in noisy[:2]] + [f"{noisy[2]:.5g}" if noisy[2] >= REPORTING_LIMIT else ""]
+            measurements.append(f"{run},{t:g}," + ",".join(cells))
+    return runs, log, feeds, measurements
+
+
 def write_demo(folder: Path, replace: bool = False) -> Path:
-    """Write the demo studies (network, its competing candidate, rate constants, catalyst lots) and their data
+    """Write the demo studies (network, its competing candidate, rate constants, catalyst lots, dosing) and their data
     into ``folder``; returns the network study's path. A file of the same name with other content (the user's
     own) is never replaced unless ``replace`` (the generator of ``data_demo/``): ``StudyError`` before anything
     is written."""
     runs, measurements = simulate_network()
     catalyst_runs, catalyst_measurements = simulate_catalyst()
+    dosed_runs, dosed_log, dosed_feeds, dosed_measurements = simulate_dosed()
     texts = {
         RUNS_FILE: "\n".join(runs) + "\n",
         MEASUREMENTS_FILE: "\n".join(measurements) + "\n",
@@ -307,6 +441,11 @@ def write_demo(folder: Path, replace: bool = False) -> Path:
         CATALYST_RUNS_FILE: "\n".join(catalyst_runs) + "\n",
         CATALYST_MEASUREMENTS_FILE: "\n".join(catalyst_measurements) + "\n",
         CATALYST_STUDY_FILE: CATALYST_STUDY_TEXT,
+        DOSED_RUNS_FILE: "\n".join(dosed_runs) + "\n",
+        DOSED_TEMPERATURES_FILE: "\n".join(dosed_log) + "\n",
+        DOSED_FEEDS_FILE: "\n".join(dosed_feeds) + "\n",
+        DOSED_MEASUREMENTS_FILE: "\n".join(dosed_measurements) + "\n",
+        DOSED_STUDY_FILE: DOSED_STUDY_TEXT,
     }
     for name, text in texts.items():
         path = folder / name

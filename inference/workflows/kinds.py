@@ -133,10 +133,69 @@ def _temperature_lines(study: Study, measured_K: np.ndarray) -> list[str]:
 
 def _noise_line(study: Study) -> str:
     noise = study.noise
-    scope = "one per observed species" if noise.per_species else "shared"
+    per = "measured quantity" if study.quantities else "observed species"
+    scope = f"one per {per}" if noise.per_species else "shared"
     return f"  noise: {noise.model}, sigma ~ half-normal(scale {noise.sigma.scale:g}), {scope}" + (
         f", nu = {noise.nu:g}" if noise.model == "robust" else ""
     )
+
+
+def _factor_text(factor) -> str:
+    if factor.fitted:
+        return lognormal_text(factor.ln_mean, factor.ln_sd, "").replace(" ,", ",")
+    return f"{math.exp(factor.ln_mean):.4g}"
+
+
+def _quantity_lines(study: Study, obs: Observations) -> list[str]:
+    """The declared measured quantities with their priors, and how many values are censored."""
+    lines = []
+    declared = [q for q in obs.quantities if q.kind != "concentration"]
+    if declared:
+        lines.append("  measured quantities:")
+    for q in declared:
+        species = study.species[q.species]
+        if q.kind == "signal":
+            text = f"response x [{species}] + {q.offset:g}, response ~ {_factor_text(q.scale)}"
+            text += " per run" if q.per_run else ""
+        elif q.kind == "composition":
+            among = " + ".join(f"[{study.species[s]}]" for s in q.terms)
+            text = f"{math.exp(q.scale.ln_mean):g} x [{species}] / ({among})"
+        elif q.kind == "combination":
+            weights = ", ".join(
+                f"{study.species[s]}: {_factor_text(w)}" for s, w in zip(q.terms, q.weights, strict=True)
+            )
+            text = f"path {math.exp(q.scale.ln_mean):g} x sum of weight x concentration ({weights})"
+        elif q.kind == "conversion":
+            text = f"conversion of {species} (amounts)"
+        else:
+            text = f"yield of {species} on the initial amount of {study.species[q.reference]}"
+        lines.append(f"    {q.name}: {q.kind}, {text}")
+    flags = obs.censored
+    below, above = int((flags == "below").sum()), int((flags == "above").sum())
+    if below or above:
+        lines.append(
+            f"  censored values: {below} below a detection limit, {above} above a saturation limit (each counts "
+            "as the probability of lying beyond its limit)"
+        )
+    return lines
+
+
+def _experiment_counts(obs: Observations) -> str:
+    """How the runs were carried out, counted: e.g. "3 isothermal batch, 2 with a temperature history, 2 dosed"."""
+    if not obs.setups:
+        return f"{len(obs.run_ids)} isothermal batch"
+    if obs.steady:
+        cstr = sum(s.overflow for s in obs.setups)
+        return f"{cstr} CSTR steady state(s), {len(obs.setups) - cstr} PFR outlet(s) (isothermal, constant density)"
+    counts = {
+        "isothermal batch": sum(not s.ramped and not s.feeds for s in obs.setups),
+        "with a temperature history": sum(s.ramped for s in obs.setups),
+        "dosed (semi-batch)": sum(bool(s.feeds) for s in obs.setups),
+    }
+    text = ", ".join(f"{n} {what}" for what, n in counts.items() if n)
+    if obs.factor is not None:
+        text += "; values are amounts (concentration x volume)"
+    return text
 
 
 @dataclass(frozen=True)
@@ -241,7 +300,7 @@ class NetworkProblem:
         but almost surely wrong (units, typos)."""
         study, obs = self.study, self.obs
         notes = []
-        if np.unique(obs.temperature_K).size < 2:
+        if np.unique(obs.measurement_kelvin()).size < 2:
             notes.append("every run is at one temperature: each Ea is set by its prior alone")
         measured = {int(i) for i in obs.observed_species}
         touching = [
@@ -262,18 +321,85 @@ class NetworkProblem:
                     f"reaction '{spec.name}' is linked to no measured species: its k_ref and Ea are set by "
                     "their priors alone"
                 )
+        notes += self._multiplicity_notes() + self._factor_notes()
         return notes + plausibility.network_warnings(study, obs, self.measurement_label)
+
+    def _factor_notes(self) -> list[str]:
+        """Fitted response factors and weights that nothing in the data pins: no calibration point (the quantity
+        measured at time 0 of a run with a known initial concentration of its species) and no measurement of
+        that species on an absolute scale, or an initial concentration that is itself uncertain."""
+        study, obs = self.study, self.obs
+        if obs.quantity_index is None:
+            return []
+        specs = obs.quantities
+        uncertain = {study.species.index(name) for name, _ in study.initial_uncertainty}
+        measured = {int(q) for q in np.unique(obs.quantity_index)}
+        absolute = {specs[q].species for q in measured if specs[q].absolute}
+        notes = []
+        for q in sorted(measured):
+            spec = specs[q]
+            fitted = [(spec.scale.label, spec.species)] if spec.scale.fitted else []
+            fitted += [(w.label, s) for w, s in zip(spec.weights, spec.terms, strict=True) if w.fitted]
+            for label, species in fitted:
+                name = study.species[species]
+                rows = np.flatnonzero(obs.quantity_index == q)
+                calibrated = any(
+                    obs.time[m] == 0 and obs.initial[obs.run_index[m], species] > 0 and species not in uncertain
+                    for m in rows
+                )
+                if species in uncertain:
+                    notes.append(
+                        f"the fitted factor '{label}' is confounded with the uncertain initial concentration of "
+                        f"{name}: both scale the measured values alike; fix one of them or add a calibration standard"
+                    )
+                elif not calibrated and species not in absolute:
+                    notes.append(
+                        f"the fitted factor '{label}' has no calibration point (a measurement at time 0 of a known "
+                        f"concentration of {name}) and {name} is measured on no absolute scale: only its prior and "
+                        "the mass balance pin it, and it may trade off against the kinetics"
+                    )
+        return notes
+
+    def _multiplicity_notes(self) -> list[str]:
+        """CSTR rows where the kinetics at the priors' centre allow more than one steady state (the fit uses the
+        one a start-up from the feed reaches; ``reactors.cstr_steady_states`` searches for the others)."""
+        study, obs = self.study, self.obs
+        rows = [r for r, setup in enumerate(obs.setups) if setup.overflow]
+        if not rows:
+            return []
+        from ..physics.arrhenius import auto_reference_temperature
+        from ..physics.reactors import cstr_steady_states
+
+        reference = study.reference_temperature_K or auto_reference_temperature(obs.temperature_K)
+        centre = prior_centre_draws(study, reference)
+        notes = []
+        for r in rows:
+            states = cstr_steady_states(
+                study.network, centre, float(obs.temperature_K[r]), obs.initial[r], obs.times[r][:1]
+            )
+            if states.multiple[0, 0]:
+                notes.append(
+                    f"steady state '{obs.run_ids[r]}': at the priors' centre this CSTR has more than one steady "
+                    "state; the fit uses the one a start-up from the feed reaches"
+                )
+        return notes
 
     def check_lines(self) -> list[str]:
         study, obs = self.study, self.obs
         observed = [study.species[i] for i in obs.observed_species]
         hidden = [s for s in study.species if s not in observed]
-        kind = closed_form.closed_form_kind(study.network)
+        kind = closed_form.closed_form_kind(study.network) if obs.isothermal_batch else None
+        source = (
+            f"{len(obs.run_ids)} steady states from {obs.measurements_path}"
+            if obs.steady
+            else f"{len(obs.run_ids)} runs from {obs.runs_path}, {obs.value.size} measurements from "
+            f"{obs.measurements_path}"
+        )
         lines = [
             f"  species: {', '.join(study.species)} (measured: {', '.join(observed)}"
             + (f"; not measured: {', '.join(hidden)})" if hidden else ")"),
-            f"  data: {len(obs.run_ids)} runs from {obs.runs_path}, {obs.value.size} measurements from "
-            f"{obs.measurements_path}",
+            f"  data: {source}",
+            f"  experiments: {_experiment_counts(obs)}",
         ]
         lines += _temperature_lines(study, self.temperatures_K)
         lines += ["  reactions:", *_prior_lines(study)]
@@ -282,6 +408,7 @@ class NetworkProblem:
                 "  uncertain initial concentrations: "
                 + ", ".join(f"{name} (±{share:.0%} lognormal)" for name, share in study.initial_uncertainty)
             )
+        lines += _quantity_lines(study, obs)
         lines.append(_noise_line(study))
         layout = study.sensitivity_layout()
         blocks = [
@@ -309,13 +436,11 @@ class NetworkProblem:
         """The first run whose profiles cannot be integrated with every parameter at its prior's centre."""
         study, obs = self.study, self.obs
         centre = prior_centre_draws(study, temperature_ref)
-        for r, run in enumerate(obs.run_ids):
-            kelvin = obs.temperature_K[r]
-            solver = NetworkSolver(study.network, [obs.times[r]])
-            try:
-                solver.solve(centre.inputs(0, np.array([kelvin]), obs.initial[r : r + 1]), sensitivities=False)
-            except SolverFailure:
-                return run
+        solver = NetworkSolver(study.network, list(obs.times), conditions=obs.conditions)
+        try:
+            solver.solve(centre.inputs(0, obs.temperature_K, obs.initial), sensitivities=False)
+        except SolverFailure as failure:
+            return obs.run_ids[failure.run]
         return None
 
     def measurement_label(self, index: int) -> str:
@@ -332,8 +457,8 @@ class NetworkProblem:
         return network_fit_checks(self.study, self.obs, idata)
 
     def measurement_groups(self) -> list[str]:
-        """Each measurement's run, for leave-one-run-out."""
-        return [self.obs.run_ids[r] for r in self.obs.run_index]
+        """Each measurement's run (or, for steady states, its group), for leave-one-run-out."""
+        return [self.obs.experiments[r] for r in self.obs.run_index]
 
     def extra_tables(self) -> dict[str, pd.DataFrame]:
         return {}
@@ -350,8 +475,9 @@ class NetworkProblem:
         study, obs = self.study, self.obs
         draws = parameter_draws(study, posterior, temperature_ref, pick_draws(posterior, n_draws), obs.initial)
         network = study.network
-        kind = closed_form.closed_form_kind(network)
-        solver = None if kind is not None and draws.initial is None else NetworkSolver(network, times)
+        kind = closed_form.closed_form_kind(network) if obs.isothermal_batch else None
+        exact = kind is not None and draws.initial is None
+        solver = None if exact else NetworkSolver(network, times, conditions=obs.conditions)
         out = [np.full((draws.size, t.size, len(study.species)), np.nan) for t in times]
         for d in range(draws.size):
             ln_k = draws.fitted_run_ln_k(d, obs.temperature_K, obs.group_index)
@@ -376,6 +502,11 @@ class NetworkProblem:
         plots.arrhenius_plot(
             self.study, idata.posterior, temperature_ref, self.temperatures_K, folder.path("figures/arrhenius.png")
         )
+        if obs.quantity_index is not None:
+            plots.measured_quantities_plot(self.study, obs, fit_checks, folder.path("figures/measured_quantities.png"))
+        if obs.steady:  # one point per steady state: outlet against residence time, not a profile per row
+            plots.steady_state_plot(self.study, obs, fit_checks, folder.path("figures/steady_states.png"))
+            return
         times = [np.linspace(0.0, float(t.max()), PROFILE_POINTS) for t in obs.times]
         curves = self.profiles(idata.posterior, temperature_ref, times)
         for r, run in enumerate(obs.run_ids):

@@ -2,7 +2,12 @@
 
 For every scenario the posterior draws are pushed through ``reactors``; each answer is reported as quantiles
 over draws, so its interval carries the uncertainty of the kinetics. Times, temperatures and concentrations
-are in the study's units. Every temperature outside the fitted runs' range is flagged with how far outside.
+are in the study's units, volumes in its volume unit, amounts in concentration x volume. Every temperature outside
+the fitted runs' range is flagged with how far outside.
+
+A dosed batch is reported on amounts: conversion and yields against what was charged so far (the initial charge
+plus the feeds), and the accumulation of each dosed species: the amount c V still in the vessel, and its share of
+the amount charged so far.
 """
 
 from __future__ import annotations
@@ -30,7 +35,14 @@ from ..outputs import report
 from ..outputs.records import PredictionResult
 from ..outputs.reporting import CAUTION
 from ..outputs.results import StagedFolder, check_target, load_results, sha256_file
-from ..physics.reactors import batch_profiles, cstr_steady_states, programmed_batch_profiles
+from ..physics.conditions import Feed
+from ..physics.reactors import (
+    batch_profiles,
+    cstr_steady_states,
+    dosed_batch_profiles,
+    fed_amounts,
+    programmed_batch_profiles,
+)
 from ..posterior.draws import ParameterDraws, parameter_draws, pick_draws
 
 QUANTILES = (0.05, 0.25, 0.5, 0.75, 0.95)
@@ -71,6 +83,9 @@ class _Units:
     temperature: str
     time_factor: float
     concentration_factor: float
+    #: Units of amounts (concentration x the study's volume unit): the study's and the scenarios file's.
+    study_amount: str
+    amount: str
 
     @classmethod
     def of(cls, file: ScenarioFile, study: Study, where: str) -> _Units:
@@ -79,6 +94,7 @@ class _Units:
         concentration = given.concentration or study.units.concentration
         temperature = given.temperature or study.units.temperature
         units.parse_unit(temperature, "temperature", f"{where}: units.temperature")
+        volume = study.units.volume
         return cls(
             time,
             concentration,
@@ -89,6 +105,8 @@ class _Units:
                     1.0, concentration, study.units.concentration, "concentration", f"{where}: units.concentration"
                 )
             ),
+            amount_unit(study.units.concentration, volume),
+            amount_unit(concentration, volume),
         )
 
     def temperature_in_study(self, value: float, study: Study, where: str) -> float:
@@ -111,6 +129,18 @@ class _Units:
             update["residence_times"] = tuple(t * tau for tau in scenario.residence_times)
         if scenario.programme is not None:
             update["programme"] = tuple((t * time, temp(value)) for time, value in scenario.programme)
+        if scenario.feeds is not None:
+            update["feeds"] = tuple(
+                feed.model_copy(
+                    update={
+                        "start": t * feed.start,
+                        "stop": t * feed.stop,
+                        "rate": feed.rate / t,
+                        "concentration": {name: c * value for name, value in feed.concentration.items()},
+                    }
+                )
+                for feed in scenario.feeds
+            )
         if scenario.spec is not None:
             update["spec"] = scenario.spec.model_copy(update={"by": t * scenario.spec.by})
         target = scenario.temperature_for
@@ -125,13 +155,15 @@ class _Units:
         return scenario.model_copy(update=update)
 
     def table_from_study(self, table: pd.DataFrame, study: Study) -> pd.DataFrame:
-        """Profiles back in the scenario's units: the time axis and the concentrations."""
+        """Profiles back in the scenario's units: the time axis, the concentrations and the amounts."""
         table = table.copy()
         table[table.columns[1]] = table[table.columns[1]] / self.time_factor
-        rows = table["quantity"].str.startswith("c[")
-        for column in ("median", "q05", "q25", "q75", "q95"):
-            table.loc[rows, column] = table.loc[rows, column] / self.concentration_factor
-        table.loc[rows, "unit"] = self.concentration
+        concentrations = table["quantity"].str.startswith("c[")
+        amounts = table["unit"] == self.study_amount
+        for rows, unit in ((concentrations, self.concentration), (amounts, self.amount)):
+            for column in ("median", "q05", "q25", "q75", "q95"):
+                table.loc[rows, column] = table.loc[rows, column] / self.concentration_factor
+            table.loc[rows, "unit"] = unit
         return table
 
     def scalar_from_study(self, row: dict, study: Study) -> dict:
@@ -142,6 +174,8 @@ class _Units:
             row.update({k: row[k] / self.time_factor for k in columns}, unit=self.time)
         elif row["unit"] == study.units.concentration:
             row.update({k: row[k] / self.concentration_factor for k in columns}, unit=self.concentration)
+        elif row["unit"] == self.study_amount:
+            row.update({k: row[k] / self.concentration_factor for k in columns}, unit=self.amount)
         elif row["unit"] == study.units.temperature:
             for k in columns:
                 if np.isfinite(row[k]):
@@ -149,6 +183,15 @@ class _Units:
                     row[k] = float(units.kelvin_to(kelvin, self.temperature)[0])
             row["unit"] = self.temperature
         return row
+
+
+def amount_unit(concentration: str, volume: str) -> str:
+    """The unit of concentration x volume: reduced where that is exact (mol/L x L = mol), else the product."""
+    ureg = units.registry()
+    reduced = (ureg.Quantity(1.0, concentration) * ureg.Quantity(1.0, volume)).to_reduced_units()
+    if len(list(reduced.unit_items())) == 1 and math.isclose(reduced.magnitude, 1.0, rel_tol=1e-12):
+        return f"{reduced.units:~}"
+    return f"{concentration}*{volume}"
 
 
 def _to_kelvin(study: Study, value: float | np.ndarray, where: str) -> np.ndarray:
@@ -171,17 +214,24 @@ def _first_crossing(times: np.ndarray, conversion: np.ndarray, target: float) ->
     return out
 
 
-def _maximum(times: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _maximum(times: np.ndarray, values: np.ndarray, kinks: np.ndarray | tuple = ()) -> tuple[np.ndarray, np.ndarray]:
     """Per draw, time and height of the maximum: the grid's highest point refined on a cubic spline through
-    the grid (bounded search between the neighbouring grid points)."""
+    the grid (bounded search between the neighbouring grid points). ``kinks``: grid times where the curve's slope
+    jumps (a feed starts or stops); the spline then runs over the smooth piece holding the highest point only, and
+    a highest point on a kink is taken as it is."""
     t_max, c_max = np.full(values.shape[0], np.nan), np.full(values.shape[0], np.nan)
+    kinks = np.asarray(kinks, dtype=float)
     for d, row in enumerate(values):
         if not np.all(np.isfinite(row)):
             continue
         i = int(np.argmax(row))
         t_max[d], c_max[d] = times[i], row[i]
-        if 0 < i < row.size - 1:
-            spline = CubicSpline(times, row)
+        if np.any(kinks == times[i]):
+            continue
+        low = max([0, *np.flatnonzero(np.isin(times[:i], kinks))])
+        high = min([row.size - 1, *(i + np.flatnonzero(np.isin(times[i:], kinks)))])
+        if low < i < high:
+            spline = CubicSpline(times[low : high + 1], row[low : high + 1])
             best = minimize_scalar(
                 lambda t, spline=spline: -float(spline(t)),
                 bounds=(times[i - 1], times[i + 1]),
@@ -238,11 +288,30 @@ class _Predictor:
                 f"{side} fitted run temperature ({float(units.kelvin_to(edge, unit)):g} {unit})"
             )
 
-    def feed(self, scenario: Scenario) -> np.ndarray:
-        return np.array([scenario.initial.get(name, 0.0) for name in self.study.species])
+    def vector(self, values: dict[str, float]) -> np.ndarray:
+        """A mapping species -> value as a vector over the study's species (zero where not named)."""
+        return np.array([values.get(name, 0.0) for name in self.study.species])
 
-    def profiles(self, scenario: Scenario, kelvin: float | None, where: str) -> tuple[np.ndarray, np.ndarray, str]:
-        """(axis values, concentrations (draws, points, species), axis name)."""
+    def feed(self, scenario: Scenario) -> np.ndarray:
+        return self.vector(scenario.initial)
+
+    def feeds(self, scenario: Scenario) -> tuple[Feed, ...]:
+        """A dosed batch's feeds in the physics' form."""
+        return tuple(Feed(f.start, f.stop, f.rate, self.vector(f.concentration)) for f in scenario.feeds or ())
+
+    def programme_kelvin(self, scenario: Scenario, where: str) -> np.ndarray:
+        """The scenario's programme as (time, K) rows, each temperature flagged where it extrapolates."""
+        programme = np.array(scenario.programme, dtype=float)
+        programme[:, 1] = _to_kelvin(self.study, programme[:, 1], f"{where}.programme")
+        for kelvin_point in programme[:, 1]:
+            self.flag(scenario.name, kelvin_point, "programme temperature")
+        return programme
+
+    def profiles(
+        self, scenario: Scenario, kelvin: float | None, where: str
+    ) -> tuple[np.ndarray, np.ndarray, str, np.ndarray | None]:
+        """(axis values, concentrations (draws, points, species), axis name, liquid volume (points,) of a dosed
+        batch or None)."""
         network, feed = self.study.network, self.feed(scenario)
         if scenario.reactor == "cstr":
             taus = np.array(sorted(scenario.residence_times))
@@ -258,18 +327,22 @@ class _Predictor:
                         f"scenario {scenario.name}: {label} steady states in {share:.1%} of draws and "
                         "residence times" + (" (the stable branch is reported)" if label == "multiple" else "")
                     )
-            return taus, solution.concentrations, "residence_time"
+            return taus, solution.concentrations, "residence_time", None
         if scenario.reactor == "programmed_batch":
-            programme = np.array(scenario.programme, dtype=float)
-            programme[:, 1] = _to_kelvin(self.study, programme[:, 1], f"{where}.programme")
-            for kelvin_point in programme[:, 1]:
-                self.flag(scenario.name, kelvin_point, "programme temperature")
+            programme = self.programme_kelvin(scenario, where)
             until = scenario.until or float(programme[-1, 0])
             times = np.linspace(0.0, until, scenario.points)
-            return times, programmed_batch_profiles(network, self.draws, programme, feed, times), "time"
+            return times, programmed_batch_profiles(network, self.draws, programme, feed, times), "time", None
+        if scenario.reactor == "dosed_batch":
+            history = kelvin if scenario.programme is None else self.programme_kelvin(scenario, where)
+            times = np.union1d(np.linspace(0.0, scenario.until, scenario.points), _kinks(scenario))
+            concentrations, volume = dosed_batch_profiles(
+                network, self.draws, history, feed, scenario.volume, self.feeds(scenario), times
+            )
+            return times, concentrations, "time", volume
         times = np.linspace(0.0, scenario.until, scenario.points)
         axis = "space_time" if scenario.reactor == "pfr" else "time"
-        return times, batch_profiles(network, self.draws, kelvin, feed, times), axis
+        return times, batch_profiles(network, self.draws, kelvin, feed, times), axis, None
 
     def conversion_at(self, scenario: Scenario, kelvin: float | np.ndarray, when: float) -> np.ndarray:
         """Conversion of the key reactant per draw at one time (batch, PFR) or residence time (CSTR);
@@ -330,22 +403,29 @@ class _Predictor:
         if scenario.temperature is not None:
             kelvin = float(_to_kelvin(study, scenario.temperature, f"{where}.temperature")[0])
             self.flag(name, kelvin, "temperature")
-        axis, profiles, axis_name = self.profiles(scenario, kelvin, where)
+        axis, profiles, axis_name, volume = self.profiles(scenario, kelvin, where)
         series: dict[str, tuple[str, np.ndarray]] = {
             f"c[{s}]": (conc_unit, profiles[:, :, i]) for i, s in enumerate(study.species)
         }
-        feed = self.feed(scenario)
+        # What the vessel holds against what was charged into it so far, per species: concentrations for a
+        # constant volume, amounts (c V; the initial charge plus the feeds) for a dosed batch.
+        present, charged = profiles, np.broadcast_to(self.feed(scenario), (axis.size, len(study.species)))
+        if volume is not None:
+            present = profiles * volume[None, :, None]
+            charged = charged * scenario.volume + fed_amounts(self.feeds(scenario), axis, len(study.species))
+            series.update(self.accumulation_series(scenario, axis, volume, present, charged))
         conversion = None
         if scenario.key_reactant is not None:
             key = study.species.index(scenario.key_reactant)
-            consumed = feed[key] - profiles[:, :, key]
-            conversion = consumed / feed[key]
-            series[f"conversion[{scenario.key_reactant}]"] = ("", conversion)
-            for product in scenario.products:
-                p = study.species.index(product)
-                formed = profiles[:, :, p] - feed[p]
-                series[f"yield[{product}]"] = ("", formed / feed[key])
-                with np.errstate(divide="ignore", invalid="ignore"):
+            consumed = charged[:, key] - present[:, :, key]
+            with np.errstate(divide="ignore", invalid="ignore"):
+                # Nothing converted before any key reactant is in the vessel (a dosed key reactant at t = 0).
+                conversion = np.where(charged[:, key] > 0, consumed / charged[:, key], 0.0)
+                series[f"conversion[{scenario.key_reactant}]"] = ("", conversion)
+                for product in scenario.products:
+                    p = study.species.index(product)
+                    formed = present[:, :, p] - charged[:, p]
+                    series[f"yield[{product}]"] = ("", np.where(charged[:, key] > 0, formed / charged[:, key], 0.0))
                     series[f"selectivity[{product}]"] = ("", np.where(consumed > 0, formed / consumed, np.nan))
         rows = []
         for quantity, (unit, values) in series.items():
@@ -365,8 +445,63 @@ class _Predictor:
                     }
                 )
         scalars = self.scalars(scenario, kelvin, axis, profiles, conversion, axis_name, where, stated, time_unit)
+        if volume is not None:
+            scalars += self.accumulation_scalars(scenario, axis, present, charged)
         table = pd.DataFrame(rows, columns=TABLE_COLUMNS).rename(columns={"time": axis_name})
         return table, scalars
+
+    def dosed_species(self, scenario: Scenario) -> list[str]:
+        """The species whose accumulation is reported: ``dosed``, else every species a feed carries."""
+        if scenario.dosed is not None:
+            return list(scenario.dosed)
+        carried = {name for feed in scenario.feeds for name, value in feed.concentration.items() if value > 0}
+        return [name for name in self.study.species if name in carried]
+
+    def accumulation_series(
+        self, scenario: Scenario, axis: np.ndarray, volume: np.ndarray, present: np.ndarray, charged: np.ndarray
+    ) -> dict[str, tuple[str, np.ndarray]]:
+        """Profiles of a dosed batch besides the concentrations: the liquid volume, and per dosed species the
+        amount fed so far, the amount still in the vessel (c V) and its share of the amount charged so far."""
+        study = self.study
+        amount = amount_unit(study.units.concentration, study.units.volume)
+        draws = present.shape[0]
+        fed = fed_amounts(self.feeds(scenario), axis, len(study.species))
+        out = {"volume": (study.units.volume, np.broadcast_to(volume, (draws, axis.size)))}
+        for name in self.dosed_species(scenario):
+            i = study.species.index(name)
+            out[f"dosed[{name}]"] = (amount, np.broadcast_to(fed[:, i], (draws, axis.size)))
+            out[f"accumulation[{name}]"] = (amount, present[:, :, i])
+            out[f"accumulation_share[{name}]"] = ("", _share(present[:, :, i], charged[:, i]))
+        return out
+
+    def accumulation_scalars(
+        self, scenario: Scenario, axis: np.ndarray, present: np.ndarray, charged: np.ndarray
+    ) -> list[dict]:
+        """Per dosed species: the largest amount in the vessel, when it is reached, and its share then."""
+        study, name = self.study, scenario.name
+        amount = amount_unit(study.units.concentration, study.units.volume)
+        out = []
+        for species in self.dosed_species(scenario):
+            i = study.species.index(species)
+            t_max, n_max = _maximum(axis, present[:, :, i], _kinks(scenario))
+            share = _share(present[:, :, i], charged[:, i])
+            at_max = np.array(
+                [np.interp(t, axis, row) if np.isfinite(t) else np.nan for t, row in zip(t_max, share, strict=True)]
+            )
+            out += [
+                _scalar(
+                    name, f"maximum accumulation of {species}", amount, n_max, "amount c V of unreacted dosed reagent"
+                ),
+                _scalar(name, f"time of maximum accumulation of {species}", study.units.time, t_max),
+                _scalar(
+                    name,
+                    f"accumulation share of {species} at its maximum",
+                    "",
+                    at_max,
+                    f"of the {species} charged so far (initial charge plus feeds), the part unreacted",
+                ),
+            ]
+        return out
 
     def scalars(
         self,
@@ -427,7 +562,7 @@ class _Predictor:
             )
         if scenario.intermediate is not None and scenario.reactor != "cstr":
             i = study.species.index(scenario.intermediate)
-            t_max, c_max = _maximum(axis, profiles[:, :, i])
+            t_max, c_max = _maximum(axis, profiles[:, :, i], _kinks(scenario))
             out.append(_scalar(name, f"{axis_name} of maximum {scenario.intermediate}", study_time, t_max))
             out.append(
                 _scalar(name, f"maximum concentration of {scenario.intermediate}", study.units.concentration, c_max)
@@ -453,6 +588,18 @@ class _Predictor:
             if found > 0:
                 self.flag(name, float(np.nanmedian(kelvin_needed)), "the temperature found")
         return out
+
+
+def _kinks(scenario: Scenario) -> np.ndarray:
+    """Times within a dosed batch where a feed starts or stops (the profiles' slopes jump there); empty otherwise."""
+    edges = [t for feed in scenario.feeds or () for t in (feed.start, feed.stop)]
+    return np.unique([t for t in edges if 0.0 < t < (scenario.until or 0.0)])
+
+
+def _share(amount: np.ndarray, charged: np.ndarray) -> np.ndarray:
+    """``amount`` (draws, times) as a share of ``charged`` (times,); NaN where nothing was charged yet."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(charged > 0, amount / charged, np.nan)
 
 
 def _measured_range(study: Study, attrs: dict) -> tuple[float, float]:
@@ -523,7 +670,9 @@ def predict(
     with StagedFolder(target, overwrite, inputs) as folder:
         for name, table in profiles.items():
             folder.write_csv(f"{name}.csv", table)
-            plots.prediction_plot(name, table, folder.path(f"{name}.png"), scenario_units.time)
+            # The figure holds concentrations and fractions; volumes and amounts are in the table and summary.
+            shown = table[table["quantity"].str.startswith("c[") | (table["unit"] == "")]
+            plots.prediction_plot(name, shown, folder.path(f"{name}.png"), scenario_units.time)
         folder.write_csv("summary.csv", summary)
         folder.write_text("cautions.txt", "\n".join([*notes, CAUTION]) + "\n")
         folder.write_text(
