@@ -161,10 +161,8 @@ def main() -> None:
         _, jacobian = measurements.solve(inputs)
         accepted, rejected, _ = measurements.solver.stats
         ms = float(np.median(samples[(name, label)])) * 1e3
-        ratio[(name, label)] = ms / (float(np.median(samples[(name, "isothermal")])) * 1e3)
-        print(
-            f"{name:<30}{label:<24}{jacobian.shape[1]:>8}{accepted:>7}{rejected:>9}{ms:>11.3f}{ratio[(name, label)]:>7.2f}"
-        )
+        share = ratio[(name, label)] = ms / (float(np.median(samples[(name, "isothermal")])) * 1e3)
+        print(f"{name:<30}{label:<24}{jacobian.shape[1]:>8}{accepted:>7}{rejected:>9}{ms:>11.3f}{share:>7.2f}")
     print()
     for name in NETWORKS:
         ramped, dosed = ratio[(name, "ramped")], ratio[(name, "dosed")]

@@ -24,7 +24,7 @@ from inference.physics.solution import NetworkSolver, SolverSettings, network_ke
 from inference.physics.stepping import DONE, Tolerances
 
 R_GAS = 8.314462618  # J/(mol K), CODATA 2018 (exact since the 2019 SI)
-#: The brief's tight setting: the solver's own global error then sits near 1e-9 of the largest concentration.
+#: Tolerances for comparisons with outside references: the solver's global error then stays below ~2e-9.
 TIGHT = SolverSettings(rtol=1e-10, atol_share=1e-13)
 #: For central differences: the solver's noise (steps chosen anew for each input) is then near 1e-11 of a
 #: concentration, far below the differences of the steps in ``STEPS``.
@@ -43,7 +43,6 @@ def solver_inputs(
 ):
     """``KineticInputs`` in solver form (one row per run of ``initial``); blocks left None are zero."""
     n_rev, n_sites, n_r = int(np.sum(net.reversible)), len(net.adsorption_sites), len(net.reactions)
-
     runs = np.atleast_2d(initial).shape[0]
 
     def row(values, size):
@@ -73,19 +72,23 @@ def solve_setup(net, setup, times, inputs, layout=None, settings=TIGHT, sensitiv
     return solver.solve(inputs, sensitivities=sensitivities)
 
 
-def integrate_with(method, net, setup, times, inputs):
-    """One run integrated by ``dopri_run`` or ``radau_run`` directly (no fallback between them)."""
+def integrate_with(method, net, setup, times, inputs, layout=None, settings=TIGHT):
+    """One run integrated by ``dopri_run`` or ``radau_run`` directly (no fallback between them): concentrations,
+    and with a ``layout`` their sensitivities (times, N, P)."""
     n = len(net.species)
     kernel = run_kernel(network_kernel(net, inputs), 0)
     conditions = run_conditions(build_conditions([setup], n), 0)
-    none = Sensitivities(np.zeros(0, np.int64), np.zeros(0, np.int64), np.zeros(0, np.int64))
-    tolerances = Tolerances(TIGHT.rtol, TIGHT.atol_share * float(np.max(inputs.initial)), 200_000)
-    out_c, out_s = np.empty((times.size, n)), np.empty((times.size, n, 0))
-    stats = np.zeros(3, dtype=np.int64)
-    initial = np.ascontiguousarray(inputs.initial[0])
-    status = method(initial, times, kernel, conditions, none, tolerances, out_c, out_s, stats)
+    params = NetworkSolver(net, [times], layout=layout).sensitivities
+    if layout is None:
+        params = Sensitivities(*(column[:0] for column in params))
+    tolerances = Tolerances(settings.rtol, settings.atol_share * float(np.max(inputs.initial)), 1_000_000)
+    out_c, out_s = np.empty((times.size, n)), np.empty((times.size, n, params.kind.size))
+    status = method(
+        np.ascontiguousarray(inputs.initial[0]), times, kernel, conditions, params, tolerances, out_c, out_s,
+        np.zeros(3, dtype=np.int64),
+    )  # fmt: skip
     assert status == DONE
-    return out_c, stats
+    return (out_c, out_s) if layout is not None else out_c
 
 
 # ------------------------------------------------------------------------------------- temperature histories
@@ -125,7 +128,7 @@ def test_first_order_step_under_a_ramp_matches_scipy_and_the_exact_integral(meth
     if method is None:
         c = solve_setup(net, setup, times, inputs, layout).concentrations[0]
     else:
-        c, _ = integrate_with(method, net, setup, times, inputs)
+        c = integrate_with(method, net, setup, times, inputs)
     reference = solve_ivp(
         lambda t, y: [-k_at(t) * y[0], k_at(t) * y[0]], (0.0, 100.0), [1.0, 0.0], t_eval=times, method="DOP853",
         **REFERENCE,
@@ -271,7 +274,7 @@ def test_feed_programmes_match_the_piecewise_closed_form(programme, method):
     if method is None:
         c = solve_setup(net, setup, times, inputs).concentrations[0]
     else:
-        c, _ = integrate_with(method, net, setup, times, inputs)
+        c = integrate_with(method, net, setup, times, inputs)
     n_a, n_b, volume = semibatch_first_order(k, c_feed, volume0, c0 * volume0, pieces, times)
     np.testing.assert_allclose(c[:, 0], n_a / volume, rtol=1e-8)
     np.testing.assert_allclose(c[:, 1], n_b / volume, rtol=1e-8, atol=1e-13)
@@ -364,6 +367,44 @@ def test_orders_below_one_at_zero_concentration(case):
     numeric = central_differences(lambda x: solver.solve(inputs(x), sensitivities=False).concentrations[0], base)
     assert np.all(np.isfinite(result.sensitivities[0]))
     np.testing.assert_allclose(result.sensitivities[0], numeric, rtol=1e-5, atol=1e-8)
+
+
+@pytest.mark.parametrize("method", [dopri_run, radau_run], ids=["dopri", "radau"])
+def test_each_integrators_sensitivities_under_a_programme_and_a_feed(method):
+    # Both integrators on their own (the solver picks one per run), with every kind of parameter at once: ln k,
+    # ln K_c, ln K_ads, a fitted order, an initial concentration, Ea/R, dH/R, dH_ads/R and a fitted exponent,
+    # while T follows a three-point programme and B is fed over [5, 25]: sensitivities against central
+    # differences of the same integrator.
+    net = network("ABC", "A <=> B", "B -> C", saturation=((0.0, ()), (1.0, ("B",))))
+    layout = SensitivityLayout(
+        net, free_orders=((1, 1),), free_initial=(0,), temperature_varies=True, fitted_exponents=(1,)
+    )
+    feed = Feed(5.0, 25.0, 0.02, np.array([0.0, 2.0, 0.0]))
+    setup = RunSetup(np.array([[0.0, 293.0], [20.0, 333.0], [40.0, 323.0]]), horizon=60.0, feeds=(feed,))
+    times = np.array([5.0, 15.0, 25.0, 45.0, 60.0])
+    # ln k (2), ln K_c, ln K_ads, order of B in step 1, c_A0, Ea/R (2), dH/R, dH_ads/R, exponent of step 1
+    base = np.array([*np.log([0.08, 0.05, 3.0, 1.5]), 1.1, 1.0, 7000.0, 9000.0, -4000.0, -3000.0, 0.8])
+    steps = np.array([1e-3] * 6 + [5.0] * 4 + [2e-2])  # as ``STEPS`` below
+
+    def inputs(x):
+        orders = net.forward_orders.copy()
+        orders[1, 1] = x[4]
+        return solver_inputs(
+            net, x[0:2], [x[5], 0.1, 0.0], x[2:3], x[3:4], x[6:8], x[8:9], x[9:10], [0.5, x[10]]
+        )._replace(orders=orders)
+
+    _, exact = integrate_with(method, net, setup, times, inputs(base), layout, FINE)
+    numeric = np.stack(
+        [
+            (integrate_with(method, net, setup, times, inputs(base + h * e), settings=FINE)
+             - integrate_with(method, net, setup, times, inputs(base - h * e), settings=FINE)) / (2 * h)
+            for h, e in zip(steps, np.eye(base.size), strict=True)
+        ],
+        axis=-1,
+    )  # fmt: skip
+    scale = np.max(np.abs(numeric), axis=(0, 1))
+    assert np.all(scale > 1e-6)  # every parameter moves the profile (the slopes by ~1e-5 per K)
+    assert np.all(np.abs(exact - numeric) <= 1e-5 * scale), np.max(np.abs(exact - numeric) / scale, axis=(0, 1))
 
 
 # ------------------------------------------------------------------------------------------- continuous flow
@@ -524,9 +565,8 @@ def op_jacobian_check(net, layout, obs, free, fixed_exponents=None):
     return base, exact
 
 
-def columns(op_shapes_layout, name):
-    """Flattened Jacobian columns of block ``name``."""
-    layout, n_runs = op_shapes_layout
+def columns(layout, n_runs, name):
+    """The Op's Jacobian columns of block ``name`` (its inputs flattened in ``BLOCKS`` order)."""
     start = 0
     for block in BLOCKS:
         size = block.count(layout) * (n_runs if block.per_run else 1)
@@ -560,33 +600,43 @@ def test_op_jacobian_of_ramped_runs_with_every_temperature_slope():
         exponent=[0.8],
     )
     _, exact = op_jacobian_check(net, layout, obs, free, fixed_exponents=np.array([0.5, 0.0]))
-    shape = (layout, 2)
     for name in ("activation", "eq_enthalpy", "ads_enthalpy", "exponent"):
-        part = exact[:, columns(shape, name)]
+        part = exact[:, columns(layout, 2, name)]
         assert np.max(np.abs(part[:15])) > 1e-6  # the ramped run depends on every slope
         np.testing.assert_array_equal(part[15:], 0.0)  # the isothermal run at its nominal T on none
 
 
 def dosed_setups():
-    """Run 0: B fed over the first half; run 1: B fed from 5 to 15 and again, faster, from 20 to 25."""
+    """Run 0: B fed over the first half; run 1: B fed from 5 to 15 and again, faster, from 20 to 25; run 2: B fed
+    from 10 to 40 while the temperature rises from 300 K to 340 K over the first 25."""
     b = np.array([0.0, 5.0, 0.0, 0.0])
     return [
         RunSetup.isothermal(320.0, volume=1.0, feeds=(Feed(0.0, 30.0, 0.01, b),)),
         RunSetup.isothermal(335.0, volume=0.5, feeds=(Feed(5.0, 15.0, 0.02, b), Feed(20.0, 25.0, 0.04, b))),
+        RunSetup(np.array([[0.0, 300.0], [25.0, 340.0]]), horizon=60.0, feeds=(Feed(10.0, 40.0, 0.01, b),)),
     ]
 
 
 def test_op_jacobian_of_dosed_runs():
-    # A + B -> C, C -> D with B dosed; A's initial concentration uncertain, B's order in step 0 fitted (below
-    # one, where d r / d c_B is infinite while B is still at zero).
+    # A + B -> C, C -> D with B dosed (one run also heated); A's initial concentration uncertain, B's order in
+    # step 0 fitted (below one, where d r / d c_B is infinite while B is still at zero).
     net = network("ABCD", "A + B -> C", "C -> D")
-    layout = SensitivityLayout(net, free_orders=((0, 1),), free_initial=(0,))
-    times = [np.array([2.0, 5.0, 10.0, 15.0, 20.0, 30.0, 45.0, 60.0])] * 2
-    measured = [(r, t, i) for r in range(2) for t in range(8) for i in (0, 2, 3)]
-    obs = observations(dosed_setups(), times, [[1.0, 0.0, 0.0, 0.0], [0.6, 0.0, 0.0, 0.0]], measured)
-    free = KineticInputs(np.log([[0.3, 0.02], [0.5, 0.04]]), np.zeros((2, 0)), np.zeros((2, 0)), [0.7], [[1.0], [0.6]])
+    layout = SensitivityLayout(net, free_orders=((0, 1),), free_initial=(0,), temperature_varies=True)
+    times = [np.array([2.0, 5.0, 10.0, 15.0, 20.0, 30.0, 45.0, 60.0])] * 3
+    measured = [(r, t, i) for r in range(3) for t in range(8) for i in (0, 2, 3)]
+    initial = [[1.0, 0.0, 0.0, 0.0], [0.6, 0.0, 0.0, 0.0], [0.8, 0.0, 0.0, 0.0]]
+    obs = observations(dosed_setups(), times, initial, measured)
+    free = KineticInputs(
+        np.log([[0.3, 0.02], [0.5, 0.04], [0.4, 0.03]]),
+        np.zeros((3, 0)),
+        np.zeros((3, 0)),
+        [0.7],
+        [[1.0], [0.6], [0.8]],
+        activation=[8000.0, 10000.0],
+    )
     _, exact = op_jacobian_check(net, layout, obs, free)
-    assert np.max(np.abs(exact[:, columns((layout, 2), "initial")])) > 0.1
+    assert np.max(np.abs(exact[:, columns(layout, 3, "initial")])) > 0.1
+    assert np.max(np.abs(exact[48:, columns(layout, 3, "activation")])) > 1e-6  # the heated run
 
 
 def test_op_jacobian_and_value_of_a_measured_amount():
@@ -625,5 +675,5 @@ def test_op_jacobian_of_steady_state_rows_with_an_uncertain_feed():
     _, exact = op_jacobian_check(net, layout, obs, free)
     # The CSTR's feed enters: d c_A / d c_A0 = 1 / (1 + k1 tau) (Levenspiel, ch. 5, first order; from memory).
     np.testing.assert_allclose(
-        exact[[0, 3], columns((layout, 3), "initial")][[0, 1], [0, 1]], [1 / 1.6, 1 / 5.0], rtol=1e-9
+        exact[[0, 3], columns(layout, 3, "initial")][[0, 1], [0, 1]], [1 / 1.6, 1 / 5.0], rtol=1e-9
     )

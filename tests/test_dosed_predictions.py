@@ -202,10 +202,11 @@ def test_accumulation_equals_c_times_v_of_the_profiles(dosed_predictions):
     rows = {q: part.set_index("time") for q, part in table.groupby("quantity")}
     columns = ["q05", "q25", "median", "q75", "q95"]
     volume = rows["volume"]["median"]
-    np.testing.assert_allclose(rows["accumulation[A]"][columns], rows["c[A]"][columns].mul(volume, axis=0), rtol=1e-12)
+    # The CSV holds 8 significant digits: products of rounded values agree to a few parts in 1e8.
+    np.testing.assert_allclose(rows["accumulation[A]"][columns], rows["c[A]"][columns].mul(volume, axis=0), rtol=5e-7)
     charged = 0.05 * 1.0 + rows["dosed[A]"]["median"]
     np.testing.assert_allclose(
-        rows["accumulation_share[A]"][columns], rows["accumulation[A]"][columns].div(charged, axis=0), rtol=1e-12
+        rows["accumulation_share[A]"][columns], rows["accumulation[A]"][columns].div(charged, axis=0), rtol=5e-7
     )
 
     posterior = result.idata.posterior

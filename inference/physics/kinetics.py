@@ -166,9 +166,9 @@ def rates_and_jacobian(c, net, x, log_ratio, rate, forward_rate, reverse_rate, d
         rate[j] = value - back
         for m in range(n_species):
             derivative = 0.0
-            # d(c^a)/dc is infinite at c = 0 for a < 1 (a fitted order, a dosed species still at zero, a half
-            # coefficient): taken as 0 there, the limit of J s along a profile that leaves zero, instead of inf
-            # (inf * 0 = NaN in the sensitivities).
+            # d(c^a)/dc is infinite at c = 0 for 0 < a < 1 (a fitted order of a species not yet dosed, a half
+            # coefficient of a product): the term is left out there, since inf times a zero sensitivity is NaN;
+            # J s tends to 0 as c leaves zero, so the sensitivities keep their limit.
             if forward[j, m] != 0.0 and (c[m] > 0.0 or forward[j, m] >= 1.0):
                 part = k * forward[j, m] * _power(c[m], forward[j, m] - 1.0)
                 for i in range(n_species):

@@ -416,7 +416,9 @@ def simulate_dosed(seed: int = DOSED_SEED) -> tuple[list[str], list[str], list[s
     for (run, *_), sampled, profile in zip(DOSED_RUNS, times, dosed_profiles(setups, times, initial), strict=True):
         for t, (a, _, p, i) in zip(sampled, profile, strict=True):
             noisy = np.array([a, p, i]) * np.exp(DOSED_NOISE * rng.standard_normal(3))
-            cells = [f"{v:.5g}" for v in noisy[:2]] + [f"{noisy[2]:.5g}" if noisy[2] >= REPORTING_LIMIT else ""]
+            # Blank where the true I is below the limit: a cut on the noisy value would keep only the high draws
+            # near the limit and bias the rest upwards (values below a limit need a censored likelihood).
+            cells = [f"{v:.5g}" for v in noisy[:2]] + [f"{noisy[2]:.5g}" if i >= REPORTING_LIMIT else ""]
             measurements.append(f"{run},{t:g}," + ",".join(cells))
     return runs, log, feeds, measurements
 
