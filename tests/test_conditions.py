@@ -156,6 +156,7 @@ def test_reversible_step_follows_van_t_hoff_under_a_cooling_programme():
 
     times = np.array([0.0, 5.0, 10.0, 20.0, 30.0, 40.0, 60.0, 100.0, 800.0])
     t_n = setup.nominal
+    assert t_n == pytest.approx((20 * 345.0 + 20 * 322.5 + 20 * 315.0) / 60, rel=1e-14)  # mean T over 60, by hand
     inputs = solver_inputs(
         net,
         [math.log(arrhenius(ln_a, ea, t_n))],

@@ -270,3 +270,28 @@ def test_bad_declarations_exit_2_naming_the_key(tmp_path, run_cli, replace, wher
     assert code == 2
     assert len(err.strip().splitlines()) == 1, err
     assert "study.yaml" in err and "observations" in err, err
+
+
+def test_verdict_names_a_factor_confounded_with_an_initial_concentration():
+    # Draws where ln(response) = -ln(initial) + small noise (the data pin only their product) against draws
+    # where they are independent: only the first is called confounded.
+    import xarray as xr
+
+    from inference.posterior.diagnostics import confounded_factors
+
+    rng = np.random.default_rng(2)
+    ln_c0 = rng.normal(0.0, 0.2, (2, 500))
+
+    def posterior(ln_response):
+        return xr.Dataset(
+            {
+                "response": (("chain", "draw", "response_factor"), np.exp(ln_response)[..., None]),
+                "initial": (("chain", "draw", "run", "uncertain_species"), np.exp(ln_c0)[..., None, None]),
+                "Ea": (("chain", "draw", "reaction"), rng.normal(6e4, 1e3, (2, 500, 1))),
+            },
+            coords={"response_factor": ["area_A"], "run": ["r1"], "uncertain_species": ["A"], "reaction": ["r"]},
+        )
+
+    advice = confounded_factors(posterior(9.0 - ln_c0 + rng.normal(0.0, 0.01, (2, 500))))
+    assert len(advice) == 1 and "response[area_A] and initial[r1, A] are confounded" in advice[0], advice
+    assert confounded_factors(posterior(rng.normal(9.0, 0.2, (2, 500)))) == []

@@ -118,13 +118,25 @@ def volume_at(cond, piece, t):
     return cond.dose_volume[piece] + cond.dose_flow[piece] * (t - cond.dose_time[piece])
 
 
+#: A temperature programme with at most this many points has its steps end at each point (where dT/dt jumps, an
+#: error estimate straddling the kink rejects steps); a denser reactor log is smooth enough to step across.
+KNOT_STOPS_MAX = 32
+
+
 @numba.njit(cache=True)
 def next_stop(cond, t):
-    """The start of the next dosing interval after t (the inflow jumps there), or infinity."""
+    """The next time after t where a step should end: the start of the next dosing interval (the inflow jumps
+    there) or, in a programme of few points, its next point; infinity when there is none."""
+    stop = math.inf
     piece = dose_piece(cond, t)
     if piece + 1 < cond.dose_time.shape[0]:
-        return cond.dose_time[piece + 1]
-    return math.inf
+        stop = cond.dose_time[piece + 1]
+    knots = cond.knot_time
+    if cond.ramped and knots.shape[0] <= KNOT_STOPS_MAX:
+        upper = np.searchsorted(knots, t, side="right")
+        if upper < knots.shape[0]:
+            stop = min(stop, knots[upper])
+    return stop
 
 
 @dataclass(frozen=True)

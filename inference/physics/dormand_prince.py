@@ -68,7 +68,8 @@ def _augmented_rhs(u, t, piece, n, net, cond, params, out, work):
 @numba.njit(cache=True)
 def dopri_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
     """Like ``radau_run`` with the explicit Dormand-Prince pair; FAILED once ``max_steps`` are used. Steps end
-    where the inflow jumps (``conditions.next_stop``), so no step straddles a discontinuity."""
+    where the inflow jumps and at the points of a short temperature programme (``conditions.next_stop``), so no
+    step straddles a discontinuity."""
     rtol, atol, max_steps = tolerances.rtol, tolerances.atol, tolerances.max_steps
     forward = net.forward
     kinds = params.kind
@@ -186,7 +187,7 @@ def dopri_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
             u[i] = new[i]
             stages[0, i] = stages[6, i]
         t = t_new
-        if t >= stop:  # the inflow jumps here: the next step starts from the new interval's derivative
+        if t >= stop:  # the inflow (or dT/dt) jumps here: the next step starts from the new derivative
             piece = dose_piece(cond, t)
             stop = next_stop(cond, t)
             _augmented_rhs(u, t, piece, n, net, cond, params, stages[0], work)
