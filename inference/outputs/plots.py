@@ -87,6 +87,9 @@ def run_fit_plot(
         fig, ax = plt.subplots(figsize=(6.4, 4.2))
     colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
     plain = _concentration_rows(study, obs)
+    volume = obs.factor if obs.factor is not None else np.ones(obs.value.size)
+    if obs.design is not None and study.measured_as == "amount":
+        volume = obs.design.multiplier
     observed = set(obs.species_index[(obs.run_index == run) & plain].tolist())
     q05, median, q95 = np.nanquantile(curves, [0.05, 0.5, 0.95], axis=0)
     for i, species in enumerate(study.species):
@@ -95,8 +98,22 @@ def run_fit_plot(
         ax.fill_between(times, q05[:, i], q95[:, i], color=colour, alpha=0.2, linewidth=0)
         ax.plot(times, median[:, i], style, color=colour, label=species + ("" if i in observed else " (not measured)"))
         rows = (obs.run_index == run) & (obs.species_index == i) & plain
+        flags = obs.censored
+        for side, marker in (("below", "v"), ("above", "^")):
+            limit = rows & (flags == side)
+            ax.plot(
+                checks["time"][limit],
+                (checks["observed"] / volume)[limit],
+                marker,
+                markerfacecolor="none",
+                color=colour,
+                markersize=6,
+            )
+        rows &= flags == ""
         if rows.any():
-            table = checks[rows]
+            table = checks[rows].copy()
+            for column in ("observed", "q05", "q95"):  # measured amounts are drawn as concentrations
+                table[column] = table[column] / volume[rows]
             ax.errorbar(
                 table["time"],
                 table["observed"],
@@ -126,7 +143,8 @@ def run_fit_plot(
     ax.text(
         0.99,
         0.01,
-        "bands: 90 % credible; bars: 90 % predictive",
+        "bands: 90 % credible; bars: 90 % predictive; open triangles: beyond a detection limit"
+        + ("; amounts drawn as concentrations (÷ volume)" if study.measured_as == "amount" else ""),
         transform=ax.transAxes,
         ha="right",
         va="bottom",
