@@ -1,4 +1,4 @@
-"""Checks of reactor scenarios against the study they are applied to (names, amounts, target kinds)."""
+"""Checks of reactor scenarios against the study they are applied to (names, amounts, target kinds, dosing)."""
 
 from __future__ import annotations
 
@@ -10,7 +10,8 @@ from .study import Study
 
 
 def check_scenario(scenario: Scenario, study: Study, where: str) -> None:
-    """Every species and reaction a scenario names must be the study's; raises ``StudyError`` naming the key."""
+    """Every species and reaction a scenario names must be the study's, and a dosed batch's volume and feeds make
+    sense; raises ``StudyError`` naming the key."""
     species = study.species
     named = [("initial", name) for name in scenario.initial] + [("products", name) for name in scenario.products]
     if scenario.key_reactant is not None:

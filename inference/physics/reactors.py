@@ -28,8 +28,9 @@ from .parameters import ParameterDraws
 from .solution import NetworkSolver, SolverFailure, SolverSettings, network_kernel
 from .stepping import evaluate
 
-#: Relative tolerance of runs whose temperature or volume changes: steps are not cut at the kinks of a temperature
-#: programme, and a step across one loses accuracy, so these runs are integrated more tightly than a plain batch.
+#: Relative tolerance of runs whose temperature or volume changes, tighter than a plain batch's: steps end at the
+#: points of short programmes only (``conditions.KNOT_STOPS_MAX``), and a step across a kink of a longer one (or of
+#: a reactor log) loses accuracy.
 PROGRAMMED_RTOL = 1e-8
 
 
