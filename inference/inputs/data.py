@@ -317,6 +317,18 @@ class Observations:
     def experiments(self) -> tuple[str, ...]:
         return self.experiment or self.run_ids
 
+    def kelvin_span(self) -> tuple[float, float]:
+        """The lowest and highest temperature (K) the runs went through while they were measured: their fixed
+        temperatures, or their histories from 0 to their last measurement."""
+        low, high = float(np.min(self.temperature_K)), float(np.max(self.temperature_K))
+        for setup, times in zip(self.setups, self.times, strict=True):
+            if setup.ramped:
+                history = np.asarray(setup.history, dtype=float)
+                inside = history[history[:, 0] <= times[-1], 1]
+                end = np.interp(times[-1], history[:, 0], history[:, 1])
+                low, high = min(low, float(inside.min()), end), max(high, float(inside.max()), end)
+        return low, high
+
     def measurement_kelvin(self) -> np.ndarray:
         """The temperature (K) at each measurement: the run's history at that time, or its fixed temperature."""
         if not self.setups:

@@ -16,7 +16,7 @@ tau z, tau = 0.25), runs at 50 and 70 degC from 0.5 and 2.0 mol/L; A and P sampl
 Dosed scenario (invented): a substrate A is charged (800 mL), a reagent B (4 mol/L) is dosed over 30-60 min
 while the jacket heats the batch from about 20 degC to a set point of 50 to 70 degC; A + B -> P (second order)
 and the product slowly goes on to an impurity, P -> I (first order, higher Ea). Five runs, each with its reactor
-temperature log (every 5 min) and pump programme; A, P and I sampled every 20-30 min by HPLC with 4 % lognormal
+temperature log (every 10 min) and pump programme; A, P and I sampled every 20-30 min by HPLC with 4 % lognormal
 error, I left blank below the reporting limit, B not measured. Profiles come from Arrhenia's compiled solver
 (``NetworkSolver`` under each run's ``RunSetup`` and ``Feed``, rtol 1e-10); ``tests/test_demo.py`` checks them
 against ``scipy.integrate.solve_ivp``.
@@ -69,7 +69,7 @@ CATALYST_LOTS = ("lot-A", "lot-B", "lot-C")
 CATALYST_CONDITIONS = ((50.0, 0.5), (50.0, 2.0), (70.0, 0.5), (70.0, 2.0))  # degC, A0 in mol/L
 CATALYST_NOISE = 0.03
 
-DOSED_SEED = 20261204
+DOSED_SEED = 20261211
 TRUE_DOSED = {  # reaction: (equation, k at 60 degC, Ea in J/mol)
     "coupling": ("A + B -> P", 0.12, 65_000.0),  # L/(mol min)
     "overreaction": ("P -> I", 0.0006, 105_000.0),  # 1/min
@@ -79,7 +79,7 @@ DOSED_NOISE = 0.04
 DOSED_CHARGE_ML = 800.0  # liquid volume charged with A
 DOSED_FEED_B = 4.0  # mol/L of B in the dosed solution
 HEATUP_MINUTES = 12.0  # time constant of the batch temperature's approach to the set point
-LOG_INTERVAL = 5.0  # min between lines of the reactor's temperature log
+LOG_INTERVAL = 10.0  # min between lines of the reactor's temperature log
 REPORTING_LIMIT = 0.002  # mol/L: HPLC results of I below it are left blank
 DOSED_RUNS = (  # run id, set point degC, batch degC at t = 0, A0 mol/L, pump programme, sampling interval, samples
     # pump programme: (start, stop, mL/min) rows of the B solution; about 1.15 equivalents of B in each run
@@ -136,7 +136,7 @@ sampling: {draws: 500, tune: 500, chains: 4, seed: 1, target_accept: 0.95}
 
 DOSED_STUDY_TEXT = """\
 # Demo study of Arrhenia: an invented semi-batch coupling A + B -> P, B dosed during the heat-up, with the
-# consecutive impurity P -> I. Data simulated by inference/workflows/demo.py (seed 20261204). True values at 60 degC:
+# consecutive impurity P -> I. Data simulated by inference/workflows/demo.py (seed 20261211). True values at 60 degC:
 #   coupling k = 0.12 L/(mol min), Ea = 65 kJ/mol;  overreaction k = 0.0006 1/min, Ea = 105 kJ/mol.
 study: demo-dosed-heatup
 title: Coupling with B dosed during the heat-up, and the impurity it leads to (invented demo data)

@@ -121,7 +121,7 @@ def _fit(
         tables=problem.extra_tables(),
         correlations=correlation_table(study, idata.posterior, temperature_ref),
         fit_checks=fit_checks,
-        extrapolations=extrapolation_notes(study, problem.temperatures_K),
+        extrapolations=extrapolation_notes(study, np.array(problem.temperature_span_K)),
         idata=idata,
     )
     steps.done("summarised", f"verdict {diagnostics.verdict}")
@@ -197,7 +197,7 @@ def _write(
         },
         "seed": sampling["seed"],
         "measurement_groups": problem.measurement_groups(),
-        "temperature_range_K": [float(np.min(problem.temperatures_K)), float(np.max(problem.temperatures_K))],
+        "temperature_range_K": list(problem.temperature_span_K),
     }
     for group in idata.groups():
         idata[group].attrs["arrhenia"] = json.dumps(attrs, sort_keys=True)

@@ -51,6 +51,9 @@ class Problem(Protocol):
     @property
     def temperatures_K(self) -> np.ndarray: ...
 
+    @property
+    def temperature_span_K(self) -> tuple[float, float]: ...
+
     def summary_line(self) -> str: ...
 
     def warnings(self) -> list[str]: ...
@@ -118,11 +121,13 @@ def _prior_lines(study: Study) -> list[str]:
     return lines
 
 
-def _temperature_lines(study: Study, measured_K: np.ndarray) -> list[str]:
+def _temperature_lines(study: Study, measured_K: np.ndarray, span_K: tuple[float, float]) -> list[str]:
+    """The temperatures of the data (``measured_K``: one per run or point, nominal for a run with a history;
+    ``span_K``: the range the runs went through) and the reference temperature."""
     from ..physics.arrhenius import auto_reference_temperature
 
     unit = study.units.temperature
-    low, high = units.kelvin_to([np.min(measured_K), np.max(measured_K)], unit)
+    low, high = units.kelvin_to(list(span_K), unit)
     reference = study.reference_temperature_K or auto_reference_temperature(measured_K)
     source = "auto, 1/mean(1/T)" if study.reference_temperature_K is None else "from the study file"
     return [
@@ -213,6 +218,10 @@ class RateConstantProblem:
     def temperatures_K(self) -> np.ndarray:
         return self.data.temperature_K
 
+    @property
+    def temperature_span_K(self) -> tuple[float, float]:
+        return float(np.min(self.data.temperature_K)), float(np.max(self.data.temperature_K))
+
     def summary_line(self) -> str:
         return f"{len(self.study.reactions)} reaction(s), {self.data.k.size} measured rate constants"
 
@@ -222,7 +231,7 @@ class RateConstantProblem:
 
     def check_lines(self) -> list[str]:
         lines = [f"  data: {self.data.k.size} measured rate constants from {self.data.path}"]
-        lines += _temperature_lines(self.study, self.temperatures_K)
+        lines += _temperature_lines(self.study, self.temperatures_K, self.temperature_span_K)
         lines += ["  reactions:", *_prior_lines(self.study)]
         if self.data.ln_k_sd is not None:
             lines.append("  noise: per-point errors stated in the data file (sd of ln k)")
@@ -287,7 +296,12 @@ class NetworkProblem:
 
     @property
     def temperatures_K(self) -> np.ndarray:
+        """One per run: its temperature, or the time-weighted mean of its history."""
         return self.obs.temperature_K
+
+    @property
+    def temperature_span_K(self) -> tuple[float, float]:
+        return self.obs.kelvin_span()
 
     def summary_line(self) -> str:
         return (
@@ -401,7 +415,7 @@ class NetworkProblem:
             f"  data: {source}",
             f"  experiments: {_experiment_counts(obs)}",
         ]
-        lines += _temperature_lines(study, self.temperatures_K)
+        lines += _temperature_lines(study, self.temperatures_K, self.temperature_span_K)
         lines += ["  reactions:", *_prior_lines(study)]
         if study.initial_uncertainty:
             lines.append(

@@ -27,7 +27,7 @@ from scipy.optimize import minimize_scalar
 from ..errors import StudyError
 from ..inputs import units
 from ..inputs.config import format_validation_error, lists_to_tuples, load_study, read_yaml
-from ..inputs.data import read_runs
+from ..inputs.data import read_observations
 from ..inputs.scenarios import check_scenario
 from ..inputs.schema import Scenario, ScenarioFile
 from ..inputs.study import Study
@@ -606,8 +606,7 @@ def _measured_range(study: Study, attrs: dict) -> tuple[float, float]:
     if "temperature_range_K" in attrs:
         low, high = attrs["temperature_range_K"]
         return float(low), float(high)
-    kelvin = read_runs(study).temperature_K
-    return float(kelvin.min()), float(kelvin.max())
+    return read_observations(study).kelvin_span()
 
 
 def predict(
