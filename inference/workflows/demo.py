@@ -90,6 +90,16 @@ DOSED_RUNS = (  # run id, set point degC, batch degC at t = 0, A0 mol/L, pump pr
     ("S70", 70.0, 22.0, 0.95, ((0.0, 40.0, 5.5),), 20.0, 6),
 )
 
+AREA_SEED = 20261213
+TRUE_AREA = {  # reaction: (equation, k at 60 degC in 1/min, Ea in J/mol)
+    "isomerisation": ("A -> P", 0.02, 75_000.0),
+    "degradation": ("P -> I", 0.0015, 95_000.0),
+}
+AREA_RUNS = (("T50", 50.0), ("T60", 60.0), ("T70", 70.0), ("T80", 80.0))  # run id, degC
+AREA_NOISE = 0.03  # relative error of an area %
+AREA_LIMIT = 0.05  # area %: smaller peaks are reported as "<0.05"
+AREA_SAMPLES = 10
+
 STUDY_FILE = "study.yaml"
 RUNS_FILE = "runs.csv"
 MEASUREMENTS_FILE = "measurements.csv"
@@ -107,7 +117,10 @@ DOSED_FEEDS_FILE = "dosed_feeds.csv"
 DOSED_MEASUREMENTS_FILE = "dosed_measurements.csv"
 #: The studies ``arrhenia demo`` fits, in order; the first is compared with ``ALTERNATIVE_STUDY_FILE`` and its
 #: posterior runs ``SCENARIOS_FILE``.
-FITTED_STUDY_FILES = (STUDY_FILE, DOSED_STUDY_FILE)
+AREA_STUDY_FILE = "area_study.yaml"
+AREA_RUNS_FILE = "area_runs.csv"
+AREA_MEASUREMENTS_FILE = "area_measurements.csv"
+FITTED_STUDY_FILES = (STUDY_FILE, DOSED_STUDY_FILE, AREA_STUDY_FILE)
 
 CATALYST_STUDY_TEXT = """\
 # Demo study of Arrhenia: an invented catalytic conversion A -> P, saturating in A, on three catalyst lots.
@@ -159,6 +172,36 @@ reactions:
     k_ref: {median: 0.001, factor: 20}    # 1/min at T_ref
     Ea: {mean: 90, sd: 30}
 reference_temperature: 60                 # degC
+noise: {model: proportional, sigma: {scale: 0.2}}
+sampling: {draws: 500, tune: 500, chains: 4, seed: 1, target_accept: 0.9}
+"""
+
+AREA_STUDY_TEXT = """\
+# Demo study of Arrhenia: an invented isomerisation A -> P with the consecutive degradation P -> I, followed by
+# HPLC as area % (the three peaks' shares; equal response factors), I reported as "<0.05" below its limit.
+# Data simulated by inference/workflows/demo.py (seed 20261213). True values at 60 degC:
+#   isomerisation k = 0.02 1/min, Ea = 75 kJ/mol;  degradation k = 0.0015 1/min, Ea = 95 kJ/mol.
+study: demo-area-percent
+title: Isomerisation and degradation followed by HPLC area % with a reporting limit (invented demo data)
+units: {time: min, temperature: degC, concentration: mol/L, energy: kJ/mol}
+data:
+  runs: area_runs.csv                  # run, temperature, initial A, P, I
+  measurements: area_measurements.csv  # wide: run, time, area_A, area_P, area_I (area %; "<0.05" below the limit)
+species: [A, P, I]
+reactions:
+  - name: isomerisation
+    equation: A -> P
+    k_ref: {median: 0.01, factor: 20}     # 1/min at T_ref
+    Ea: {mean: 70, sd: 30}                # kJ/mol
+  - name: degradation
+    equation: P -> I
+    k_ref: {median: 0.001, factor: 20}
+    Ea: {mean: 90, sd: 30}
+observations:                           # each peak's share of the three, in %
+  - {quantity: area_A, kind: composition, species: A, among: [A, P, I], scale: 100}
+  - {quantity: area_P, kind: composition, species: P, among: [A, P, I], scale: 100}
+  - {quantity: area_I, kind: composition, species: I, among: [A, P, I], scale: 100}
+reference_temperature: 60               # degC
 noise: {model: proportional, sigma: {scale: 0.2}}
 sampling: {draws: 500, tune: 500, chains: 4, seed: 1, target_accept: 0.9}
 """
@@ -423,6 +466,35 @@ def simulate_dosed(seed: int = DOSED_SEED) -> tuple[list[str], list[str], list[s
     return runs, log, feeds, measurements
 
 
+def simulate_area_percent(seed: int = AREA_SEED) -> tuple[list[str], list[str]]:
+    """Lines of area_runs.csv and area_measurements.csv: A -> P -> I (first order; the closed form of Levenspiel,
+    Chemical Reaction Engineering, ch. 8, from memory) sampled as area %: each peak's area with relative noise,
+    then normalised to 100; a share of I below ``AREA_LIMIT`` (decided on the true value) is reported as
+    "<limit"."""
+    rng = np.random.default_rng(seed)
+    (_, k1_60, ea1), (_, k2_60, ea2) = TRUE_AREA.values()
+    runs, rows = ["run,temperature,A,P,I"], ["run,time,area_A,area_P,area_I"]
+    for run, celsius in AREA_RUNS:
+        kelvin = celsius + 273.15
+        k1, k2 = (
+            float(np.exp(ln_rate_constant(kelvin, np.log(k), e, T_REF_K))) for k, e in ((k1_60, ea1), (k2_60, ea2))
+        )
+        times = np.round(np.geomspace(0.05, 3.0, AREA_SAMPLES) / k1, 1)
+        a = np.exp(-k1 * times)
+        p = k1 / (k2 - k1) * (np.exp(-k1 * times) - np.exp(-k2 * times))
+        shares = 100.0 * np.column_stack([a, p, 1.0 - a - p])
+        runs.append(f"{run},{celsius:g},1.0,0,0")
+        for t, true in zip(times, shares, strict=True):
+            areas = true * np.exp(AREA_NOISE * rng.standard_normal(3))  # each peak's area, then normalised
+            noisy = 100.0 * areas / areas.sum()
+            cells = [
+                f"<{AREA_LIMIT:g}" if value < AREA_LIMIT else f"{reading:.4g}"
+                for value, reading in zip(true, noisy, strict=True)
+            ]
+            rows.append(f"{run},{t:g}," + ",".join(cells))
+    return runs, rows
+
+
 def write_demo(folder: Path, replace: bool = False) -> Path:
     """Write the demo studies (network, its competing candidate, rate constants, catalyst lots, dosing) and their data
     into ``folder``; returns the network study's path. A file of the same name with other content (the user's
@@ -431,6 +503,7 @@ def write_demo(folder: Path, replace: bool = False) -> Path:
     runs, measurements = simulate_network()
     catalyst_runs, catalyst_measurements = simulate_catalyst()
     dosed_runs, dosed_log, dosed_feeds, dosed_measurements = simulate_dosed()
+    area_runs, area_measurements = simulate_area_percent()
     texts = {
         RUNS_FILE: "\n".join(runs) + "\n",
         MEASUREMENTS_FILE: "\n".join(measurements) + "\n",
@@ -448,6 +521,9 @@ def write_demo(folder: Path, replace: bool = False) -> Path:
         DOSED_FEEDS_FILE: "\n".join(dosed_feeds) + "\n",
         DOSED_MEASUREMENTS_FILE: "\n".join(dosed_measurements) + "\n",
         DOSED_STUDY_FILE: DOSED_STUDY_TEXT,
+        AREA_RUNS_FILE: "\n".join(area_runs) + "\n",
+        AREA_MEASUREMENTS_FILE: "\n".join(area_measurements) + "\n",
+        AREA_STUDY_FILE: AREA_STUDY_TEXT,
     }
     for name, text in texts.items():
         path = folder / name
