@@ -140,20 +140,19 @@ def run_fit_plot(
         ax.set_xlabel(f"time ({study.units.time})")
     ax.set_ylabel(f"concentration ({study.units.concentration})")
     ax.legend(fontsize=7, frameon=False)
-    ax.text(
-        0.99,
-        0.01,
+    _footnote(
+        ax,
         "bands: 90 % credible; bars: 90 % predictive; open triangles: beyond a detection limit"
         + ("; amounts drawn as concentrations (÷ volume)" if study.measured_as == "amount" else ""),
-        transform=ax.transAxes,
-        ha="right",
-        va="bottom",
-        fontsize=6,
-        color="0.4",
     )
     fig.tight_layout()
     fig.savefig(path, dpi=110)
     plt.close(fig)
+
+
+def _footnote(ax, text: str) -> None:
+    """A small grey note in the lower right corner of ``ax`` saying what the marks mean."""
+    ax.text(0.99, 0.01, text, transform=ax.transAxes, ha="right", va="bottom", fontsize=6, color="0.4")
 
 
 def _concentration_rows(study: Study, obs: Observations) -> np.ndarray:
@@ -199,16 +198,7 @@ def measured_quantities_plot(study: Study, obs: Observations, checks, path: Path
         ax.set_xlabel(f"time ({study.units.time})")
         ax.set_ylabel(name)
         ax.legend(fontsize=6, frameon=False, ncol=2)
-    axes[-1, 0].text(
-        0.99,
-        0.01,
-        "lines: predictive median; bands: 90 % predictive; open triangles: censored at the limit",
-        transform=axes[-1, 0].transAxes,
-        ha="right",
-        va="bottom",
-        fontsize=6,
-        color="0.4",
-    )
+    _footnote(axes[-1, 0], "lines: predictive median; bands: 90 % predictive; open triangles: censored at the limit")
     fig.tight_layout()
     fig.savefig(path, dpi=110)
     plt.close(fig)
@@ -268,16 +258,7 @@ def steady_state_plot(study: Study, obs: Observations, checks, path: Path) -> No
         ax.set_xlabel(f"{'residence' if kind == 'cstr' else 'space'} time ({study.units.time})")
         ax.set_ylabel(f"outlet concentration ({study.units.concentration})")
         ax.legend(fontsize=6, frameon=False, ncol=2)
-        ax.text(
-            0.99,
-            0.01,
-            "lines: posterior median at each measured state; bands: 90 % predictive",
-            transform=ax.transAxes,
-            ha="right",
-            va="bottom",
-            fontsize=6,
-            color="0.4",
-        )
+        _footnote(ax, "lines: posterior median at each measured state; bands: 90 % predictive")
     fig.tight_layout()
     fig.savefig(path, dpi=110)
     plt.close(fig)
