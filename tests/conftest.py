@@ -70,3 +70,54 @@ def still_running(pids) -> list[int]:
         if state not in ("Z", "X"):
             running.append(pid)
     return running
+
+
+@pytest.fixture(scope="session")
+def fitted(tmp_path_factory):
+    """One fit of the chain A -> B -> C (with the scenarios of ``test_predictions.SCENARIOS``), shared by the
+    prediction tests of every module for the whole session."""
+    import numpy as np
+    from test_network_model import _simulate, arrhenius_k
+    from test_predictions import SCENARIOS, TRUE
+
+    from inference import fit_study
+
+    folder = tmp_path_factory.mktemp("predict")
+    runs, meas = ["run,temperature,A,B,C"], ["run,time,A,B,C"]
+    for index, celsius in enumerate([45, 55, 65]):
+        k1, k2 = (arrhenius_k(k, ea, celsius) for k, ea in TRUE.values())
+        times = np.geomspace(0.5, 4.0 / k2, 12)
+        data = _simulate(
+            lambda t, c, k1=k1, k2=k2: [-k1 * c[0], k1 * c[0] - k2 * c[1], k2 * c[1]],
+            3,
+            [1.0, 0.0, 0.0],
+            times,
+            70 + index,
+        )
+        runs.append(f"r{index},{celsius},1.0,0,0")
+        meas += [f"r{index},{t:.6g}," + ",".join(f"{v:.6g}" for v in row) for t, row in zip(times, data, strict=True)]
+    (folder / "runs.csv").write_text("\n".join(runs) + "\n")
+    (folder / "measurements.csv").write_text("\n".join(meas) + "\n")
+    study = folder / "study.yaml"
+    study.write_text(
+        """\
+study: chain
+units: {time: min, temperature: degC, concentration: mol/L, energy: kJ/mol}
+data: {runs: runs.csv, measurements: measurements.csv}
+species: [A, B, C]
+reactions:
+  - name: first
+    equation: A -> B
+    k_ref: {median: 0.1, factor: 10}
+    Ea: {mean: 60, sd: 20}
+  - name: second
+    equation: B -> C
+    k_ref: {median: 0.05, factor: 10}
+    Ea: {mean: 70, sd: 20}
+reference_temperature: 330 K
+sampling: {draws: 300, tune: 300, chains: 2, seed: 9}
+"""
+        + SCENARIOS
+    )
+    result = fit_study(study, out=folder / "res", quiet=True)
+    return folder, result

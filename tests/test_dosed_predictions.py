@@ -12,7 +12,6 @@ import numpy as np
 import pandas as pd
 import pytest
 from scipy.integrate import solve_ivp
-from test_predictions import fitted  # noqa: F401 (the fitted chain A -> B -> C, shared with its tests)
 from test_reactors import FIRST, point_draws
 
 from inference.cli import main
@@ -145,7 +144,7 @@ scenarios:
 
 
 @pytest.fixture(scope="module")
-def dosed_predictions(fitted, tmp_path_factory):  # noqa: F811 (the fixture imported above)
+def dosed_predictions(fitted, tmp_path_factory):  # ``fitted``: the session fit of tests/conftest.py
     """``arrhenia predict`` of the DOSED scenarios on the fitted chain, once: (fit result, out folder, exit code,
     what it printed)."""
     _, result = fitted
@@ -270,7 +269,7 @@ BAD = {
 
 
 @pytest.mark.parametrize(("text", "fragment"), list(BAD.values()), ids=list(BAD))
-def test_bad_dosed_scenarios_give_exit_2(fitted, run_cli, tmp_path, text, fragment):  # noqa: F811
+def test_bad_dosed_scenarios_give_exit_2(fitted, run_cli, tmp_path, text, fragment):
     _, result = fitted
     scenarios = tmp_path / "bad.yaml"
     scenarios.write_text(text)

@@ -5,9 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from test_network_model import _simulate, arrhenius_k
 
-from inference import fit_study
 from inference.physics.arrhenius import R
 
 TRUE = {"first": (0.12, 60_000.0), "second": (0.04, 75_000.0)}  # k at 330 K (1/min), Ea (J/mol)
@@ -31,49 +29,6 @@ scenarios:
     key_reactant: A
     target_conversion: 0.5
 """
-
-
-@pytest.fixture(scope="module")
-def fitted(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("predict")
-    runs, meas = ["run,temperature,A,B,C"], ["run,time,A,B,C"]
-    for index, celsius in enumerate([45, 55, 65]):
-        k1, k2 = (arrhenius_k(k, ea, celsius) for k, ea in TRUE.values())
-        times = np.geomspace(0.5, 4.0 / k2, 12)
-        data = _simulate(
-            lambda t, c, k1=k1, k2=k2: [-k1 * c[0], k1 * c[0] - k2 * c[1], k2 * c[1]],
-            3,
-            [1.0, 0.0, 0.0],
-            times,
-            70 + index,
-        )
-        runs.append(f"r{index},{celsius},1.0,0,0")
-        meas += [f"r{index},{t:.6g}," + ",".join(f"{v:.6g}" for v in row) for t, row in zip(times, data, strict=True)]
-    (folder / "runs.csv").write_text("\n".join(runs) + "\n")
-    (folder / "measurements.csv").write_text("\n".join(meas) + "\n")
-    study = folder / "study.yaml"
-    study.write_text(
-        """\
-study: chain
-units: {time: min, temperature: degC, concentration: mol/L, energy: kJ/mol}
-data: {runs: runs.csv, measurements: measurements.csv}
-species: [A, B, C]
-reactions:
-  - name: first
-    equation: A -> B
-    k_ref: {median: 0.1, factor: 10}
-    Ea: {mean: 60, sd: 20}
-  - name: second
-    equation: B -> C
-    k_ref: {median: 0.05, factor: 10}
-    Ea: {mean: 70, sd: 20}
-reference_temperature: 330 K
-sampling: {draws: 300, tune: 300, chains: 2, seed: 9}
-"""
-        + SCENARIOS
-    )
-    result = fit_study(study, out=folder / "res", quiet=True)
-    return folder, result
 
 
 def test_fit_runs_the_study_scenarios(fitted):
