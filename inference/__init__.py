@@ -1,7 +1,8 @@
 """Arrhenia: Bayesian inference of chemical kinetics (the import package is ``inference``).
 
 The API: ``load_study(path) -> Study``, ``fit_study(study, out=..., ...) -> FitResult``,
-``compare_studies([a, b], ...) -> ComparisonResult`` and ``predict(results_dir, scenarios) -> PredictionResult``.
+``compare_studies([a, b], ...) -> ComparisonResult``, ``predict(results_dir, scenarios) -> PredictionResult`` and
+``rank_experiments(results_dir, candidates, target=...) -> NextExperimentResult``.
 All but ``load_study`` are imported on first use, so validating a study does not pay for importing PyMC.
 """
 
@@ -22,6 +23,7 @@ __all__ = [
     "fit_study",
     "load_study",
     "predict",
+    "rank_experiments",
 ]
 
 
@@ -42,4 +44,8 @@ def __getattr__(name: str) -> Any:
         from .workflows.predict import predict
 
         return predict
+    if name == "rank_experiments":
+        from .workflows.next_experiment import rank_experiments
+
+        return rank_experiments
     raise AttributeError(f"module 'inference' has no attribute {name!r}")

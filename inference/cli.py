@@ -13,6 +13,7 @@ import traceback
 from pathlib import Path
 from typing import NoReturn
 
+from ._version import __version__
 from .errors import ExitCode, StudyError
 
 
@@ -29,6 +30,15 @@ def _on_sigterm(signum: int, frame: object) -> None:
     raise _Terminated
 
 
+#: The sampler settings every fitting command takes, with their help; their defaults are the schema's.
+SAMPLING_OPTIONS = (
+    ("draws", "draws per chain after tuning"),
+    ("tune", "tuning steps per chain"),
+    ("chains", "number of chains"),
+    ("seed", "the one integer seed of each fit"),
+)
+
+
 class _Parser(argparse.ArgumentParser):
     """argparse with its usage errors on one line and exit 2, like every other mistake in the input."""
 
@@ -36,15 +46,26 @@ class _Parser(argparse.ArgumentParser):
         self.exit(ExitCode.BAD_INPUT, f"{self.prog}: error: {' '.join(message.split())} (see '{self.prog} --help')\n")
 
 
+def _schema_default(text: str, model: type, key: str, file: str = "study") -> str:
+    """``text`` with the default the schema gives ``key`` (a dotted key path of ``model``, a file's root model),
+    so that help texts cannot drift from the schema."""
+    first, *rest = key.split(".")
+    value = model.model_fields[first].default
+    for part in rest:
+        value = getattr(value, part)
+    return f"{text} (default: the {file} file's {key}, else {value})"
+
+
 def _parser() -> argparse.ArgumentParser:
+    from .inputs.schema import ScenarioFile, StudyFile
+
     parser = _Parser(prog="arrhenia", description="Bayesian inference of chemical kinetics.")
+    parser.add_argument("--version", action="version", version=f"arrhenia {__version__}")
     commands = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     def fit_options(command: argparse.ArgumentParser) -> None:
-        command.add_argument("--draws", type=int, help="draws per chain after tuning")
-        command.add_argument("--tune", type=int, help="tuning steps per chain")
-        command.add_argument("--chains", type=int, help="number of chains")
-        command.add_argument("--seed", type=int, help="the one integer seed of the run")
+        for name, text in SAMPLING_OPTIONS:
+            command.add_argument(f"--{name}", type=int, help=_schema_default(text, StudyFile, f"sampling.{name}"))
         command.add_argument("--cores", type=int, help="chains run in parallel on this many cores (1: in sequence)")
         command.add_argument("--overwrite", action="store_true", help="replace an existing results folder")
         command.add_argument("--quiet", action="store_true", help="print nothing but errors")
@@ -56,6 +77,17 @@ def _parser() -> argparse.ArgumentParser:
     fit_options(demo)
 
     commands.add_parser("schema", help="print the JSON Schema of the study file (for YAML editors)")
+
+    from .workflows.starter import STARTERS
+
+    new = commands.add_parser("new", help="start a study: a commented study file and empty data templates")
+    new.add_argument("folder", type=Path, help="where to write them (made if absent; no file is ever replaced)")
+    new.add_argument(
+        "--kind",
+        required=True,
+        choices=tuple(STARTERS),
+        help="; ".join(f"{kind}: {starter.description}" for kind, starter in STARTERS.items()),
+    )
 
     check = commands.add_parser("check", help="validate a study file and its data; samples nothing")
     check.add_argument("study", type=Path)
@@ -88,9 +120,23 @@ def _parser() -> argparse.ArgumentParser:
     predict.add_argument("results", type=Path, help="a results folder written by 'arrhenia fit'")
     predict.add_argument("scenarios", type=Path, help="a YAML file of reactor scenarios")
     predict.add_argument("--out", type=Path, help="predictions folder (default: RESULTS/predictions)")
-    predict.add_argument("--draws", type=int, help="posterior draws to push through (default: the file's, 1000)")
+    predict.add_argument(
+        "--draws", type=int, help=_schema_default("posterior draws to push through", ScenarioFile, "draws", "scenarios")
+    )
     predict.add_argument("--overwrite", action="store_true", help="replace an existing predictions folder")
     predict.add_argument("--quiet", action="store_true", help="print nothing but errors")
+
+    upcoming = commands.add_parser(
+        "next", help="rank candidate experiments by how much they would shrink a target's uncertainty (no refit)"
+    )
+    upcoming.add_argument("results", type=Path, help="a results folder written by 'arrhenia fit'")
+    upcoming.add_argument("candidates", type=Path, help="a YAML file of candidate experiments")
+    upcoming.add_argument(
+        "--target", help="the quantity to pin down, e.g. 'Ea[coupling]' or 'k[coupling, 85 degC]' (default: the file's)"
+    )
+    upcoming.add_argument("--out", type=Path, help="folder of the ranking (default: RESULTS/next_experiment)")
+    upcoming.add_argument("--overwrite", action="store_true", help="replace an existing ranking folder")
+    upcoming.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
     fit = commands.add_parser("fit", help="fit a study and write its results folder")
     fit.add_argument("study", type=Path)
@@ -108,13 +154,8 @@ def _parser() -> argparse.ArgumentParser:
     where = batch.add_mutually_exclusive_group()
     where.add_argument("--workers", type=int, help="worker processes of the local cluster (default: one per core)")
     where.add_argument("--scheduler", metavar="ADDRESS", help="a running Dask scheduler, e.g. tcp://head:8786")
-    for name, text in (
-        ("--draws", "draws per chain after tuning"),
-        ("--tune", "tuning steps per chain"),
-        ("--chains", "number of chains"),
-        ("--seed", "the one integer seed of every fit"),
-    ):
-        batch.add_argument(name, type=int, help=text)
+    for name, text in SAMPLING_OPTIONS:
+        batch.add_argument(f"--{name}", type=int, help=_schema_default(text, StudyFile, f"sampling.{name}"))
     batch.add_argument("--overwrite", action="store_true", help="refit studies whose results folder does not match")
     batch.add_argument("--quiet", action="store_true", help="print nothing but errors")
     return parser
@@ -186,9 +227,20 @@ def _run(args: argparse.Namespace) -> int:
 
         print(json.dumps(StudyFile.model_json_schema(), indent=2))
         return ExitCode.DONE
+    if args.command == "new":
+        from .workflows.starter import write_starter
+
+        written = write_starter(args.folder, args.kind)
+        print(f"wrote {', '.join(path.name for path in written)} into {args.folder}")
+        print(f"fill in the data and the priors, then: arrhenia check {written[0]}")
+        return ExitCode.DONE
     if args.command == "check":
         from .outputs import reporting
 
+        if args.against is not None and not args.against.exists():
+            raise StudyError(
+                f"--against {args.against}", "does not exist", "give a results folder written by 'arrhenia fit'"
+            )
         study = load_study(args.study)
         from .workflows.kinds import open_problem
 
@@ -231,6 +283,21 @@ def _run(args: argparse.Namespace) -> int:
         )
         if not args.quiet:
             print(reporting.prediction_report(result))
+        return ExitCode.DONE
+    if args.command == "next":
+        from .workflows.next_experiment import next_experiment_report, rank_experiments
+
+        ranked = rank_experiments(
+            args.results,
+            args.candidates,
+            target=args.target,
+            out=args.out,
+            overwrite=args.overwrite,
+            quiet=args.quiet,
+            command_line=args.command_line,
+        )
+        if not args.quiet:
+            print(next_experiment_report(ranked))
         return ExitCode.DONE
     if args.command == "compare":
         return _compare_and_report(args.candidates, args, args.out, args.root)
@@ -315,7 +382,11 @@ def _listen_for_interrupts() -> None:
 def main(argv: list[str] | None = None) -> int:
     """Entry point of the console script; returns the exit code."""
     global _MAIN_PID
-    args = _parser().parse_args(argv)
+    parser = _parser()
+    if not (sys.argv[1:] if argv is None else argv):  # no command: say what there is, once, as a usage error
+        parser.print_help(sys.stderr)
+        return ExitCode.BAD_INPUT
+    args = parser.parse_args(argv)
     args.command_line = shlex.join(["arrhenia", *(sys.argv[1:] if argv is None else argv)])
     _MAIN_PID = os.getpid()
     _listen_for_interrupts()

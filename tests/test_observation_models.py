@@ -203,7 +203,10 @@ def _write_quantity_study(folder, noise="proportional", data=QUANTITY_DATA):
     (folder / "runs.csv").write_text(QUANTITY_RUNS)
     (folder / "measurements.csv").write_text(data)
     path = folder / "study.yaml"
-    path.write_text(QUANTITY_STUDY.replace("NOISE", noise))
+    text = QUANTITY_STUDY.replace("NOISE", noise)
+    if noise == "absolute":  # sigma on the scale of peak areas (~1e4), so the log-density is not ~1e10
+        text = text.replace("sigma: {scale: 0.2}", "sigma: {scale: 500}")
+    path.write_text(text)
     return path
 
 

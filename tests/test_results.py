@@ -64,6 +64,8 @@ def test_summary_columns_and_names(fitted):
         "ess_bulk",
         "ess_tail",
         "r_hat",
+        "T_ref_K",
+        "extrapolated",
     ]
     assert list(summary["parameter"]) == [
         "k_ref[step]",

@@ -5,15 +5,16 @@ from __future__ import annotations
 import difflib
 import math
 import re
+from collections.abc import Iterable
 from pathlib import Path
-from typing import Any, get_args
+from typing import Any, NamedTuple, get_args
 
 import pydantic
 import yaml
 
 from ..errors import StudyError
 from ..physics.network import Equation, EquationError, Network, build_network, element_counts, imbalance, parse_equation
-from . import units
+from . import schema, units
 from .files import excerpt, read_text, resolve, shown_path
 from .measured import resolve_quantities
 from .rate_laws import LAW_KEYS, REGISTRY, Z95, missing_keys, undeclared_keys, van_t_hoff_prior
@@ -195,39 +196,111 @@ def _is_union_tag(part: object) -> bool:
     return part in models or part in {"float", "str", "int", "bool"} or "-" in part or "[" in part
 
 
-def format_validation_error(
-    where: str, error: pydantic.ValidationError, root: type[pydantic.BaseModel] = StudyFile
-) -> StudyError:
-    """One line for the first problem pydantic found: key path, what is wrong, and a hint where one helps."""
-    # A misspelt key is also reported as a missing one, so the unknown key comes first; then errors a
-    # validator wrote (they explain themselves), then the rest.
-    rank = {"extra_forbidden": 0, "value_error": 1}
-    errors = sorted(error.errors(include_url=False), key=lambda e: rank.get(e["type"], 2))
-    first = errors[0]
-    raw = tuple(first["loc"])
-    if first["type"] == "extra_forbidden":  # the unknown key is the user's own text, whatever it looks like
+def closest(name: str, choices: Iterable[str], cutoff: float = 0.6) -> str | None:
+    """The choice ``name`` most likely means, case aside (``ea`` means ``Ea``), or None when none is close."""
+    by_lower = {choice.lower(): choice for choice in sorted(choices, reverse=True)}  # ties: the first in order
+    if name.lower() in by_lower:
+        return by_lower[name.lower()]
+    close = difflib.get_close_matches(name.lower(), list(by_lower), n=1, cutoff=cutoff)
+    return by_lower[close[0]] if close else None
+
+
+#: How many problems besides the first one line of a validation error shows.
+SHOWN_PROBLEMS = 3
+
+#: The right form of the values most often given as a bare number, with numbers that fit most studies.
+_EXAMPLES = {
+    "LogNormalPrior": "{median: 0.01, factor: 10}",
+    "PositiveNormalPrior": "{mean: 80, sd: 30}",
+    "NormalPrior": "{mean: -20, sd: 20}",
+    "HalfNormalPrior": "{scale: 0.2}",
+    "OrderPrior": "{lower: 0, upper: 3}",
+    "ExponentPrior": "{mean: 0, sd: 1}",
+    "AdsorptionPrior": "{K_ref: {median: 1, factor: 10}, dH: {mean: -20, sd: 20}}",
+}
+
+
+def _schema_model(name: str) -> type[pydantic.BaseModel] | None:
+    found = getattr(schema, name, None)
+    return found if isinstance(found, type) and issubclass(found, pydantic.BaseModel) else None
+
+
+def _example(model: type[pydantic.BaseModel]) -> str:
+    """The right form of a value of ``model``: a worked example, or its required keys."""
+    if model.__name__ in _EXAMPLES:
+        return _EXAMPLES[model.__name__]
+    required = [name for name, field in model.model_fields.items() if field.is_required()]
+    return "{" + ", ".join(f"{name}: ..." for name in required or model.model_fields) + "}"
+
+
+class _Problem(NamedTuple):
+    """One problem pydantic found: where (key path), what is wrong, a hint, and the key a misspelt one means."""
+
+    loc: tuple
+    text: str
+    hint: str | None = None
+    meant: str | None = None
+
+
+def _describe(error: dict, root: type[pydantic.BaseModel]) -> _Problem:
+    raw, kind = tuple(error["loc"]), error["type"]
+    if kind == "extra_forbidden":  # the unknown key is the user's own text, whatever it looks like
         loc = tuple(part for part in raw[:-1] if not _is_union_tag(part)) + raw[-1:]
     else:
         loc = tuple(part for part in raw if not _is_union_tag(part))
-    path = _key_path(loc)
-    more = f" (and {len(errors) - 1} more problem{'s' if len(errors) > 2 else ''})" if len(errors) > 1 else ""
-    kind = first["type"]
-    hint = None
+    given = error.get("input")
+    shown = "" if isinstance(given, dict | tuple) else f" (got {excerpt(repr(given))})"
     if kind == "extra_forbidden":
         model = _model_at(loc, root)
         allowed = sorted(model.model_fields) if model else []
-        close = difflib.get_close_matches(str(loc[-1]), allowed, n=1, cutoff=0.6)
-        hint = f"did you mean '{close[0]}'?" if close else (f"known keys: {', '.join(allowed)}" if allowed else None)
-        problem = "unknown key"
-    elif kind == "missing":
-        problem = "required key is missing"
-    elif kind == "value_error":
-        problem = str(first["msg"]).removeprefix("Value error, ")
-    else:
-        given = first.get("input")
-        shown = "" if isinstance(given, dict | tuple) else f" (got {excerpt(repr(given))})"
-        problem = f"{first['msg']}{shown}"
-    return StudyError(f"{where}: {path}", problem + more, hint)
+        close = closest(str(loc[-1]), allowed)
+        hint = f"did you mean '{close}'?" if close else (f"known keys: {', '.join(allowed)}" if allowed else None)
+        return _Problem(loc, "unknown key", hint, close)
+    if kind == "missing":
+        return _Problem(loc, "required key is missing")
+    if kind == "value_error":
+        return _Problem(loc, str(error["msg"]).removeprefix("Value error, "))
+    model = _schema_model(str((error.get("ctx") or {}).get("class_name", ""))) if kind == "model_type" else None
+    if model is not None:
+        key = f"{loc[-1]}: " if loc and isinstance(loc[-1], str) else ""
+        meaning = " ".join((model.__doc__ or "").strip().split("\n\n")[0].split()).rstrip(".")  # its first paragraph
+        return _Problem(loc, f"is not a mapping{shown}; write it as {key}{_example(model)}", meaning or None)
+    if kind in ("tuple_type", "list_type"):
+        return _Problem(loc, f"is not a list{shown}; write it as [first, second, ...]")
+    return _Problem(loc, f"{error['msg']}{shown}")
+
+
+def format_validation_error(
+    where: str, error: pydantic.ValidationError, root: type[pydantic.BaseModel] = StudyFile
+) -> StudyError:
+    """One line for what pydantic found: the first problem (key path, what is wrong, a hint where one helps), then
+    up to ``SHOWN_PROBLEMS`` others, each with its key path."""
+    # A misspelt key is also reported as a missing one, so the unknown key comes first; then errors a
+    # validator wrote (they explain themselves), then the rest.
+    rank = {"extra_forbidden": 0, "value_error": 1}
+    described = [
+        _describe(e, root) for e in sorted(error.errors(include_url=False), key=lambda e: rank.get(e["type"], 2))
+    ]
+    meant = {(*found.loc[:-1], found.meant) for found in described if found.meant}
+    problems: list[_Problem] = []
+    for found in described:
+        if found.text == "required key is missing" and found.loc in meant:
+            continue  # the same misspelling, seen from the key the user meant
+        if any(len(other.loc) > len(found.loc) and other.loc[: len(found.loc)] == found.loc for other in described):
+            continue  # a consequence of a problem inside it (a list left too short by a bad item)
+        if all(found[:3] != other[:3] for other in problems):  # each member of a union may report the same
+            problems.append(found)
+    first, others = problems[0], problems[1:]
+    problem = first.text + (f" (hint: {first.hint})" if first.hint else "")
+    if others:
+        problem += "; also " + "; ".join(
+            f"{_key_path(other.loc)}: {other.text}" + (f" (did you mean '{other.meant}'?)" if other.meant else "")
+            for other in others[:SHOWN_PROBLEMS]
+        )
+    if len(others) > SHOWN_PROBLEMS:
+        count = len(others) - SHOWN_PROBLEMS
+        problem += f" (and {count} more problem{'s' if count > 1 else ''})"
+    return StudyError(f"{where}: {_key_path(first.loc)}", problem)
 
 
 def _parse_reference_temperature(value: float | str, unit: str, where: str) -> float | None:
@@ -355,8 +428,8 @@ def _parse_network_equation(reaction: Reaction, species: tuple[str, ...], key: s
         raise StudyError(f"{key}.equation", f"'{reaction.equation}': {exc}") from None
     for name in equation.species:
         if name not in species:
-            close = difflib.get_close_matches(name, species, n=1)
-            hint = f"did you mean '{close[0]}'?" if close else "add it to the study's species list"
+            close = closest(name, species)
+            hint = f"did you mean '{close}'?" if close else "add it to the study's species list"
             raise StudyError(f"{key}.equation", f"'{name}' is not in species ({', '.join(species)})", hint)
     return equation
 
@@ -482,8 +555,8 @@ def _run_variability(file: StudyFile, where: str) -> RunVariabilitySpec | None:
     chosen = given.reactions if given.reactions is not None else tuple(names)
     for position, name in enumerate(chosen):
         if name not in names:
-            close = difflib.get_close_matches(name, names, n=1)
-            hint = f"did you mean '{close[0]}'?" if close else f"reactions are: {', '.join(names)}"
+            close = closest(name, names)
+            hint = f"did you mean '{close}'?" if close else f"reactions are: {', '.join(names)}"
             raise StudyError(f"{where}: run_variability.reactions[{position}]", f"no reaction is named '{name}'", hint)
     if len(set(chosen)) != len(chosen) or not chosen:
         raise StudyError(f"{where}: run_variability.reactions", "list each reaction once, at least one")

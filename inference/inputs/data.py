@@ -109,6 +109,13 @@ def read_table(path: Path, required: set[str], optional: set[str] = frozenset())
         raise StudyError(where, "is empty", "the first line names the columns")
     header_line, header = records[0]
     columns = _header(header, header_line, where)
+    for separator, name in ((";", "semicolons"), ("\t", "tabs")):
+        if any(separator in column for column in columns):  # a spreadsheet saved with another list separator
+            raise StudyError(
+                f"{where}: line {header_line}",
+                f"the header '{excerpt(','.join(columns))}' looks separated by {name}, not commas",
+                "save the table as CSV with commas between cells and a point as the decimal mark",
+            )
     known = required | optional | FREE_COLUMNS
     for column in columns:
         if column not in known:

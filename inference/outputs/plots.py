@@ -459,3 +459,52 @@ def caption(name: str) -> str:
     if name == "comparison.png":
         return "Expected log predictive density of each candidate, with its standard error"
     return name
+
+
+def next_experiment_plot(
+    table,
+    path: Path,
+    *,
+    target: str,
+    unit: str,
+    current_sd: float,
+    temperature_unit: str,
+    time_unit: str | None,
+    fitted_range: tuple[float, float],
+) -> None:
+    """Expected posterior sd of the target after each candidate against the candidate's temperature (``table``
+    from ``arrhenia next``: temperature, duration, expected_sd, expected_sd_se, extrapolated, candidate), with
+    ±2 Monte Carlo standard errors, the current sd and the fitted temperature range (shaded); colour shows the
+    duration where candidates differ in it; open marks lie outside the fitted range."""
+    fig, ax = plt.subplots(figsize=(6.4, 4.4))
+    ax.axvspan(*fitted_range, color="0.92", zorder=0, label="fitted temperature range")
+    ax.axhline(current_sd, color="0.35", linestyle="--", linewidth=1.0, label="sd now")
+    durations = table["duration"].to_numpy(dtype=float)
+    varied = np.isfinite(durations).all() and np.unique(durations).size > 1
+    colours = (
+        plt.cm.viridis((durations - durations.min()) / np.ptp(durations)) if varied else np.array(["C0"] * len(table))
+    )
+    x, y, se = (table[c].to_numpy(dtype=float) for c in ("temperature", "expected_sd", "expected_sd_se"))
+    for i, (name, outside) in enumerate(zip(table["candidate"], table["extrapolated"], strict=True)):
+        ax.errorbar(x[i], y[i], yerr=2 * se[i], fmt="none", ecolor=colours[i], elinewidth=0.9, capsize=2)
+        ax.plot(
+            x[i],
+            y[i],
+            "o",
+            markersize=6,
+            markeredgecolor=colours[i],
+            markerfacecolor="white" if outside else colours[i],
+        )
+        ax.annotate(str(name), (x[i], y[i]), xytext=(4, 3), textcoords="offset points", fontsize=7)
+    if varied:
+        mappable = plt.cm.ScalarMappable(cmap="viridis", norm=plt.Normalize(durations.min(), durations.max()))
+        fig.colorbar(mappable, ax=ax, label=f"duration ({time_unit})")
+    ax.set_xlabel(f"candidate temperature ({temperature_unit})")
+    ax.set_ylabel(f"expected posterior sd of {target}" + (f" ({unit})" if unit else ""))
+    ax.set_ylim(bottom=0)
+    ax.set_title(f"Which experiment next: {target}", fontsize=10)
+    ax.legend(fontsize=7, frameon=False, loc="lower left")
+    _footnote(ax, "bars: ±2 Monte Carlo se; open marks: outside the fitted range")
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    plt.close(fig)

@@ -122,7 +122,9 @@ def assess(
     is also judged against its data (``misfit_findings``, on ``fit_checks`` when the caller has them already);
     any misfit makes the verdict at least ``warn``."""
     posterior = idata.posterior[var_names]
-    r_hat = float(np.nanmax(az.rhat(posterior).to_array().values))
+    chains, draws = posterior.sizes["chain"], posterior.sizes["draw"]
+    # R-hat compares chains: with one there is nothing to compare (NaN, and no call that would warn about it)
+    r_hat = float(np.nanmax(az.rhat(posterior).to_array().values)) if chains > 1 else float("nan")
     ess_bulk = float(np.nanmin(az.ess(posterior, method="bulk").to_array().values))
     ess_tail = float(np.nanmin(az.ess(posterior, method="tail").to_array().values))
     stats = idata.sample_stats
@@ -130,10 +132,14 @@ def assess(
     depth = stats["tree_depth"].values if "tree_depth" in stats else np.zeros(1)
     tree_depth_hits = int((depth >= max_tree_depth).sum())
     bfmi = float(np.min(az.bfmi(idata))) if stats.sizes.get("draw", 0) > 1 else float("nan")
-    chains, draws = posterior.sizes["chain"], posterior.sizes["draw"]
 
     advice: list[str] = []
-    if not r_hat <= THRESHOLDS["r_hat_max"]:
+    if chains < 2:
+        advice.append(
+            "R-hat needs two or more chains and this fit ran one, so whether the sampler converged cannot be "
+            "checked: run with --chains 2 or more (sampling.chains)."
+        )
+    elif not r_hat <= THRESHOLDS["r_hat_max"]:
         advice.append(
             f"R-hat is {r_hat:.3f} (> {THRESHOLDS['r_hat_max']}): chains disagree; run more tuning "
             "and draws, or check the priors for several separated modes."
@@ -163,7 +169,7 @@ def assess(
             "the priors reach parameter values where the profiles cannot be computed; tighten them."
         )
     failing = (
-        not r_hat <= FAIL_LIMITS["r_hat_max"]
+        (chains > 1 and not r_hat <= FAIL_LIMITS["r_hat_max"])
         or not min(ess_bulk, ess_tail) >= FAIL_LIMITS["ess_min"]
         or divergences > FAIL_LIMITS["divergent_share_max"] * chains * draws
     )

@@ -7,6 +7,8 @@ temperatures in ``units.temperature``.
 
 from __future__ import annotations
 
+import math
+
 import arviz as az
 import numpy as np
 import pandas as pd
@@ -24,12 +26,33 @@ from ..physics.arrhenius import (
     two_point_estimate,
 )
 
-SUMMARY_COLUMNS = ["parameter", "unit", "mean", "sd", "median", "q05", "q95", "ess_bulk", "ess_tail", "r_hat"]
+#: The columns of ``summary.csv``: ``T_ref_K`` is the reference temperature of the fit (K), the same on every row
+#: (k_ref, K_ref and every other value "at T_ref" hold there); ``extrapolated`` is true or false on the rows of k at
+#: a ``report.k_at`` temperature (outside the temperatures the data span, or not) and blank on the others.
+SUMMARY_COLUMNS = [
+    "parameter",
+    "unit",
+    "mean",
+    "sd",
+    "median",
+    "q05",
+    "q95",
+    "ess_bulk",
+    "ess_tail",
+    "r_hat",
+    "T_ref_K",
+    "extrapolated",
+]
 
 
 def temperature_label(kelvin: float, unit: str) -> str:
     """A temperature in the study's unit, for names like ``k[step, 80 degC]``."""
     return f"{float(units.kelvin_to(kelvin, unit)):g} {unit}"
+
+
+def k_at_label(reaction: str, kelvin: float, unit: str) -> str:
+    """The name of the row of k of ``reaction`` at ``kelvin``, e.g. ``k[step, 25 degC]``."""
+    return f"k[{reaction}, {temperature_label(kelvin, unit)}]"
 
 
 def derived_quantities(
@@ -61,8 +84,7 @@ def derived_quantities(
             a_unit = f"{spec.k_unit}/K^{spec.temperature_exponent:g}"
         quantities[f"A[{name}]"] = (a_unit, np.exp(ln_pre_exponential(ln_k_ref, ea, temperature_ref, exponent)))
         for kelvin in study.k_at_K:
-            label = f"k[{name}, {temperature_label(kelvin, study.units.temperature)}]"
-            quantities[label] = (
+            quantities[k_at_label(name, kelvin, study.units.temperature)] = (
                 spec.k_unit,
                 np.exp(ln_rate_constant(kelvin, ln_k_ref, ea, temperature_ref, exponent)),
             )
@@ -141,13 +163,24 @@ def _activation_quantities(study: Study, spec: ReactionSpec, ln_k_ref, ea, expon
     }
 
 
+def extrapolated_rows(study: Study, measured_K: np.ndarray) -> dict[str, bool]:
+    """For every row of k at a ``report.k_at`` temperature, whether that temperature lies outside the measured
+    range (``measured_K``: the temperatures the data span, K)."""
+    low, high = float(np.min(measured_K)), float(np.max(measured_K))
+    return {
+        k_at_label(name, kelvin, study.units.temperature): not low <= kelvin <= high
+        for name in study.reaction_names
+        for kelvin in study.k_at_K
+    }
+
+
 def extrapolation_notes(study: Study, measured_K: np.ndarray) -> list[str]:
     """One sentence for every reported temperature outside the measured range, saying how far outside."""
     low, high = float(np.min(measured_K)), float(np.max(measured_K))
     unit = study.units.temperature
     notes = []
     for kelvin in study.k_at_K:
-        if kelvin < low or kelvin > high:
+        if not low <= kelvin <= high:
             edge = low if kelvin < low else high
             side = "below the lowest" if kelvin < low else "above the highest"
             notes.append(
@@ -157,12 +190,16 @@ def extrapolation_notes(study: Study, measured_K: np.ndarray) -> list[str]:
     return notes
 
 
-def summary_table(quantities: dict[str, tuple[str, xr.DataArray]]) -> pd.DataFrame:
-    """One row per quantity: parameter, unit, mean, sd, median, q05, q95, ess_bulk, ess_tail, r_hat."""
+def summary_table(
+    quantities: dict[str, tuple[str, xr.DataArray]], temperature_ref: float, extrapolated: dict[str, bool] | None = None
+) -> pd.DataFrame:
+    """One row per quantity, the columns ``SUMMARY_COLUMNS``; ``temperature_ref`` is T_ref (K), ``extrapolated``
+    flags the rows of k at a temperature (``extrapolated_rows``). R-hat is NaN with one chain (it needs two)."""
     dataset = xr.Dataset({name: draws for name, (_, draws) in quantities.items()})
     ess_bulk = az.ess(dataset, method="bulk")
     ess_tail = az.ess(dataset, method="tail")
-    r_hat = az.rhat(dataset)
+    r_hat = az.rhat(dataset) if dataset.sizes.get("chain", 1) > 1 else None
+    flags = extrapolated or {}
     rows = []
     for name, (unit, draws) in quantities.items():
         values = draws.values.ravel()
@@ -177,7 +214,9 @@ def summary_table(quantities: dict[str, tuple[str, xr.DataArray]]) -> pd.DataFra
                 "q95": np.quantile(values, 0.95),
                 "ess_bulk": float(ess_bulk[name]),
                 "ess_tail": float(ess_tail[name]),
-                "r_hat": float(r_hat[name]),
+                "r_hat": float(r_hat[name]) if r_hat is not None else np.nan,
+                "T_ref_K": temperature_ref,
+                "extrapolated": flags.get(name),
             }
         )
     return pd.DataFrame(rows, columns=SUMMARY_COLUMNS)
@@ -265,7 +304,7 @@ def predictive_intervals(observed: np.ndarray, idata: az.InferenceData) -> pd.Da
 
 
 def rate_constant_fit_checks(study: Study, data: RateConstantData, idata: az.InferenceData) -> pd.DataFrame:
-    """Columns: measurement, line, reaction, temperature, observed, median, q05, q95, inside_90 (k in its unit)."""
+    """Columns: measurement, line, reaction, temperature, unit (of k), observed, median, q05, q95, inside_90."""
     names = np.array(study.reaction_names)
     labels = pd.DataFrame(
         {
@@ -273,14 +312,37 @@ def rate_constant_fit_checks(study: Study, data: RateConstantData, idata: az.Inf
             "line": data.line,
             "reaction": names[data.reaction_index],
             "temperature": units.kelvin_to(data.temperature_K, study.units.temperature),
+            "unit": study.units.rate_constant or "",
         }
     )
     return pd.concat([labels, predictive_intervals(data.k, idata)], axis=1)
 
 
+def measured_units(study: Study, obs: Observations) -> np.ndarray:
+    """Per measurement, the unit of its value: the concentration unit, concentration x volume for measured amounts,
+    "signal" for a signal or a combination (the instrument's own unit), "%" for an area % (a composition with
+    scale 100; 1/scale for other scales), "" for a share, a conversion or a yield."""
+    concentration = study.units.concentration or ""
+    if study.measured_as == "amount":
+        concentration = f"{concentration}*{study.units.volume}"
+    if obs.quantity_index is None:
+        return np.full(obs.value.size, concentration, dtype=object)
+    shown = []
+    for spec in obs.quantities:
+        if spec.kind == "composition":  # scale x a share: in 1/scale
+            scale = math.exp(spec.scale.ln_mean)
+            shown.append("%" if math.isclose(scale, 100.0) else ("" if math.isclose(scale, 1.0) else f"1/{scale:g}"))
+        else:
+            shown.append(
+                {"concentration": concentration, "signal": "signal", "combination": "signal"}.get(spec.kind, "")
+            )
+    return np.array(shown, dtype=object)[obs.quantity_index]
+
+
 def network_fit_checks(study: Study, obs: Observations, idata: az.InferenceData) -> pd.DataFrame:
     """Columns: measurement, line, run, temperature (at the time of the measurement), time (for steady states:
-    the residence time), species, observed, median, q05, q95, inside_90; steady states add ``reactor``."""
+    the residence time), species, unit (``measured_units``), observed, median, q05, q95, inside_90; steady states
+    add ``reactor``, declared quantities ``quantity``, censored values ``censored``."""
     labels = pd.DataFrame(
         {
             "measurement": np.arange(obs.value.size),
@@ -298,4 +360,14 @@ def network_fit_checks(study: Study, obs: Observations, idata: az.InferenceData)
         labels.insert(labels.columns.get_loc("species") + 1, "quantity", obs.measured_names(study.species))
     if obs.lower is not None or obs.upper is not None:
         labels["censored"] = obs.censored
+    labels["unit"] = measured_units(study, obs)
     return pd.concat([labels, predictive_intervals(obs.value, idata)], axis=1)
+
+
+def fit_checks_file(study: Study, checks: pd.DataFrame) -> pd.DataFrame:
+    """The fit checks as ``fit_checks.csv`` holds them: the units of temperature and time in their column names
+    (``temperature_degC``, ``time_min``); the unit of observed, median, q05 and q95 is the ``unit`` column."""
+    names = {"temperature": f"temperature_{study.units.temperature}"}
+    if study.units.time:
+        names["time"] = f"time_{study.units.time}"
+    return checks.rename(columns=names)

@@ -12,6 +12,7 @@ from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import yaml
 
 from .._version import __version__
@@ -33,7 +34,14 @@ from ..outputs.results import (
 )
 from ..physics.arrhenius import auto_reference_temperature
 from ..posterior.diagnostics import assess
-from ..posterior.summaries import correlation_table, derived_quantities, extrapolation_notes, summary_table
+from ..posterior.summaries import (
+    correlation_table,
+    derived_quantities,
+    extrapolated_rows,
+    extrapolation_notes,
+    fit_checks_file,
+    summary_table,
+)
 from .kinds import Problem, open_problem
 
 
@@ -112,20 +120,21 @@ def _fit(
         idata, problem.kinetic_var_names(idata), solver_failures=failures, problem=problem, fit_checks=fit_checks
     )
     quantities = derived_quantities(study, idata.posterior, temperature_ref)
+    span = np.array(problem.temperature_span_K)
     result = FitResult(
         study=study,
         results_dir=target,
         reference_temperature_K=temperature_ref,
         diagnostics=diagnostics,
-        summary=summary_table(quantities),
+        summary=summary_table(quantities, temperature_ref, extrapolated_rows(study, span)),
         tables=problem.extra_tables(),
         correlations=correlation_table(study, idata.posterior, temperature_ref),
-        fit_checks=fit_checks,
-        extrapolations=extrapolation_notes(study, np.array(problem.temperature_span_K)),
+        fit_checks=fit_checks_file(study, fit_checks),
+        extrapolations=extrapolation_notes(study, span),
         idata=idata,
     )
     steps.done("summarised", f"verdict {diagnostics.verdict}")
-    _write(result, problem, sampling.model_dump(), quantities, overwrite, steps, command_line)
+    _write(result, problem, fit_checks, sampling.model_dump(), quantities, overwrite, steps, command_line)
     steps.done("wrote results", str(target))
     if study.scenarios:
         from ..inputs.schema import ScenarioFile
@@ -178,12 +187,14 @@ def _pair_columns(quantities: dict) -> dict[str, np.ndarray]:
 def _write(
     result: FitResult,
     problem: Problem,
+    fit_checks: pd.DataFrame,
     sampling: dict,
     quantities: dict,
     overwrite: bool,
     steps: Steps,
     command_line: str | None,
 ) -> None:
+    """Write the results folder; ``fit_checks`` are the checks with plain column names, as the figures read them."""
     study, idata = result.study, result.idata
     attrs = {
         "arrhenia_version": __version__,
@@ -223,7 +234,7 @@ def _write(
         folder.write_csv("fit_checks.csv", result.fit_checks)
         folder.write_json("diagnostics.json", {**result.diagnostics.to_dict(), "predictive_coverage_90": coverage})
         idata.to_netcdf(str(folder.path("posterior.nc")))
-        problem.figures(folder, idata, result.reference_temperature_K, result.fit_checks)
+        problem.figures(folder, idata, result.reference_temperature_K, fit_checks)
         plots.pair_plot(_pair_columns(quantities), folder.path("figures/pair.png"), seed=sampling["seed"])
         plots.prior_posterior_plot(study, idata.posterior, folder.path("figures/prior_posterior.png"))
         folder.write_text("study.yaml", resolved_study_yaml(study, result.reference_temperature_K, sampling))
@@ -265,6 +276,8 @@ def provenance_differences(folder: Path, study: Study) -> list[str]:
     (by the sha256 its manifest recorded) is a difference.
     """
     folder = Path(folder)
+    if not folder.exists():
+        return [f"{folder} does not exist (no results there)"]
     if not folder.is_dir():
         return [f"{folder} is not a folder (no results there)"]
     manifest_path = folder / "manifest.json"

@@ -1,0 +1,351 @@
+"""Which experiment next: what a candidate experiment would do to the posterior, before it is made.
+
+Method (preposterior analysis by importance reweighting). After the data y of a new experiment the posterior is
+p(theta | D, y) ∝ p(theta | D) p(y | theta), so the current posterior draws theta_d, weighted by
+w_d ∝ p(y | theta_d), represent it (self-normalised importance sampling with the current posterior as the proposal).
+Data sets y_s are simulated from the candidate's likelihood at S posterior draws (so they follow the current
+predictive distribution); for each, the target's weighted sd; their mean is the expected posterior sd of the target
+after the experiment (Chaloner and Verdinelli, "Bayesian experimental design: a review", Statistical Science 10,
+1995, from memory). The expected information gain about the parameters (nats) is the mean Kullback-Leibler
+divergence of the reweighted draws from the current ones, mean_s sum_d w_sd log(D w_sd), the same quantity the
+nested Monte Carlo estimator of Ryan (J. Comput. Graph. Stat. 12, 2003; from memory) estimates (``nested_gain``);
+it cannot exceed log D. Kish's effective number of weights, 1 / sum_d w_sd^2, says how many draws carry each
+reweighted posterior: few, and the estimate is unreliable (the new posterior is much narrower than the current one,
+or lies in its tail).
+
+Everything is plain arrays: ``(S, D)`` log-likelihood matrices (simulated data set s under draw d), targets
+``(D,)`` in display units. Latent quantities of a new run (its temperature error, its share of run-to-run scatter,
+its uncertain initial concentrations) are drawn once per posterior draw, which keeps the reweighting exact on the
+augmented space at the cost of fewer effective weights.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+
+import numpy as np
+import xarray as xr
+from scipy.special import gammaln, logsumexp
+
+from ..errors import StudyError
+from ..inputs import units
+from ..inputs.candidates import CandidateRun, Target
+from ..inputs.schema import Noise
+from ..inputs.study import Study
+from ..physics.arrhenius import ln_rate_constant
+from ..physics.parameters import ParameterDraws
+from ..physics.solution import NetworkSolver, SolverFailure
+
+#: Predictions are floored here before their log is taken (as the model does: a zero has no log).
+TINY = 1e-300
+#: Below this many effective weights (median over simulated data sets) an estimate is flagged unreliable: the sd
+#: of one reweighted posterior then has a relative Monte Carlo error above about 1/sqrt(2 x 50) = 10 % (the
+#: normal-theory standard error of a sample sd; from memory).
+MIN_EFFECTIVE = 50
+#: Elements of one block of the (S, D, M) residual array (memory bound of ``log_likelihood``).
+_BLOCK = 2_000_000
+
+
+@dataclass(frozen=True)
+class Reweighting:
+    """What simulated data sets of one candidate (or set of candidates) do to the target, averaged over sets.
+
+    ``expected_sd`` and its Monte Carlo standard error ``se``; ``expected_width90``: the mean 90 % interval width;
+    ``gain``: expected information gain (nats) and its standard error ``gain_se``; ``effective`` and
+    ``effective_min``: the median and smallest effective number of weights over data sets; ``sets``: data sets used
+    (those whose source draw solved)."""
+
+    expected_sd: float
+    se: float
+    expected_width90: float
+    gain: float
+    gain_se: float
+    effective: float
+    effective_min: float
+    sets: int
+
+
+def stacked(posterior: xr.Dataset, picks: np.ndarray) -> xr.Dataset:
+    """The picked draws of every variable along one ``sample`` axis (the order ``parameter_draws`` uses)."""
+    return posterior.stack(sample=("chain", "draw")).isel(sample=picks)
+
+
+def _column(draws: xr.Dataset, name: str, dimension: str, label: str) -> np.ndarray:
+    return np.asarray(draws[name].sel({dimension: label}).values, dtype=float)
+
+
+def target_values(target: Target, draws: xr.Dataset, study: Study, temperature_ref: float) -> np.ndarray:
+    """The target in each picked draw (D,), in its display unit (``Target.unit``)."""
+    value = _column(draws, target.variable, target.dimension, target.coordinate)
+    if target.kind == "energy":
+        return np.asarray(units.joule_per_mol_to(value, study.units.energy), dtype=float)
+    if target.kind == "exp":
+        return np.exp(value)
+    if target.kind in ("k_at", "ln_k_at"):
+        ln_k = ln_rate_constant(
+            target.kelvin,
+            value,
+            _column(draws, "Ea", "reaction", target.coordinate),
+            temperature_ref,
+            _exponent(draws, study, target.coordinate),
+        )
+        return np.exp(ln_k) if target.kind == "k_at" else ln_k
+    return value
+
+
+def _exponent(draws: xr.Dataset, study: Study, reaction: str) -> np.ndarray | float:
+    if "temperature_exponent" in draws:
+        return _column(draws, "temperature_exponent", "reaction", reaction)
+    return study.reactions[study.reaction_names.index(reaction)].temperature_exponent
+
+
+def model_scale(values: np.ndarray, noise: Noise) -> np.ndarray:
+    """Values on the scale the noise model acts on: their log for proportional and robust noise."""
+    if noise.model == "absolute":
+        return np.asarray(values, dtype=float)
+    with np.errstate(invalid="ignore"):
+        return np.log(np.maximum(values, TINY))
+
+
+def _log_density(observed: np.ndarray, predicted: np.ndarray, sigma: np.ndarray, noise: Noise) -> np.ndarray:
+    """Log density of ``observed`` on the model scale (the log transform's Jacobian depends on the data only and
+    cancels from every weight)."""
+    z = (observed - predicted) / sigma
+    if noise.model == "robust":
+        nu = noise.nu
+        return (
+            gammaln((nu + 1) / 2)
+            - gammaln(nu / 2)
+            - 0.5 * math.log(nu * math.pi)
+            - np.log(sigma)
+            - (nu + 1) / 2 * np.log1p(z * z / nu)
+        )
+    return -0.5 * z * z - np.log(sigma) - 0.5 * math.log(2 * math.pi)
+
+
+def log_likelihood(observed: np.ndarray, predicted: np.ndarray, sigma: np.ndarray, noise: Noise) -> np.ndarray:
+    """(S, D): log p(data set s | draw d), ``observed`` (S, M), ``predicted`` and ``sigma`` (D, M), all on the model
+    scale; -inf for draws whose prediction failed (NaN), NaN for data sets simulated from such a draw."""
+    n_sets, n_draws, n_values = observed.shape[0], predicted.shape[0], observed.shape[1]
+    out = np.empty((n_sets, n_draws))
+    block = max(1, _BLOCK // max(1, n_draws * n_values))
+    for start in range(0, n_sets, block):
+        rows = slice(start, start + block)
+        terms = _log_density(observed[rows, None, :], predicted[None], sigma[None], noise)
+        out[rows] = terms.sum(axis=2)
+    failed = ~np.all(np.isfinite(predicted), axis=1)
+    out[:, failed] = -np.inf
+    out[~np.all(np.isfinite(observed), axis=1)] = np.nan
+    return out
+
+
+def simulate(predicted: np.ndarray, sigma: np.ndarray, noise: Noise, rng: np.random.Generator) -> np.ndarray:
+    """Data sets on the model scale: ``predicted`` (S, M) plus noise of the study's model with sd ``sigma``."""
+    if noise.model == "robust":
+        errors = rng.standard_t(noise.nu, size=predicted.shape)
+    else:
+        errors = rng.standard_normal(predicted.shape)
+    return predicted + sigma * errors
+
+
+def reweigh(loglik: np.ndarray, target: np.ndarray) -> Reweighting:
+    """The expected posterior of ``target`` (D,) after the data sets of ``loglik`` (S, D).
+
+    The standard error combines the spread over data sets with the error of the base draws, taken from the
+    influence of each draw on the mean reweighted sd (delta method for self-normalised weights; draws treated as
+    independent)."""
+    rows = np.all(~np.isnan(loglik), axis=1) & np.any(np.isfinite(loglik), axis=1)
+    loglik, g = loglik[rows], np.asarray(target, dtype=float)
+    n_sets, n_draws = loglik.shape
+    if n_sets == 0:
+        nan = float("nan")
+        return Reweighting(nan, nan, nan, nan, nan, 0.0, 0.0, 0)
+    weights = np.exp(loglik - loglik.max(axis=1, keepdims=True))
+    weights /= weights.sum(axis=1, keepdims=True)
+    mean = weights @ g
+    deviation = (g[None, :] - mean[:, None]) ** 2
+    variance = np.sum(weights * deviation, axis=1)
+    sd = np.sqrt(variance)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        influence = n_draws * weights * (deviation - variance[:, None]) / (2 * sd[:, None])
+        log_ratio = np.where(weights > 0, np.log(n_draws * weights), 0.0)  # log of new over current density
+    kl = np.sum(weights * log_ratio, axis=1)
+    # Influence of draw d on KL_s = E_w[log r] - log E[exp l]: D w_d (log r_d - KL_s - 1) + 1.
+    gain_influence = (n_draws * weights * (log_ratio - kl[:, None] - 1) + 1).mean(axis=0)
+    se = _standard_error(np.nan_to_num(influence).mean(axis=0), sd)
+    gain_se = _standard_error(gain_influence, kl)
+    effective = 1.0 / np.sum(weights**2, axis=1)
+    order = np.argsort(g)
+    cumulative = np.cumsum(weights[:, order], axis=1)
+    low = g[order][np.minimum((cumulative < 0.05).sum(axis=1), n_draws - 1)]
+    high = g[order][np.minimum((cumulative < 0.95).sum(axis=1), n_draws - 1)]
+    return Reweighting(
+        float(sd.mean()),
+        se,
+        float(np.mean(high - low)),
+        float(kl.mean()),
+        gain_se,
+        float(np.median(effective)),
+        float(effective.min()),
+        int(n_sets),
+    )
+
+
+def _standard_error(influence: np.ndarray, per_set: np.ndarray) -> float:
+    """Standard error of the mean over data sets of ``per_set``: the base draws' share from their mean influence
+    (D,), plus the spread over data sets."""
+    n_draws, n_sets = influence.size, per_set.size
+    spread = per_set.var(ddof=1) / n_sets if n_sets > 1 else 0.0
+    return math.sqrt(float(np.sum(influence**2)) / n_draws**2 + spread)
+
+
+def current(target: np.ndarray) -> tuple[float, float]:
+    """The target's sd and 90 % interval width now (the same estimators as ``reweigh`` with equal weights)."""
+    g = np.sort(np.asarray(target, dtype=float))
+    n = g.size
+    cumulative = np.arange(1, n + 1) / n
+    low = g[min(int((cumulative < 0.05).sum()), n - 1)]
+    high = g[min(int((cumulative < 0.95).sum()), n - 1)]
+    return float(np.std(g)), float(high - low)
+
+
+def nested_gain(loglik: np.ndarray, sources: np.ndarray) -> float:
+    """The nested Monte Carlo estimate of the expected information gain (nats): mean over data sets s of
+    log p(y_s | theta_{source s}) - log mean_d p(y_s | theta_d), the draws themselves serving as the inner sample."""
+    rows = np.all(~np.isnan(loglik), axis=1)
+    inner = logsumexp(loglik[rows], axis=1) - math.log(loglik.shape[1])
+    return float(np.mean(loglik[rows, sources[rows]] - inner))
+
+
+def greedy_set(logliks: list[np.ndarray], target: np.ndarray, count: int) -> list[tuple[int, Reweighting]]:
+    """The best set of ``count`` candidates chosen one at a time: each step adds the candidate that most lowers the
+    expected sd given those already chosen (their simulated data sets share the source draws, their noise is
+    independent, so log-likelihoods add)."""
+    chosen: list[tuple[int, Reweighting]] = []
+    total = np.zeros_like(logliks[0])
+    for _ in range(count):
+        scored = [
+            (reweigh(total + loglik, target), index)
+            for index, loglik in enumerate(logliks)
+            if index not in {i for i, _ in chosen}
+        ]
+        best, index = min(scored, key=lambda pair: (np.nan_to_num(pair[0].expected_sd, nan=np.inf), pair[1]))
+        chosen.append((index, best))
+        total = total + logliks[index]
+    return chosen
+
+
+def sigma_draws(
+    draws: xr.Dataset, names: list[str], stated: np.ndarray | None, where: str, repeat: int = 1
+) -> np.ndarray:
+    """The noise model's sd (D, len(names) x repeat): ``stated`` (one per name), else the posterior's ``sigma``
+    (shared, or the one of each measured name)."""
+    n_draws = draws.sizes["sample"]
+    if stated is not None:
+        return np.tile(np.broadcast_to(stated, (n_draws, len(names))), (1, repeat))
+    if "sigma" not in draws:
+        raise StudyError(f"{where}.noise", "the fit states its data's errors, so a candidate must state 'noise'")
+    sigma = draws["sigma"]
+    per = [dim for dim in sigma.dims if dim != "sample"]
+    if not per:
+        columns = np.repeat(np.asarray(sigma.values, dtype=float)[:, None], len(names), axis=1)
+    else:
+        known = [str(label) for label in sigma.coords[per[0]].values]
+        missing = [name for name in names if name not in known]
+        if missing:
+            raise StudyError(
+                f"{where}.noise",
+                f"the fit has no noise scale for {', '.join(missing)} (it measured {', '.join(known)})",
+                "state 'noise' for this candidate",
+            )
+        columns = np.stack([np.asarray(sigma.sel({per[0]: name}).values, dtype=float) for name in names], axis=1)
+    return np.tile(columns, (1, repeat))
+
+
+def rate_constant_predictions(
+    study: Study, draws: xr.Dataset, run: CandidateRun, temperature_ref: float, rng: np.random.Generator
+) -> np.ndarray:
+    """The candidate's rate constants (D, replicates) under each draw, in the study's rate-constant unit. With a
+    stated temperature error the candidate's true temperature is drawn once per draw (replicates share it)."""
+    reaction = study.reaction_names[run.reaction]
+    n_draws = draws.sizes["sample"]
+    kelvin = np.full(n_draws, run.kelvin)
+    if study.temperature_sd_K is not None:
+        kelvin = kelvin + study.temperature_sd_K * rng.standard_normal(n_draws)
+    ln_k = ln_rate_constant(
+        kelvin,
+        _column(draws, "ln_k_ref", "reaction", reaction),
+        _column(draws, "Ea", "reaction", reaction),
+        temperature_ref,
+        _exponent(draws, study, reaction),
+    )
+    return np.repeat(np.exp(ln_k)[:, None], run.replicates, axis=1)
+
+
+def new_run_draws(
+    study: Study, parameters: ParameterDraws, draws: xr.Dataset, run: CandidateRun, rng: np.random.Generator
+) -> tuple[ParameterDraws, np.ndarray, np.ndarray]:
+    """The latent quantities of a new run, one per draw: its shift of ln k (``run_variability``), true temperature
+    (K; a stated temperature error) and initial concentrations (``initial_uncertainty``). Returns the draws with
+    that shift, the temperatures (D,) and the initial concentrations (D, N)."""
+    n_draws = parameters.size
+    if study.run_variability is not None:
+        varying = list(study.run_variability.reactions)
+        spread = np.moveaxis(np.asarray(draws["ln_k_spread"].values, dtype=float), -1, 0)  # (D, varying)
+        shift = np.zeros((n_draws, len(study.reactions)))
+        shift[:, varying] = spread * rng.standard_normal(spread.shape)
+        parameters = replace(parameters, new_run_shift=shift)
+    kelvin = np.full(n_draws, run.kelvin)
+    if study.temperature_sd_K is not None:
+        kelvin = kelvin + study.temperature_sd_K * rng.standard_normal(n_draws)
+    initial = np.repeat(run.initial[None], n_draws, axis=0)
+    for name, share in study.initial_uncertainty:
+        i = study.species.index(name)
+        initial[:, i] *= np.exp(share * rng.standard_normal(n_draws))
+    return parameters, kelvin, initial
+
+
+def batch_concentrations(
+    study: Study, parameters: ParameterDraws, kelvin: np.ndarray, initial: np.ndarray, times: np.ndarray
+) -> np.ndarray:
+    """Concentrations (D, times, N) of an isothermal batch run under each draw (each draw one run of the compiled
+    solver); NaN for draws whose integration fails."""
+    n_draws, n_species = initial.shape
+    out = np.full((n_draws, times.size, n_species), np.nan)
+    solver = NetworkSolver(study.network, [times] * n_draws)
+    if parameters.orders_vary:  # each draw its own orders: one solve per draw
+        for d in range(n_draws):
+            try:
+                solution = solver.solve(
+                    parameters.inputs(d, kelvin[d : d + 1], initial[d : d + 1]), sensitivities=False
+                )
+            except SolverFailure:
+                continue
+            out[d] = solution.concentrations[0]
+        return out
+    inputs = parameters.as_runs(kelvin, initial[0])._replace(initial=initial)
+    start = 0
+    while start < n_draws:  # a failed draw ends one solve: the draws before it are solved again, those after next
+        try:
+            solution = solver.solve(_rows(inputs, slice(start, None)), sensitivities=False)
+        except SolverFailure as failure:
+            if failure.run > 0:
+                done = solver.solve(_rows(inputs, slice(start, start + failure.run)), sensitivities=False)
+                out[start : start + failure.run] = np.stack(done.concentrations)
+            start += failure.run + 1
+            continue
+        out[start:] = np.stack(solution.concentrations)
+        break
+    return out
+
+
+def _rows(inputs, rows: slice):
+    """The runs ``rows`` of solver inputs with one row per run (the orders are shared)."""
+    return inputs._replace(
+        **{
+            name: value[rows]
+            for name, value in inputs._asdict().items()
+            if name != "orders" and isinstance(value, np.ndarray)
+        }
+    )

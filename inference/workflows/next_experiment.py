@@ -1,0 +1,420 @@
+"""Which experiment next: candidate experiments ranked by how much they would shrink one target's uncertainty.
+
+The API behind ``arrhenia next``. From a saved posterior (no refit) and a candidates file, every candidate's
+measurements are predicted under each posterior draw (rate constants by the Arrhenius form, batch runs by the
+compiled network solver), data sets are simulated from them, and the posterior is reweighted by each data set
+(``posterior.design`` states the method). Written to a folder of its own: ``ranking.csv``, ``best_set.csv`` (when
+the file asks for a set), ``expected_sd.png``, ``summary.txt``, ``cautions.txt``, ``report.html`` and
+``manifest.json``. Ramped and dosed candidates, and a reactor scenario's answer as the target, are not built.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..errors import StudyError
+from ..inputs import units
+from ..inputs.candidates import (
+    CandidateFile,
+    CandidateRun,
+    Target,
+    load_candidates,
+    parse_target,
+    resolve_candidates,
+)
+from ..inputs.config import load_study
+from ..inputs.data import read_observations, read_rate_constants
+from ..inputs.study import Study
+from ..outputs import report
+from ..outputs.reporting import CAUTION
+from ..outputs.results import StagedFolder, check_target, load_results, sha256_file
+from ..posterior import design
+from ..posterior.draws import parameter_draws, pick_draws
+from ..posterior.summaries import temperature_label
+
+TABLE_COLUMNS = [
+    "candidate",
+    "target",
+    "unit",
+    "temperature",
+    "duration",
+    "current_sd",
+    "expected_sd",
+    "expected_sd_se",
+    "reduction",
+    "current_width90",
+    "expected_width90",
+    "expected_gain_nats",
+    "effective_weights",
+    "effective_weights_min",
+    "rank",
+    "extrapolated",
+    "notes",
+]
+SET_COLUMNS = [
+    "step",
+    "candidate",
+    "expected_sd",
+    "expected_sd_se",
+    "reduction",
+    "expected_gain_nats",
+    "effective_weights",
+]
+METHOD = (
+    "Each candidate's measurements were simulated at {sets} posterior draws; for each simulated data set the "
+    "{draws} posterior draws were reweighted by the candidate's likelihood of those data (importance sampling), and "
+    "the target's sd taken under the weights; the expected sd is their mean. The expected gain is the mean "
+    "Kullback-Leibler divergence of the reweighted draws from the current ones (nats, about all parameters)."
+)
+ASSUMPTIONS = (
+    "The ranking assumes the fitted model is right: a candidate's data are simulated from it, so an experiment that "
+    "would reveal a wrong model or rate law is not credited for that. Candidates are isothermal batch runs or rate "
+    "constants; ramped and dosed candidates are not built."
+)
+
+
+@dataclass(frozen=True)
+class NextExperimentResult:
+    """Outcome of ``rank_experiments``: the ranking (``TABLE_COLUMNS``), the greedy best set (``SET_COLUMNS``;
+    None unless asked for), the plain sentence, and the cautions (extrapolations, unreliable estimates, the
+    project's caution)."""
+
+    results_dir: Path
+    table: pd.DataFrame
+    best_set: pd.DataFrame | None
+    sentence: str
+    cautions: list[str]
+
+
+def _check_data(results_dir: Path, manifest: dict, study: Study) -> None:
+    """The study's data files must be the bytes the fit recorded (the resolved study names them absolutely)."""
+    recorded = manifest["data"]
+    for role, path in study.data_files:
+        entry = recorded.get(role)
+        if not isinstance(entry, dict) or not path.is_file() or sha256_file(path) != entry.get("sha256"):
+            raise StudyError(
+                str(path),
+                f"is not the {role} data the fit in {results_dir} was made from (missing, or changed since)",
+                "fit the study again to rank candidates against its data",
+            )
+
+
+def _fit_verdict(results_dir: Path) -> str:
+    try:
+        return str(json.loads((results_dir / "diagnostics.json").read_text()).get("verdict", "unknown"))
+    except (OSError, ValueError, AttributeError):
+        return "unknown"
+
+
+def _outside(kelvin: float, fitted: tuple[float, float], unit: str) -> str:
+    """'' inside the fitted range, else how far outside, in words."""
+    low, high = fitted
+    if low <= kelvin <= high:
+        return ""
+    edge = low if kelvin < low else high
+    side = "below the lowest" if kelvin < low else "above the highest"
+    return f"{abs(kelvin - edge):.3g} K {side} fitted temperature ({temperature_label(edge, unit)})"
+
+
+def _measurements(
+    study: Study,
+    run: CandidateRun,
+    draws,
+    parameters,
+    temperature_ref: float,
+    stated_sd: dict[int, float],
+    rng: np.random.Generator,
+) -> tuple[np.ndarray, np.ndarray, list[str]]:
+    """(values (D, M) on the data scale, noise sd (D, M), notes) of one candidate under every picked draw."""
+    notes = []
+    if study.mode == "rate_constants":
+        values = design.rate_constant_predictions(study, draws, run, temperature_ref, rng)
+        stated = run.noise
+        if stated is None and "sigma" not in draws:
+            stated = np.array([stated_sd[run.reaction]])
+            notes.append(f"noise: the data's median stated sd of ln k, {stated[0]:.3g}")
+        name = study.reaction_names[run.reaction]
+        return values, design.sigma_draws(draws, [name], stated, run.where, run.replicates), notes
+    shifted, kelvin, initial = design.new_run_draws(study, parameters, draws, run, rng)
+    profiles = design.batch_concentrations(study, shifted, kelvin, initial, run.times)
+    values = profiles[:, :, list(run.measured)]
+    names = [study.species[i] for i in run.measured]
+    if study.noise.model != "absolute":
+        present = np.nanmax(values, axis=1)  # (D, measured)
+        for k, name in enumerate(names):
+            if np.all(np.isnan(present[:, k])) or np.nanmedian(present[:, k]) <= design.TINY:
+                raise StudyError(
+                    f"{run.where}.measured",
+                    f"'{name}' stays at zero in this run under the posterior (nothing charged forms it), and "
+                    f"{study.noise.model} noise cannot weigh a zero concentration",
+                    "measure a species the run makes or charges",
+                )
+    failed = int(np.sum(~np.all(np.isfinite(values.reshape(values.shape[0], -1)), axis=1)))
+    if failed:
+        notes.append(f"{failed} draws could not be integrated (left out)")
+    sigma = design.sigma_draws(draws, names, run.noise, run.where, run.times.size)
+    return values.reshape(values.shape[0], -1), sigma, notes
+
+
+def _effect(reduction: float, subject: str) -> str:
+    """What a reduction of the sd does to ``subject`` (e.g. "the uncertainty of Ea[coupling]"), in words."""
+    if reduction < 0.05:
+        return f"barely change {subject}"
+    if 0.4 <= reduction <= 0.6:
+        return f"about halve {subject}"
+    return f"cut {subject} by {reduction:.0%}"
+
+
+def _what(study: Study, row: pd.Series, temperature_unit: str, time_unit: str | None, replicates: int) -> str:
+    """The candidate in words: a run at T for a duration, or a rate constant at T (with its replicates)."""
+    where = f"{row['temperature']:g} {temperature_unit}"
+    if study.mode == "rate_constants":
+        return f"rate constant measured at {where}" + (f" ({replicates} replicates)" if replicates > 1 else "")
+    return f"run at {where} for {row['duration']:g} {time_unit}"
+
+
+def _sentence(
+    study: Study, table: pd.DataFrame, target: Target, runs: dict[str, CandidateRun], temperature_unit: str, time_unit
+) -> str:
+    """One plain sentence: what the best candidate would do to the target's uncertainty, and what the worst would."""
+    best, worst = table.iloc[0], table.iloc[-1]
+    unit = f" {target.unit}" if target.unit else ""
+    text = (
+        f"A {_what(study, best, temperature_unit, time_unit, runs[best['candidate']].replicates)} "
+        f"(candidate '{best['candidate']}') would {_effect(best['reduction'], f'the uncertainty of {target.label}')} "
+        f"(expected sd {best['expected_sd']:.3g}{unit}, now {best['current_sd']:.3g})"
+    )
+    if len(table) > 1:
+        text += (
+            f"; a {_what(study, worst, temperature_unit, time_unit, runs[worst['candidate']].replicates)} "
+            f"('{worst['candidate']}') would {_effect(worst['reduction'], 'it')}"
+        )
+    return text + "."
+
+
+def rank_experiments(
+    results_dir: str | Path,
+    candidates: str | Path,
+    *,
+    target: str | None = None,
+    out: str | Path | None = None,
+    overwrite: bool = False,
+    quiet: bool = False,
+    command_line: str | None = None,
+) -> NextExperimentResult:
+    """Rank the candidate experiments of ``candidates`` (a YAML file) by the expected posterior sd of ``target``
+    (e.g. ``"Ea[coupling]"``; default the file's ``target``) after each, from the posterior in ``results_dir``.
+
+    Written to ``out`` (default ``results_dir/next_experiment``). Raises ``StudyError`` for any mistake in the input
+    before anything is written.
+    """
+    from ..outputs import plots
+
+    results_dir, path = Path(results_dir), Path(candidates)
+    manifest, idata = load_results(results_dir)
+    study = load_study(results_dir / "study.yaml")
+    _check_data(results_dir, manifest, study)
+    file: CandidateFile = load_candidates(path)
+    text = target if target is not None else file.target
+    if text is None:
+        raise StudyError("--target", "no target given", f"pass --target, or put 'target:' into {path}")
+    temperature_unit = file.units.temperature or study.units.temperature
+    chosen = parse_target(text, study, "--target" if target is not None else f"{path}: target", temperature_unit)
+    destination = Path(out) if out is not None else results_dir / "next_experiment"
+    check_target(destination, overwrite, (results_dir, path))
+
+    stated_sd: dict[int, float] = {}
+    if study.mode == "rate_constants":
+        data = read_rate_constants(study)
+        if data.ln_k_sd is not None:
+            stated_sd = {j: float(np.median(data.ln_k_sd[data.rows_of(j)])) for j in range(len(study.reactions))}
+        measured_default: tuple[str, ...] = ()
+    else:
+        obs = read_observations(study)
+        measured_default = tuple(study.species[i] for i in obs.observed_species)
+    runs = resolve_candidates(file, study, path, measured_default)
+
+    attrs = json.loads(idata.posterior.attrs["arrhenia"])
+    temperature_ref = float(attrs["reference_temperature_K"])
+    fitted = tuple(float(v) for v in attrs["temperature_range_K"])
+    picks = pick_draws(idata.posterior, file.draws)
+    draws = design.stacked(idata.posterior, picks)
+    values = design.target_values(chosen, draws, study, temperature_ref)
+    parameters = (
+        None if study.mode == "rate_constants" else parameter_draws(study, idata.posterior, temperature_ref, picks)
+    )
+    n_draws = picks.size
+    sources = np.random.default_rng([file.seed, 0]).choice(
+        n_draws, file.simulations, replace=file.simulations > n_draws
+    )
+    current_sd, current_width = design.current(values)
+
+    cautions: list[str] = []
+    verdict = _fit_verdict(results_dir)
+    if verdict != "pass":
+        cautions.append(f"The fit's verdict was '{verdict}': its posterior, and so this ranking, may not be trusted.")
+    if chosen.kelvin is not None:
+        outside = _outside(chosen.kelvin, fitted, study.units.temperature)
+        if outside:
+            cautions.append(f"EXTRAPOLATED: the target {chosen.label} lies {outside}.")
+    rows, logliks = [], []
+    for index, run in enumerate(runs):
+        rng = np.random.default_rng([file.seed, 1, index])
+        measured, sigma, notes = _measurements(study, run, draws, parameters, temperature_ref, stated_sd, rng)
+        predicted = design.model_scale(measured, study.noise)
+        simulated = design.simulate(predicted[sources], sigma[sources], study.noise, rng)
+        loglik = design.log_likelihood(simulated, predicted, sigma, study.noise)
+        logliks.append(loglik)
+        result = design.reweigh(loglik, values)
+        stated = file.candidates[index]
+        outside = _outside(run.kelvin, fitted, study.units.temperature)
+        if outside:
+            shown = f"{stated.temperature:g} {temperature_unit}"
+            notes.insert(0, f"extrapolated: {outside}")
+            cautions.append(f"EXTRAPOLATED: candidate {run.name}: temperature {shown} is {outside}.")
+        if result.effective < design.MIN_EFFECTIVE:
+            notes.append(f"unreliable: {result.effective:.0f} effective weights")
+            cautions.append(
+                f"Candidate {run.name}: only {result.effective:.0f} effective weights of {n_draws} draws (median over "
+                "simulated data sets): its expected sd is unreliable and likely too low; raise 'draws' in the "
+                "candidates file."
+            )
+        rows.append(
+            {
+                "candidate": run.name,
+                "target": chosen.label,
+                "unit": chosen.unit,
+                "temperature": stated.temperature,
+                "duration": stated.times[-1] if stated.times is not None else np.nan,
+                "current_sd": current_sd,
+                "expected_sd": result.expected_sd,
+                "expected_sd_se": result.se,
+                "reduction": 1.0 - result.expected_sd / current_sd,
+                "current_width90": current_width,
+                "expected_width90": result.expected_width90,
+                "expected_gain_nats": result.gain,
+                "effective_weights": result.effective,
+                "effective_weights_min": result.effective_min,
+                "extrapolated": bool(outside),
+                "notes": "; ".join(notes),
+            }
+        )
+        if not quiet:
+            print(f"ranked candidate {run.name} ({index + 1} of {len(runs)})", flush=True)
+    table = pd.DataFrame(rows)
+    table["rank"] = table["expected_sd"].rank(method="first", na_option="bottom").astype(int)
+    table = table.sort_values("rank")[TABLE_COLUMNS].reset_index(drop=True)
+    best_set = None
+    if file.choose is not None:
+        steps = design.greedy_set(logliks, values, file.choose)
+        best_set = pd.DataFrame(
+            [
+                {
+                    "step": step + 1,
+                    "candidate": runs[index].name,
+                    "expected_sd": result.expected_sd,
+                    "expected_sd_se": result.se,
+                    "reduction": 1.0 - result.expected_sd / current_sd,
+                    "expected_gain_nats": result.gain,
+                    "effective_weights": result.effective,
+                }
+                for step, (index, result) in enumerate(steps)
+            ],
+            columns=SET_COLUMNS,
+        )
+        if best_set["effective_weights"].iloc[-1] < design.MIN_EFFECTIVE:
+            cautions.append(
+                f"The best set's last steps rest on few effective weights ({best_set['effective_weights'].iloc[-1]:.0f}"
+                "): its expected sds are unreliable; raise 'draws' in the candidates file."
+            )
+    time_unit = (file.units.time or study.units.time) if study.mode == "network" else None
+    sentence = _sentence(study, table, chosen, {r.name: r for r in runs}, temperature_unit, time_unit)
+    cautions += [ASSUMPTIONS, CAUTION]
+    method = METHOD.format(sets=file.simulations, draws=n_draws)
+
+    with StagedFolder(destination, overwrite, (results_dir, path)) as folder:
+        folder.write_csv("ranking.csv", table)
+        if best_set is not None:
+            folder.write_csv("best_set.csv", best_set)
+        low, high = (float(units.kelvin_to(k, temperature_unit)) for k in fitted)
+        plots.next_experiment_plot(
+            table,
+            folder.path("expected_sd.png"),
+            target=chosen.label,
+            unit=chosen.unit,
+            current_sd=current_sd,
+            temperature_unit=temperature_unit,
+            time_unit=time_unit,
+            fitted_range=(low, high),
+        )
+        folder.write_text("summary.txt", sentence + "\n")
+        folder.write_text("cautions.txt", "\n".join(cautions) + "\n")
+        tables = [(f"Candidates ranked by the expected sd of {chosen.label}", table)]
+        if best_set is not None:
+            tables.append((f"Best set of {file.choose}, chosen one at a time", best_set))
+        folder.write_text(
+            "report.html",
+            report.simple_report(
+                folder.stage,
+                title=f"Arrhenia: which experiment next for {study.name}",
+                intro=[sentence, method],
+                tables=tables,
+                figures=[
+                    (
+                        "expected_sd.png",
+                        f"Expected posterior sd of {chosen.label} after each candidate against its temperature "
+                        "(±2 Monte Carlo se); dashed: the sd now; shaded: the fitted temperature range",
+                    )
+                ],
+                cautions=cautions,
+            ),
+        )
+        folder.write_manifest(
+            "next_experiment",
+            {
+                "results": str(results_dir),
+                "results_posterior_sha256": manifest["files"]["posterior.nc"],
+                "candidates": {"path": str(path.resolve()), "sha256": sha256_file(path)},
+                "target": chosen.label,
+                "draws": int(n_draws),
+                "simulations": file.simulations,
+                "seed": file.seed,
+                "fitted_temperature_range_K": list(fitted),
+                "method": method,
+                "cautions": cautions,
+            },
+            command_line,
+        )
+    return NextExperimentResult(destination, table, best_set, sentence, cautions)
+
+
+def next_experiment_report(result: NextExperimentResult) -> str:
+    """Terminal text: the ranking, the best set, the sentence and the cautions."""
+    shown = result.table[
+        [
+            "rank",
+            "candidate",
+            "temperature",
+            "current_sd",
+            "expected_sd",
+            "expected_sd_se",
+            "expected_gain_nats",
+            "effective_weights",
+            "notes",
+        ]
+    ]
+    lines = ["", f"candidates ranked by the expected posterior sd of {result.table['target'].iloc[0]}:"]
+    lines.append(shown.to_string(index=False, float_format="{:.4g}".format))
+    if result.best_set is not None:
+        lines += [
+            "",
+            "best set, chosen one at a time:",
+            result.best_set.to_string(index=False, float_format="{:.4g}".format),
+        ]
+    lines += ["", result.sentence, "", *result.cautions, "", f"next experiment: {result.results_dir}"]
+    return "\n".join(lines)

@@ -1,0 +1,344 @@
+"""Which experiment next: the reweighting estimates against exact answers, the ranking against real refits, the
+files written, and bad input.
+
+Exact answers come from the conjugate normal linear model of ln k on 1/T with known noise (Bishop, Pattern
+Recognition and Machine Learning, 2006, sec. 3.3, eqs. 3.50-3.51): the posterior covariance after one more point x
+of noise sd s is (S^-1 + x x^T / s^2)^-1 whatever the point's value, and the expected information gain about the
+parameters is (1/2) ln(1 + x^T S x / s^2) (the mutual information of a linear Gaussian model; from memory).
+"""
+
+from __future__ import annotations
+
+import json
+import shutil
+import textwrap
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+from test_network_model import _simulate, arrhenius_k
+
+from inference import fit_study, load_study, rank_experiments
+from inference.inputs.schema import Noise
+from inference.physics.arrhenius import R
+from inference.posterior import design
+
+T_REF = 330.0
+#: The conjugate design of tests/test_conjugate.py: two points at each of 35, 50, 65, 80 degC, sd of ln k 0.15.
+DATA_C = np.repeat([35.0, 50.0, 65.0, 80.0], 2)
+REL_SD = 0.15
+TRUE_LN_K_REF, TRUE_EA = np.log(2e-3), 85_000.0
+
+
+def _x(celsius: float | np.ndarray) -> np.ndarray:
+    """Rows of the design matrix of ln k = ln k_ref - (Ea/R)(1/T - 1/T_ref) in (ln k_ref, Ea)."""
+    kelvin = np.atleast_1d(celsius) + 273.15
+    return np.column_stack([np.ones_like(kelvin), -(1 / kelvin - 1 / T_REF) / R])
+
+
+def _conjugate_posterior(prior_mean, prior_sd, ln_k):
+    x = _x(DATA_C)
+    precision = np.diag(1 / np.asarray(prior_sd) ** 2)
+    covariance = np.linalg.inv(precision + x.T @ x / REL_SD**2)
+    mean = covariance @ (precision @ np.asarray(prior_mean) + x.T @ ln_k / REL_SD**2)
+    return mean, covariance
+
+
+def _exact_sd_after(covariance, celsius: float, sd: float, replicates: int = 1) -> float:
+    """Posterior sd of Ea (J/mol) after ``replicates`` points at ``celsius`` with noise sd ``sd`` (Bishop 3.51)."""
+    x = _x(celsius)[0]
+    updated = np.linalg.inv(np.linalg.inv(covariance) + replicates * np.outer(x, x) / sd**2)
+    return float(np.sqrt(updated[1, 1]))
+
+
+#: (temperature in degC, sd of ln k, replicates): exact sds 8 % or more apart, so the ranking is no coin toss.
+CANDIDATES_C = [(35.0, 0.15, 1), (57.5, 0.15, 3), (95.0, 0.15, 1), (110.0, 0.05, 1)]
+
+
+def test_expected_sd_and_gain_match_the_conjugate_closed_form():
+    # Independent draws from the exact posterior, so the only errors are the method's Monte Carlo errors.
+    rng = np.random.default_rng(20261202)
+    mean, covariance = _conjugate_posterior([TRUE_LN_K_REF, 80_000.0], [2.3, 10_000.0], np.zeros(DATA_C.size))
+    draws = rng.multivariate_normal(mean, covariance, size=4000)
+    target = draws[:, 1] / 1000  # Ea in kJ/mol
+    noise = Noise(model="proportional")
+    sources = rng.choice(draws.shape[0], 400, replace=False)
+    estimated, exact = [], []
+    for celsius, sd, replicates in CANDIDATES_C:
+        predicted = np.repeat((draws @ _x(celsius)[0])[:, None], replicates, axis=1)
+        sigma = np.full_like(predicted, sd)
+        simulated = design.simulate(predicted[sources], sigma[sources], noise, rng)
+        loglik = design.log_likelihood(simulated, predicted, sigma, noise)
+        result = design.reweigh(loglik, target)
+        expected = _exact_sd_after(covariance, celsius, sd, replicates) / 1000
+        # Four Monte Carlo standard errors: a false alarm in well under 1 run in 10,000 per check.
+        assert abs(result.expected_sd - expected) < 4 * result.se, (celsius, result, expected)
+        x = _x(celsius)[0]
+        gain = 0.5 * np.log(1 + replicates * (x @ covariance @ x) / sd**2)
+        assert abs(result.gain - gain) < 4 * result.gain_se, (celsius, result.gain, gain)
+        # The nested Monte Carlo estimator (Ryan 2003) of the same gain; its terms are independent across data sets.
+        terms = loglik[np.arange(sources.size), sources] - (
+            np.logaddexp.reduce(loglik, axis=1) - np.log(draws.shape[0])
+        )
+        assert abs(design.nested_gain(loglik, sources) - gain) < 4 * terms.std() / np.sqrt(sources.size)
+        estimated.append(result.expected_sd)
+        exact.append(expected)
+    assert list(np.argsort(estimated)) == list(np.argsort(exact))
+
+
+def test_log_likelihood_is_the_noise_models_density():
+    # scipy.stats' normal and Student-t densities; the proportional model's on the log of the values.
+    rng = np.random.default_rng(5)
+    observed, predicted, sigma = rng.normal(size=(3, 4)), rng.normal(size=(5, 4)), rng.uniform(0.1, 0.5, (5, 4))
+    for noise, density in (
+        (Noise(model="absolute"), lambda y, m, s: stats.norm.logpdf(y, m, s)),
+        (Noise(model="robust", nu=4.0), lambda y, m, s: stats.t.logpdf(y, 4.0, m, s)),
+    ):
+        expected = np.array([[density(y, m, s).sum() for m, s in zip(predicted, sigma, strict=True)] for y in observed])
+        assert np.allclose(design.log_likelihood(observed, predicted, sigma, noise), expected, rtol=1e-12)
+    assert np.allclose(design.model_scale(np.array([1.0, np.e]), Noise(model="proportional")), [0.0, 1.0])
+
+
+@pytest.fixture(scope="module")
+def conjugate_fit(tmp_path_factory):
+    """The rate-constant model with stated errors (known noise), fitted: its folder and exact posterior."""
+    folder = tmp_path_factory.mktemp("conjugate")
+    rng = np.random.default_rng(11)
+    ln_k = (_x(DATA_C) @ [TRUE_LN_K_REF, TRUE_EA]) + REL_SD * rng.standard_normal(DATA_C.size)
+    (folder / "k.csv").write_text(
+        "temperature,k,k_rel_sd\n"
+        + "".join(f"{t:g},{np.exp(y):.17g},{REL_SD:g}\n" for t, y in zip(DATA_C, ln_k, strict=True))
+    )
+    (folder / "study.yaml").write_text(
+        textwrap.dedent(
+            f"""\
+            study: conjugate
+            units: {{temperature: degC, energy: J/mol, rate_constant: 1/s}}
+            data: {{rate_constants: k.csv}}
+            reactions:
+              - name: step
+                k_ref: {{median: 0.001, factor: 50}}
+                Ea: {{mean: 80000, sd: 10000}}
+            reference_temperature: {T_REF} K
+            sampling: {{draws: 1500, tune: 700, chains: 2, seed: 5}}
+            """
+        )
+    )
+    study = load_study(folder / "study.yaml")
+    prior = study.reactions[0].prior
+    _, covariance = _conjugate_posterior(
+        [prior.ln_k_ref_mean, prior.ea_mean], [prior.ln_k_ref_sd, prior.ea_sd], ln_k
+    )
+    fit_study(study, out=folder / "res", quiet=True)
+    return folder, covariance
+
+
+def test_ranking_from_a_fitted_posterior_matches_the_closed_form(conjugate_fit, run_cli, tmp_path):
+    folder, covariance = conjugate_fit
+    candidates = tmp_path / "candidates.yaml"
+    lines = ["draws: 3000", "simulations: 400", "candidates:"]
+    for index, (celsius, sd, replicates) in enumerate(CANDIDATES_C):
+        lines.append(f"  - {{name: c{index}, temperature: {celsius}, noise: {sd}, replicates: {replicates}}}")
+    candidates.write_text("\n".join(lines) + "\n")
+    out = tmp_path / "next"
+    code, stdout, stderr = run_cli("next", folder / "res", candidates, "--target", "Ea[step]", "--out", out)
+    assert code == 0, stderr
+    assert "EXTRAPOLATED: candidate c3" in stdout
+    assert {p.name for p in out.iterdir()} == {
+        "ranking.csv",
+        "expected_sd.png",
+        "summary.txt",
+        "cautions.txt",
+        "report.html",
+        "manifest.json",
+    }
+    table = pd.read_csv(out / "ranking.csv").set_index("candidate")
+    exact = {f"c{i}": _exact_sd_after(covariance, c, sd, n) for i, (c, sd, n) in enumerate(CANDIDATES_C)}
+    for name, row in table.iterrows():
+        # MCMC draws: the standard error treats the picked draws as independent (ESS here is near the draw count).
+        assert abs(row["expected_sd"] - exact[name]) < 4 * row["expected_sd_se"], (
+            name,
+            row["expected_sd"],
+            exact[name],
+        )
+        assert row["unit"] == "J/mol" and row["target"] == "Ea[step]"
+    assert list(table.sort_values("rank").index) == sorted(exact, key=exact.get)
+    assert table.loc["c3", "extrapolated"] and not table.loc["c1", "extrapolated"]
+    assert json.loads((out / "manifest.json").read_text())["kind"] == "next_experiment"
+    assert "would" in (out / "summary.txt").read_text()
+
+
+def test_a_results_folder_that_no_longer_matches_is_refused(conjugate_fit, run_cli, tmp_path):
+    folder, _ = conjugate_fit
+    candidates = tmp_path / "candidates.yaml"
+    candidates.write_text("target: Ea[step]\ncandidates:\n  - {name: a, temperature: 90, noise: 0.1}\n")
+    copy = tmp_path / "res"
+    shutil.copytree(folder / "res", copy)
+    with (copy / "posterior.nc").open("ab") as handle:
+        handle.write(b"\0")
+    code, _, stderr = run_cli("next", copy, candidates, "--out", tmp_path / "out1")
+    assert code == 2 and "posterior.nc" in stderr and len(stderr.strip().splitlines()) == 1
+    data = folder / "k.csv"
+    original = data.read_text()
+    try:
+        data.write_text(original + "90,0.5,0.15\n")
+        code, _, stderr = run_cli("next", folder / "res", candidates, "--out", tmp_path / "out2")
+    finally:
+        data.write_text(original)
+    assert code == 2 and "k.csv" in stderr and len(stderr.strip().splitlines()) == 1
+    assert not (tmp_path / "out1").exists() and not (tmp_path / "out2").exists()
+
+
+RATE_CONSTANT_CASES = [
+    ("unknown target", "  - {name: a, temperature: 90}\n", "Ea[nope]", ["--target", "'nope' is not a reaction"]),
+    ("target not computable", "  - {name: a, temperature: 90}\n", "dH[step]", ["--target", "not reversible"]),
+    ("batch keys", "  - {name: a, temperature: 90, times: [1, 2]}\n", "Ea[step]", ["candidates[0].times"]),
+    ("below absolute zero", "  - {name: a, temperature: -300}\n", "Ea[step]", ["candidates[0].temperature"]),
+    ("ramped", "  - {name: a, temperature: 90, programme: [[0, 40], [60, 90]]}\n", "Ea[step]", ["not built yet"]),
+    ("twice", "  - {name: a, temperature: 90}\n  - {name: a, temperature: 95}\n", "Ea[step]", ["used twice"]),
+]
+
+
+@pytest.mark.parametrize(
+    ("body", "target", "expected"), [c[1:] for c in RATE_CONSTANT_CASES], ids=[c[0] for c in RATE_CONSTANT_CASES]
+)
+def test_bad_rate_constant_candidates(conjugate_fit, run_cli, tmp_path, body, target, expected):
+    folder, _ = conjugate_fit
+    candidates = tmp_path / "candidates.yaml"
+    candidates.write_text("candidates:\n" + body)
+    _refused(run_cli, ("next", folder / "res", candidates, "--target", target), tmp_path, expected)
+
+
+def _refused(run_cli, args, tmp_path, expected) -> None:
+    out = tmp_path / "out"
+    code, _, stderr = run_cli(*args, "--out", out)
+    assert code == 2, stderr
+    lines = stderr.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("arrhenia: error: "), stderr
+    for fragment in expected:
+        assert fragment in lines[0], lines[0]
+    assert not out.exists()
+    assert [p.name for p in tmp_path.iterdir() if p.name.startswith(".")] == []
+
+
+RUN = "{name: a, temperature: 60, initial: {A: 1.0}, times: [5, 10, 20]"
+NETWORK_CASES = [
+    (
+        "unknown species",
+        RUN.replace("A: 1.0", "Q: 1.0") + "}",
+        "Ea[first]",
+        ["candidates[0].initial.Q", "not a species"],
+    ),
+    ("unknown measured", RUN + ", measured: [A, Z]}", "Ea[first]", ["candidates[0].measured", "'Z'"]),
+    ("nothing charged", RUN.replace("A: 1.0", "A: 0") + "}", "Ea[first]", ["candidates[0].initial", "charges nothing"]),
+    ("negative amount", RUN.replace("A: 1.0", "A: -1") + "}", "Ea[first]", ["candidates[0].initial.A"]),
+    ("times fall", RUN.replace("5, 10, 20", "10, 5") + "}", "Ea[first]", ["candidates[0]", "rise"]),
+    ("zero time", RUN.replace("5, 10, 20", "0, 5") + "}", "Ea[first]", ["candidates[0].times"]),
+    ("never formed", RUN.replace("A: 1.0", "C: 1.0") + ", measured: [A]}", "Ea[first]", ["measured", "stays at zero"]),
+    ("hot", RUN.replace("60", "5000") + "}", "Ea[first]", ["candidates[0].temperature", "plausible"]),
+    ("dosed", RUN + ", feeds: []}", "Ea[first]", ["candidates[0]", "not built yet"]),
+    ("rate-constant keys", RUN + ", replicates: 2}", "Ea[first]", ["candidates[0].replicates"]),
+    ("noise of another species", RUN + ", measured: [A], noise: {B: 0.1}}", "Ea[first]", ["noise.B"]),
+    ("unknown target", RUN + "}", "time_to[first]", ["--target", "not a target"]),
+    ("k without temperature", RUN + "}", "k[first]", ["--target", "needs a temperature"]),
+    ("fitted order not in study", RUN + "}", "order[first:A]", ["--target", "no fitted order"]),
+]
+
+
+@pytest.mark.parametrize(
+    ("body", "target", "expected"), [c[1:] for c in NETWORK_CASES], ids=[c[0] for c in NETWORK_CASES]
+)
+def test_bad_batch_candidates(fitted, run_cli, tmp_path, body, target, expected):
+    _, result = fitted
+    candidates = tmp_path / "candidates.yaml"
+    candidates.write_text(f"candidates:\n  - {body}\n")
+    _refused(run_cli, ("next", result.results_dir, candidates, "--target", target), tmp_path, expected)
+
+
+def test_no_target_and_missing_file(fitted, run_cli, tmp_path):
+    _, result = fitted
+    candidates = tmp_path / "candidates.yaml"
+    candidates.write_text(f"candidates:\n  - {RUN}}}\n")
+    _refused(run_cli, ("next", result.results_dir, candidates), tmp_path, ["--target", "no target"])
+    _refused(
+        run_cli, ("next", result.results_dir, tmp_path / "nope.yaml", "--target", "Ea[first]"), tmp_path, ["nope.yaml"]
+    )
+
+
+TRUE = {"first": (0.12, 60_000.0), "second": (0.04, 75_000.0)}  # k at 330 K (1/min), Ea (J/mol)
+CHAIN = """\
+study: chain-{name}
+units: {{time: min, temperature: degC, concentration: mol/L, energy: kJ/mol}}
+data: {{runs: runs.csv, measurements: measurements.csv}}
+species: [A, B, C]
+reactions:
+  - name: first
+    equation: A -> B
+    k_ref: {{median: 0.1, factor: 10}}
+    Ea: {{mean: 60, sd: 20}}
+  - name: second
+    equation: B -> C
+    k_ref: {{median: 0.05, factor: 10}}
+    Ea: {{mean: 70, sd: 20}}
+reference_temperature: 330 K
+noise: {{model: proportional, sigma: {{scale: 0.1}}}}
+sampling: {{draws: 300, tune: 300, chains: 2, seed: 9}}
+"""
+TIMES = np.geomspace(2.0, 120.0, 8)
+
+
+def _chain_run(label: str, celsius: float, seed: int) -> tuple[str, list[str]]:
+    """One simulated batch run of A -> B -> C from A = 1 mol/L (solve_ivp, 5 % lognormal noise): its rows."""
+    k1, k2 = (arrhenius_k(k, ea, celsius, T_REF) for k, ea in TRUE.values())
+    data = _simulate(
+        lambda t, c, k1=k1, k2=k2: [-k1 * c[0], k1 * c[0] - k2 * c[1], k2 * c[1]], 3, [1.0, 0, 0], TIMES, seed, 0.05
+    )
+    rows = [f"{label},{t:.6g}," + ",".join(f"{v:.6g}" for v in row) for t, row in zip(TIMES, data, strict=True)]
+    return f"{label},{celsius:g},1.0,0,0", rows
+
+
+def _fit_chain(folder, name: str, runs: list[tuple[str, float, int]]):
+    folder.mkdir()
+    run_rows, measurement_rows = ["run,temperature,A,B,C"], ["run,time,A,B,C"]
+    for label, celsius, seed in runs:
+        run, rows = _chain_run(label, celsius, seed)
+        run_rows.append(run)
+        measurement_rows += rows
+    (folder / "runs.csv").write_text("\n".join(run_rows) + "\n")
+    (folder / "measurements.csv").write_text("\n".join(measurement_rows) + "\n")
+    (folder / "study.yaml").write_text(CHAIN.format(name=name))
+    return fit_study(folder / "study.yaml", out=folder / "res", quiet=True)
+
+
+def _width90(result, reaction: str) -> float:
+    draws = result.idata.posterior["Ea"].sel(reaction=reaction).values.ravel()
+    return float(np.diff(np.quantile(draws, [0.05, 0.95]))[0])
+
+
+def test_the_run_ranked_first_narrows_the_interval_more_when_fitted(tmp_path):
+    # Simulated network (seeds 31 and 32 for the fitted runs, 33 for the candidate runs): A -> B -> C measured at 50
+    # and 60 degC; which of four isothermal runs (40, 55, 70, 85 degC, same sampling) pins Ea[second] best?
+    base = [("r50", 50.0, 31), ("r60", 60.0, 32)]
+    fitted = _fit_chain(tmp_path / "base", "base", base)
+    candidates = tmp_path / "candidates.yaml"
+    times = ", ".join(f"{t:.6g}" for t in TIMES)
+    candidates.write_text(
+        "target: Ea[second]\nchoose: 2\ncandidates:\n"
+        + "".join(
+            f"  - {{name: t{c:g}, temperature: {c:g}, initial: {{A: 1.0}}, times: [{times}], measured: [A, B, C]}}\n"
+            for c in (40, 55, 70, 85)
+        )
+    )
+    ranked = rank_experiments(fitted.results_dir, candidates, out=tmp_path / "next", quiet=True)
+    table = ranked.table
+    first, last = table["candidate"].iloc[0], table["candidate"].iloc[-1]
+    assert ranked.best_set["candidate"].iloc[0] == first
+    assert ranked.best_set["expected_sd"].iloc[1] < ranked.best_set["expected_sd"].iloc[0]
+    assert (table["effective_weights"] >= design.MIN_EFFECTIVE).all()
+    widths = {}
+    for name in (first, last):
+        celsius = float(name[1:])
+        refit = _fit_chain(tmp_path / name, name, [*base, (name, celsius, 33)])
+        widths[name] = _width90(refit, "second")
+    assert widths[first] < widths[last], (table, widths, _width90(fitted, "second"))
