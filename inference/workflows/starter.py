@@ -80,8 +80,8 @@ def _measurements(run: str) -> str:
 # Measurements of the runs, wide layout: run, time (units.time), then one column per measured species (or declared
 # quantity, see observations in the study file) with its value (units.concentration); a blank cell: not measured.
 # Times are >= 0 and rise within each run. With proportional or robust noise every value must be positive: write a
-# value below a detection limit as <0.002. Any subset of species may be measured. The long layout (run, time,
-# species, value, and optionally limit) is read as well.
+# value below a detection limit as <0.002, and leave blank a species known to be absent (0 at time 0). Any subset
+# of species may be measured. The long layout (run, time, species, value, and optionally limit) is read as well.
 {_COMMENTS} Example row: {run},30,0.62,0.35
 run,time,A,P
 """
