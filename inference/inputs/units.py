@@ -6,6 +6,7 @@ study declares, so rate constants are reported in the units the user reads and t
 
 from __future__ import annotations
 
+import math
 from functools import cache
 
 import numpy as np
@@ -138,3 +139,12 @@ def rate_constant_order(unit: str) -> float:
     """The overall reaction order m implied by a rate-constant unit, concentration^(1-m)/time."""
     dims = dict(registry().Unit(unit).dimensionality)
     return 1.0 - float(dims.get("[substance]", 0))
+
+
+def amount_unit(concentration: str, volume: str) -> str:
+    """The unit of concentration x volume: reduced where that is exact (mol/L x L = mol), else the product."""
+    ureg = registry()
+    reduced = (ureg.Quantity(1.0, concentration) * ureg.Quantity(1.0, volume)).to_reduced_units()
+    if len(list(reduced.unit_items())) == 1 and math.isclose(reduced.magnitude, 1.0, rel_tol=1e-12):
+        return f"{reduced.units:~}"
+    return f"{concentration}*{volume}"

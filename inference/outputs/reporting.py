@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import time
 from typing import TYPE_CHECKING, Protocol
 
@@ -46,7 +47,9 @@ def fit_report(result: FitResult) -> str:
     d = result.diagnostics
     lines = [
         "",
-        f"diagnostics: {d.verdict.upper()}  (max R-hat {d.r_hat_max:.3f}, min ESS bulk {d.ess_bulk_min:.0f} / "
+        f"diagnostics: {d.verdict.upper()}  ("
+        + (f"max R-hat {d.r_hat_max:.3f}" if math.isfinite(d.r_hat_max) else "R-hat needs two or more chains")
+        + f", min ESS bulk {d.ess_bulk_min:.0f} / "
         f"tail {d.ess_tail_min:.0f}, {d.divergences} divergences, "
         f"{result.fit_checks['inside_90'].mean():.0%} of measurements inside their 90 % predictive interval)",
     ]

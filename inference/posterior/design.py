@@ -22,6 +22,7 @@ augmented space at the cost of fewer effective weights.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -33,8 +34,8 @@ from ..inputs import units
 from ..inputs.candidates import CandidateRun, Target
 from ..inputs.schema import Noise
 from ..inputs.study import Study
-from ..physics.arrhenius import ln_rate_constant
-from ..physics.parameters import ParameterDraws
+from ..physics.arrhenius import R, ln_rate_constant
+from ..physics.parameters import ParameterDraws, SensitivityLayout
 from ..physics.solution import NetworkSolver, SolverFailure
 
 #: Predictions are floored here before their log is taken (as the model does: a zero has no log).
@@ -43,6 +44,10 @@ TINY = 1e-300
 #: of one reweighted posterior then has a relative Monte Carlo error above about 1/sqrt(2 x 50) = 10 % (the
 #: normal-theory standard error of a sample sd; from memory).
 MIN_EFFECTIVE = 50
+#: Under log-scale noise, a candidate's measurement counts only where its typical prediction reaches this share of
+#: the largest initial concentration: below, no instrument sees it, and the integrator's absolute tolerance (1e-9 of
+#: it) makes its log meaningless (spurious information that would collapse the weights).
+DETECTABLE = 1e-6
 #: Elements of one block of the (S, D, M) residual array (memory bound of ``log_likelihood``).
 _BLOCK = 2_000_000
 
@@ -218,21 +223,15 @@ def nested_gain(loglik: np.ndarray, sources: np.ndarray) -> float:
     return float(np.mean(loglik[rows, sources[rows]] - inner))
 
 
-def greedy_set(logliks: list[np.ndarray], target: np.ndarray, count: int) -> list[tuple[int, Reweighting]]:
-    """The best set of ``count`` candidates chosen one at a time: each step adds the candidate that most lowers the
-    expected sd given those already chosen (their simulated data sets share the source draws, their noise is
-    independent, so log-likelihoods add)."""
-    chosen: list[tuple[int, Reweighting]] = []
-    total = np.zeros_like(logliks[0])
+def greedy(count: int, size: int, expected_sd: Callable[[list[int]], float]) -> list[int]:
+    """The best set of ``count`` of ``size`` candidates chosen one at a time: each step adds the candidate that most
+    lowers ``expected_sd`` of the set chosen so far (for reweighting, the sets' log-likelihoods add: their data sets
+    share the source draws and their noise is independent; linearised, their Fisher informations add)."""
+    chosen: list[int] = []
     for _ in range(count):
-        scored = [
-            (reweigh(total + loglik, target), index)
-            for index, loglik in enumerate(logliks)
-            if index not in {i for i, _ in chosen}
-        ]
-        best, index = min(scored, key=lambda pair: (np.nan_to_num(pair[0].expected_sd, nan=np.inf), pair[1]))
-        chosen.append((index, best))
-        total = total + logliks[index]
+        rest = [i for i in range(size) if i not in chosen]
+        scores = np.array([expected_sd([*chosen, i]) for i in rest])
+        chosen.append(rest[int(np.argmin(np.where(np.isnan(scores), np.inf, scores)))])
     return chosen
 
 
@@ -349,3 +348,173 @@ def _rows(inputs, rows: slice):
             if name != "orders" and isinstance(value, np.ndarray)
         }
     )
+
+
+# The linearised (Laplace) estimate: the posterior as a Gaussian in the kinetic parameters, the candidate's data
+# as linear in them about each draw (Fisher information averaged over draws), so the updated covariance is
+# (Sigma^-1 + F)^-1 and the gain (1/2) ln det(I + Sigma F), exact for a linear Gaussian model (Long, Scavino,
+# Tempone and Wang, Comput. Methods Appl. Mech. Eng. 259, 2013; from memory). It needs no importance weights, so
+# it holds where the reweighting runs out of effective draws; it ignores a new run's own latent quantities.
+
+#: Draws over which a candidate's Fisher information is averaged.
+FISHER_DRAWS = 100
+
+#: How a column's sensitivity follows from the solver's: d/d ln k_ref is d/d ln k; d/dEa is d/d ln k times
+#: -(1/T - 1/T_ref)/R; d/dn is d/d ln k times ln(T/T_ref) (``physics.arrhenius.ln_rate_constant``).
+_LEVEL, _ENERGY, _EXPONENT = "level", "energy", "exponent"
+
+
+@dataclass(frozen=True)
+class ParameterColumn:
+    """One kinetic parameter of the linearised posterior: posterior ``variable`` at ``label`` of ``dimension``,
+    the solver's sensitivity column ``source`` it derives from, and how (``_LEVEL``, ``_ENERGY``, ``_EXPONENT``)."""
+
+    variable: str
+    dimension: str
+    label: str
+    source: int
+    kind: str
+
+
+def parameter_columns(study: Study) -> list[ParameterColumn]:
+    """The kinetic parameters a candidate's predictions depend on, in the solver's block order (ln k, ln K_c,
+    ln K_ads, fitted orders): Arrhenius and van 't Hoff pairs, fitted temperature exponents and orders."""
+    names = study.reaction_names
+    columns = []
+    for j, spec in enumerate(study.reactions):
+        columns += [
+            ParameterColumn("ln_k_ref", "reaction", spec.name, j, _LEVEL),
+            ParameterColumn("Ea", "reaction", spec.name, j, _ENERGY),
+        ]
+        if spec.exponent_sd is not None:
+            columns.append(ParameterColumn("temperature_exponent", "reaction", spec.name, j, _EXPONENT))
+    if study.mode != "network":
+        return columns
+    offset = len(names)
+    reversible = [r.name for r in study.reactions if r.equilibrium is not None]
+    for q, name in enumerate(reversible):
+        columns += [
+            ParameterColumn("ln_K_ref", "reversible", name, offset + q, _LEVEL),
+            ParameterColumn("dH", "reversible", name, offset + q, _ENERGY),
+        ]
+    offset += len(reversible)
+    sites = [f"{r.name}:{site.species}" for r in study.reactions for site in r.adsorption]
+    for s, label in enumerate(sites):
+        columns += [
+            ParameterColumn("ln_K_ads_ref", "adsorption_site", label, offset + s, _LEVEL),
+            ParameterColumn("dH_ads", "adsorption_site", label, offset + s, _ENERGY),
+        ]
+    offset += len(sites)
+    fitted = [f"{r.name}:{f.species}" for r in study.reactions for f in r.fitted_orders]
+    columns += [ParameterColumn("order", "fitted_order", label, offset + o, _LEVEL) for o, label in enumerate(fitted)]
+    return columns
+
+
+@dataclass(frozen=True)
+class Linearised:
+    """The posterior as a Gaussian in standardised parameters z = (theta - centre) / scale: ``covariance`` of z,
+    the target's best linear predictor ``coefficients`` in z, and the ``residual`` variance of the target that is
+    not linear in them (kept as it is: the linearised estimate does not shrink it)."""
+
+    columns: list[ParameterColumn]
+    centre: np.ndarray
+    scale: np.ndarray
+    covariance: np.ndarray
+    coefficients: np.ndarray
+    residual: float
+
+    @classmethod
+    def of(cls, columns: list[ParameterColumn], draws: xr.Dataset, target: np.ndarray) -> Linearised:
+        values = np.column_stack([_column(draws, c.variable, c.dimension, c.label) for c in columns])
+        centre, scale = values.mean(axis=0), values.std(axis=0)
+        scale = np.where(scale > 0, scale, 1.0)
+        z = (values - centre) / scale
+        covariance = np.atleast_2d(np.cov(z, rowvar=False))
+        g = np.asarray(target, dtype=float)
+        coefficients = np.linalg.lstsq(covariance, (z - z.mean(axis=0)).T @ (g - g.mean()) / (g.size - 1), rcond=None)[
+            0
+        ]
+        residual = max(0.0, float(np.var(g, ddof=1) - coefficients @ covariance @ coefficients))
+        return cls(columns, centre, scale, covariance, coefficients, residual)
+
+    def effect(self, fisher: np.ndarray) -> tuple[float, float]:
+        """(expected sd of the target, expected gain in nats) after data of Fisher information ``fisher`` (in z)."""
+        size = self.covariance.shape[0]
+        updated = np.linalg.solve(np.eye(size) + self.covariance @ fisher, self.covariance)
+        sd = math.sqrt(max(0.0, float(self.coefficients @ updated @ self.coefficients)) + self.residual)
+        gain = 0.5 * np.linalg.slogdet(np.eye(size) + self.covariance @ fisher)[1]
+        return sd, float(gain)
+
+
+def fisher_weight(sigma: np.ndarray, noise: Noise) -> np.ndarray:
+    """Fisher information of a location per measurement: 1/sigma^2, times (nu + 1)/(nu + 3) for Student-t noise
+    (Lange, Little and Taylor, JASA 84, 1989; from memory)."""
+    weight = 1.0 / np.asarray(sigma, dtype=float) ** 2
+    return weight * (noise.nu + 1) / (noise.nu + 3) if noise.model == "robust" else weight
+
+
+def _multipliers(columns: list[ParameterColumn], kelvin: float, temperature_ref: float) -> np.ndarray:
+    slope = -(1 / kelvin - 1 / temperature_ref) / R
+    factors = {_LEVEL: 1.0, _ENERGY: slope, _EXPONENT: math.log(kelvin / temperature_ref)}
+    return np.array([factors[c.kind] for c in columns])
+
+
+def fisher_information(jacobians: list[np.ndarray], weights: list[np.ndarray], scale: np.ndarray) -> np.ndarray:
+    """Mean over draws of J^T W J in standardised parameters: ``jacobians`` (M, P) of the model-scale predictions in
+    theta, ``weights`` (M,) their Fisher weights."""
+    total = np.zeros((scale.size, scale.size))
+    for jacobian, weight in zip(jacobians, weights, strict=True):
+        scaled = jacobian * scale[None, :]
+        total += scaled.T @ (weight[:, None] * scaled)
+    return total / max(1, len(jacobians))
+
+
+def rate_constant_jacobian(
+    columns: list[ParameterColumn],
+    study: Study,
+    run: CandidateRun,
+    k: np.ndarray,
+    temperature_ref: float,
+    noise: Noise,
+) -> np.ndarray:
+    """(replicates, P): derivatives of the candidate's model-scale values (ln k, or k for absolute noise) in the
+    parameters, for one draw with rate constant ``k``."""
+    reaction = study.reaction_names[run.reaction]
+    row = _multipliers(columns, run.kelvin, temperature_ref) * np.array([c.label == reaction for c in columns])
+    if noise.model == "absolute":
+        row = row * k
+    return np.repeat(row[None], run.replicates, axis=0)
+
+
+def batch_jacobians(
+    study: Study,
+    columns: list[ParameterColumn],
+    parameters: ParameterDraws,
+    run: CandidateRun,
+    rows: np.ndarray,
+    temperature_ref: float,
+    noise: Noise,
+) -> tuple[list[np.ndarray], list[int]]:
+    """Derivatives (times x measured, P) of a batch candidate's model-scale values in the parameters, one per draw
+    in ``rows`` that solves, at the nominal temperature and initial concentrations; and those draws."""
+    layout = SensitivityLayout(study.network, study.sensitivity_layout().free_orders)
+    solver = NetworkSolver(study.network, [run.times], layout=layout)
+    sources = np.array([c.source for c in columns])
+    multipliers = _multipliers(columns, run.kelvin, temperature_ref)
+    measured = list(run.measured)
+    jacobians, solved = [], []
+    for d in rows:
+        try:
+            solution = solver.solve(parameters.inputs(int(d), np.array([run.kelvin]), run.initial[None]))
+        except SolverFailure:
+            continue
+        values = solution.concentrations[0][:, measured]  # (T, K)
+        sensitivity = solution.sensitivities[0][:, measured][:, :, sources] * multipliers  # (T, K, P)
+        if noise.model != "absolute":  # below the detectable share the log's derivative is the integrator's noise
+            floor = DETECTABLE * float(np.max(run.initial))
+            sensitivity = np.where(
+                values[:, :, None] >= floor, sensitivity / np.maximum(values, floor)[:, :, None], 0.0
+            )
+        jacobians.append(sensitivity.reshape(-1, len(columns)))
+        solved.append(int(d))
+    return jacobians, solved

@@ -324,7 +324,7 @@ def measured_units(study: Study, obs: Observations) -> np.ndarray:
     scale 100; 1/scale for other scales), "" for a share, a conversion or a yield."""
     concentration = study.units.concentration or ""
     if study.measured_as == "amount":
-        concentration = f"{concentration}*{study.units.volume}"
+        concentration = units.amount_unit(concentration, study.units.volume)
     if obs.quantity_index is None:
         return np.full(obs.value.size, concentration, dtype=object)
     shown = []

@@ -47,30 +47,36 @@ TABLE_COLUMNS = [
     "expected_sd",
     "expected_sd_se",
     "reduction",
-    "current_width90",
-    "expected_width90",
     "expected_gain_nats",
     "effective_weights",
-    "effective_weights_min",
     "rank",
+    "estimate",
+    "expected_sd_reweighted",
+    "expected_sd_linearised",
+    "expected_gain_linearised_nats",
+    "current_width90",
+    "expected_width90",
+    "effective_weights_min",
     "extrapolated",
     "notes",
 ]
-SET_COLUMNS = [
-    "step",
-    "candidate",
-    "expected_sd",
-    "expected_sd_se",
-    "reduction",
-    "expected_gain_nats",
-    "effective_weights",
-]
-METHOD = (
-    "Each candidate's measurements were simulated at {sets} posterior draws; for each simulated data set the "
-    "{draws} posterior draws were reweighted by the candidate's likelihood of those data (importance sampling), and "
-    "the target's sd taken under the weights; the expected sd is their mean. The expected gain is the mean "
-    "Kullback-Leibler divergence of the reweighted draws from the current ones (nats, about all parameters)."
-)
+SET_COLUMNS = ["step", "candidate", "expected_sd", "reduction", "expected_gain_nats", "effective_weights"]
+#: A normal distribution's 90 % interval is this many sds wide (2 x 1.6449).
+NORMAL_WIDTH90 = 3.289707253902945
+METHOD = {
+    "reweighting": (
+        "Each candidate's measurements were simulated at {sets} posterior draws; for each simulated data set the "
+        "{draws} posterior draws were reweighted by the candidate's likelihood of those data (importance sampling), "
+        "and the target's sd taken under the weights; the expected sd is their mean. The expected gain is the mean "
+        "Kullback-Leibler divergence of the reweighted draws from the current ones (nats, about all parameters)."
+    ),
+    "linearised": (
+        "Ranked by the linearised (Laplace) estimate: the posterior of the kinetic parameters as a Gaussian (its "
+        "covariance from {draws} draws), each candidate's data as linear in them (Fisher information averaged over "
+        "{fisher} draws); the expected sd is that of the updated Gaussian, the expected gain (1/2) ln det(I + "
+        "Sigma F) in nats. The reweighting estimate is in the table beside it."
+    ),
+}
 ASSUMPTIONS = (
     "The ranking assumes the fitted model is right: a candidate's data are simulated from it, so an experiment that "
     "would reveal a wrong model or rate law is not credited for that. Candidates are isothermal batch runs or rate "
@@ -81,14 +87,15 @@ ASSUMPTIONS = (
 @dataclass(frozen=True)
 class NextExperimentResult:
     """Outcome of ``rank_experiments``: the ranking (``TABLE_COLUMNS``), the greedy best set (``SET_COLUMNS``;
-    None unless asked for), the plain sentence, and the cautions (extrapolations, unreliable estimates, the
-    project's caution)."""
+    None unless asked for), the plain sentence, the cautions (extrapolations, unreliable estimates, the project's
+    caution), and the estimate that ranks (``reweighting``, or ``linearised`` where weights ran out)."""
 
     results_dir: Path
     table: pd.DataFrame
     best_set: pd.DataFrame | None
     sentence: str
     cautions: list[str]
+    estimate: str = "reweighting"
 
 
 def _check_data(results_dir: Path, manifest: dict, study: Study) -> None:
@@ -129,8 +136,9 @@ def _measurements(
     temperature_ref: float,
     stated_sd: dict[int, float],
     rng: np.random.Generator,
-) -> tuple[np.ndarray, np.ndarray, list[str]]:
-    """(values (D, M) on the data scale, noise sd (D, M), notes) of one candidate under every picked draw."""
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, list[str]]:
+    """(values (D, M) on the data scale, noise sd (D, M), which of the candidate's measurements count (its times x
+    measured species, flattened), notes) of one candidate under every picked draw."""
     notes = []
     if study.mode == "rate_constants":
         values = design.rate_constant_predictions(study, draws, run, temperature_ref, rng)
@@ -139,13 +147,17 @@ def _measurements(
             stated = np.array([stated_sd[run.reaction]])
             notes.append(f"noise: the data's median stated sd of ln k, {stated[0]:.3g}")
         name = study.reaction_names[run.reaction]
-        return values, design.sigma_draws(draws, [name], stated, run.where, run.replicates), notes
+        sigma = design.sigma_draws(draws, [name], stated, run.where, run.replicates)
+        return values, sigma, np.ones(run.replicates, dtype=bool), notes
     shifted, kelvin, initial = design.new_run_draws(study, parameters, draws, run, rng)
     profiles = design.batch_concentrations(study, shifted, kelvin, initial, run.times)
     values = profiles[:, :, list(run.measured)]
     names = [study.species[i] for i in run.measured]
+    flat = values.reshape(values.shape[0], -1)
+    keep = np.ones(flat.shape[1], dtype=bool)
     if study.noise.model != "absolute":
-        present = np.nanmax(values, axis=1)  # (D, measured)
+        with np.errstate(all="ignore"):
+            present, typical = np.nanmax(values, axis=1), np.nanmedian(flat, axis=0)
         for k, name in enumerate(names):
             if np.all(np.isnan(present[:, k])) or np.nanmedian(present[:, k]) <= design.TINY:
                 raise StudyError(
@@ -154,11 +166,25 @@ def _measurements(
                     f"{study.noise.model} noise cannot weigh a zero concentration",
                     "measure a species the run makes or charges",
                 )
-    failed = int(np.sum(~np.all(np.isfinite(values.reshape(values.shape[0], -1)), axis=1)))
+        floor = design.DETECTABLE * float(np.max(run.initial))
+        keep = typical >= floor
+        if not keep.any():
+            raise StudyError(
+                f"{run.where}.times",
+                f"every measured value is predicted below {floor:.3g} (a millionth of the largest initial "
+                "concentration): nothing left to measure",
+                "sample earlier, or measure a species the run makes",
+            )
+        if not keep.all():
+            notes.append(
+                f"{int((~keep).sum())} of {keep.size} measurements predicted below {floor:.3g} (a millionth of the "
+                "largest initial concentration) left out"
+            )
+    failed = int(np.sum(~np.all(np.isfinite(flat), axis=1)))
     if failed:
         notes.append(f"{failed} draws could not be integrated (left out)")
     sigma = design.sigma_draws(draws, names, run.noise, run.where, run.times.size)
-    return values.reshape(values.shape[0], -1), sigma, notes
+    return flat[:, keep], sigma[:, keep], keep, notes
 
 
 def _effect(reduction: float, subject: str) -> str:
@@ -195,6 +221,47 @@ def _sentence(
             f"('{worst['candidate']}') would {_effect(worst['reduction'], 'it')}"
         )
     return text + "."
+
+
+@dataclass
+class _Candidate:
+    """What one candidate does: reweighting and linearised estimates, and what the best set is built from."""
+
+    run: CandidateRun
+    reweighted: design.Reweighting
+    linearised: tuple[float, float]
+    loglik: np.ndarray
+    fisher: np.ndarray
+    notes: list[str]
+
+
+def _fisher(
+    study: Study,
+    run: CandidateRun,
+    linear: design.Linearised,
+    parameters,
+    values: np.ndarray,
+    sigma: np.ndarray,
+    keep: np.ndarray,
+    temperature_ref: float,
+) -> np.ndarray:
+    """The candidate's Fisher information in the linearised posterior's standardised parameters, averaged over
+    ``design.FISHER_DRAWS`` draws spread over all (``values`` (D, M) on the data scale and ``sigma`` (D, M) of the
+    measurements that count, ``keep``)."""
+    rows = np.unique(np.linspace(0, values.shape[0] - 1, design.FISHER_DRAWS).astype(int))
+    if study.mode == "rate_constants":
+        jacobians = [
+            design.rate_constant_jacobian(linear.columns, study, run, values[d, 0], temperature_ref, study.noise)
+            for d in rows
+        ]
+        solved = list(rows)
+    else:
+        jacobians, solved = design.batch_jacobians(
+            study, linear.columns, parameters, run, rows, temperature_ref, study.noise
+        )
+        jacobians = [jacobian[keep] for jacobian in jacobians]
+    weights = [design.fisher_weight(sigma[d], study.noise) for d in solved]
+    return design.fisher_information(jacobians, weights, linear.scale)
 
 
 def rank_experiments(
@@ -245,97 +312,37 @@ def rank_experiments(
     picks = pick_draws(idata.posterior, file.draws)
     draws = design.stacked(idata.posterior, picks)
     values = design.target_values(chosen, draws, study, temperature_ref)
-    parameters = (
-        None if study.mode == "rate_constants" else parameter_draws(study, idata.posterior, temperature_ref, picks)
-    )
+    linear = design.Linearised.of(design.parameter_columns(study), draws, values)
+    network = study.mode == "network"
+    parameters = parameter_draws(study, idata.posterior, temperature_ref, picks) if network else None
     n_draws = picks.size
     sources = np.random.default_rng([file.seed, 0]).choice(
         n_draws, file.simulations, replace=file.simulations > n_draws
     )
     current_sd, current_width = design.current(values)
 
-    cautions: list[str] = []
-    verdict = _fit_verdict(results_dir)
-    if verdict != "pass":
-        cautions.append(f"The fit's verdict was '{verdict}': its posterior, and so this ranking, may not be trusted.")
-    if chosen.kelvin is not None:
-        outside = _outside(chosen.kelvin, fitted, study.units.temperature)
-        if outside:
-            cautions.append(f"EXTRAPOLATED: the target {chosen.label} lies {outside}.")
-    rows, logliks = [], []
+    found: list[_Candidate] = []
     for index, run in enumerate(runs):
         rng = np.random.default_rng([file.seed, 1, index])
-        measured, sigma, notes = _measurements(study, run, draws, parameters, temperature_ref, stated_sd, rng)
+        measured, sigma, keep, notes = _measurements(study, run, draws, parameters, temperature_ref, stated_sd, rng)
         predicted = design.model_scale(measured, study.noise)
         simulated = design.simulate(predicted[sources], sigma[sources], study.noise, rng)
         loglik = design.log_likelihood(simulated, predicted, sigma, study.noise)
-        logliks.append(loglik)
-        result = design.reweigh(loglik, values)
-        stated = file.candidates[index]
-        outside = _outside(run.kelvin, fitted, study.units.temperature)
-        if outside:
-            shown = f"{stated.temperature:g} {temperature_unit}"
-            notes.insert(0, f"extrapolated: {outside}")
-            cautions.append(f"EXTRAPOLATED: candidate {run.name}: temperature {shown} is {outside}.")
-        if result.effective < design.MIN_EFFECTIVE:
-            notes.append(f"unreliable: {result.effective:.0f} effective weights")
-            cautions.append(
-                f"Candidate {run.name}: only {result.effective:.0f} effective weights of {n_draws} draws (median over "
-                "simulated data sets): its expected sd is unreliable and likely too low; raise 'draws' in the "
-                "candidates file."
-            )
-        rows.append(
-            {
-                "candidate": run.name,
-                "target": chosen.label,
-                "unit": chosen.unit,
-                "temperature": stated.temperature,
-                "duration": stated.times[-1] if stated.times is not None else np.nan,
-                "current_sd": current_sd,
-                "expected_sd": result.expected_sd,
-                "expected_sd_se": result.se,
-                "reduction": 1.0 - result.expected_sd / current_sd,
-                "current_width90": current_width,
-                "expected_width90": result.expected_width90,
-                "expected_gain_nats": result.gain,
-                "effective_weights": result.effective,
-                "effective_weights_min": result.effective_min,
-                "extrapolated": bool(outside),
-                "notes": "; ".join(notes),
-            }
-        )
+        fisher = _fisher(study, run, linear, parameters, measured, sigma, keep, temperature_ref)
+        found.append(_Candidate(run, design.reweigh(loglik, values), linear.effect(fisher), loglik, fisher, notes))
         if not quiet:
-            print(f"ranked candidate {run.name} ({index + 1} of {len(runs)})", flush=True)
-    table = pd.DataFrame(rows)
-    table["rank"] = table["expected_sd"].rank(method="first", na_option="bottom").astype(int)
-    table = table.sort_values("rank")[TABLE_COLUMNS].reset_index(drop=True)
+            print(f"assessed candidate {run.name} ({index + 1} of {len(runs)})", flush=True)
+
+    few = [c.run.name for c in found if not c.reweighted.effective >= design.MIN_EFFECTIVE]
+    estimate = "linearised" if few else "reweighting"
+    cautions = _cautions(results_dir, study, chosen, fitted, found, few, file, temperature_unit)
+    table = _table(found, file, chosen, estimate, current_sd, current_width, fitted, study)
     best_set = None
     if file.choose is not None:
-        steps = design.greedy_set(logliks, values, file.choose)
-        best_set = pd.DataFrame(
-            [
-                {
-                    "step": step + 1,
-                    "candidate": runs[index].name,
-                    "expected_sd": result.expected_sd,
-                    "expected_sd_se": result.se,
-                    "reduction": 1.0 - result.expected_sd / current_sd,
-                    "expected_gain_nats": result.gain,
-                    "effective_weights": result.effective,
-                }
-                for step, (index, result) in enumerate(steps)
-            ],
-            columns=SET_COLUMNS,
-        )
-        if best_set["effective_weights"].iloc[-1] < design.MIN_EFFECTIVE:
-            cautions.append(
-                f"The best set's last steps rest on few effective weights ({best_set['effective_weights'].iloc[-1]:.0f}"
-                "): its expected sds are unreliable; raise 'draws' in the candidates file."
-            )
-    time_unit = (file.units.time or study.units.time) if study.mode == "network" else None
+        best_set = _best_set(found, file.choose, estimate, linear, values, current_sd)
+    time_unit = (file.units.time or study.units.time) if network else None
     sentence = _sentence(study, table, chosen, {r.name: r for r in runs}, temperature_unit, time_unit)
-    cautions += [ASSUMPTIONS, CAUTION]
-    method = METHOD.format(sets=file.simulations, draws=n_draws)
+    method = METHOD[estimate].format(sets=file.simulations, draws=n_draws, fisher=design.FISHER_DRAWS)
 
     with StagedFolder(destination, overwrite, (results_dir, path)) as folder:
         folder.write_csv("ranking.csv", table)
@@ -368,7 +375,7 @@ def rank_experiments(
                     (
                         "expected_sd.png",
                         f"Expected posterior sd of {chosen.label} after each candidate against its temperature "
-                        "(±2 Monte Carlo se); dashed: the sd now; shaded: the fitted temperature range",
+                        "(±2 Monte Carlo se where estimated); dashed: the sd now; shaded: the fitted temperature range",
                     )
                 ],
                 cautions=cautions,
@@ -381,8 +388,10 @@ def rank_experiments(
                 "results_posterior_sha256": manifest["files"]["posterior.nc"],
                 "candidates": {"path": str(path.resolve()), "sha256": sha256_file(path)},
                 "target": chosen.label,
+                "estimate": estimate,
                 "draws": int(n_draws),
                 "simulations": file.simulations,
+                "fisher_draws": design.FISHER_DRAWS,
                 "seed": file.seed,
                 "fitted_temperature_range_K": list(fitted),
                 "method": method,
@@ -390,7 +399,138 @@ def rank_experiments(
             },
             command_line,
         )
-    return NextExperimentResult(destination, table, best_set, sentence, cautions)
+    return NextExperimentResult(destination, table, best_set, sentence, cautions, estimate)
+
+
+def _cautions(
+    results_dir: Path,
+    study: Study,
+    target: Target,
+    fitted: tuple[float, float],
+    found: list[_Candidate],
+    few: list[str],
+    file: CandidateFile,
+    temperature_unit: str,
+) -> list[str]:
+    """The fit's verdict when not 'pass', extrapolations (target and candidates), which estimate ranks and why,
+    the method's assumptions and the project's caution."""
+    cautions = []
+    verdict = _fit_verdict(results_dir)
+    if verdict != "pass":
+        cautions.append(f"The fit's verdict was '{verdict}': its posterior, and so this ranking, may not be trusted.")
+    if target.kelvin is not None:
+        outside = _outside(target.kelvin, fitted, study.units.temperature)
+        if outside:
+            cautions.append(f"EXTRAPOLATED: the target {target.label} lies {outside}.")
+    for candidate, stated in zip(found, file.candidates, strict=True):
+        outside = _outside(candidate.run.kelvin, fitted, study.units.temperature)
+        if outside:
+            cautions.append(
+                f"EXTRAPOLATED: candidate {stated.name}: temperature {stated.temperature:g} {temperature_unit} is "
+                f"{outside}; the ranking trusts the fitted model out there."
+            )
+    if few:
+        latent = study.run_variability is not None or study.initial_uncertainty or study.temperature_sd_K is not None
+        cautions.append(
+            f"Ranked by the linearised estimate: the reweighting of {', '.join(few)} rests on fewer than "
+            f"{design.MIN_EFFECTIVE} effective weights (median over simulated data sets), i.e. such data would narrow "
+            "the posterior far beyond its current draws. The linearised estimate treats the posterior as Gaussian and "
+            "the data as linear in the parameters; where the posterior is far from Gaussian, read it as rough."
+            + (
+                " It also ignores a new run's own scatter, temperature error and uncertain initial amounts, so it "
+                "is optimistic for this study."
+                if latent
+                else ""
+            )
+        )
+    return [*cautions, ASSUMPTIONS, CAUTION]
+
+
+def _table(
+    found: list[_Candidate],
+    file: CandidateFile,
+    target: Target,
+    estimate: str,
+    current_sd: float,
+    current_width: float,
+    fitted: tuple[float, float],
+    study: Study,
+) -> pd.DataFrame:
+    """The ranking: one row per candidate (``TABLE_COLUMNS``), best first."""
+    rows = []
+    for candidate, stated in zip(found, file.candidates, strict=True):
+        weighted, (linear_sd, linear_gain) = candidate.reweighted, candidate.linearised
+        by_weights = estimate == "reweighting"
+        expected = weighted.expected_sd if by_weights else linear_sd
+        outside = _outside(candidate.run.kelvin, fitted, study.units.temperature)
+        notes = ([f"extrapolated: {outside}"] if outside else []) + candidate.notes
+        if weighted.effective < design.MIN_EFFECTIVE:
+            notes.append(f"reweighting unreliable ({weighted.effective:.0f} effective weights)")
+        rows.append(
+            {
+                "candidate": stated.name,
+                "target": target.label,
+                "unit": target.unit,
+                "temperature": stated.temperature,
+                "duration": stated.times[-1] if stated.times is not None else np.nan,
+                "current_sd": current_sd,
+                "expected_sd": expected,
+                "expected_sd_se": weighted.se if by_weights else np.nan,
+                "reduction": 1.0 - expected / current_sd,
+                "expected_gain_nats": weighted.gain if by_weights else linear_gain,
+                "effective_weights": weighted.effective,
+                "estimate": estimate,
+                "expected_sd_reweighted": weighted.expected_sd,
+                "expected_sd_linearised": linear_sd,
+                "expected_gain_linearised_nats": linear_gain,
+                "current_width90": current_width,
+                "expected_width90": weighted.expected_width90 if by_weights else NORMAL_WIDTH90 * linear_sd,
+                "effective_weights_min": weighted.effective_min,
+                "extrapolated": bool(outside),
+                "notes": "; ".join(notes),
+            }
+        )
+    table = pd.DataFrame(rows)
+    table["rank"] = table["expected_sd"].rank(method="first", na_option="bottom").astype(int)
+    return table.sort_values("rank")[TABLE_COLUMNS].reset_index(drop=True)
+
+
+def _best_set(
+    found: list[_Candidate],
+    count: int,
+    estimate: str,
+    linear: design.Linearised,
+    values: np.ndarray,
+    current_sd: float,
+) -> pd.DataFrame:
+    """The greedy best set (``SET_COLUMNS``), by the estimate that ranks; the effective weights of the reweighting
+    of each growing set are shown either way."""
+
+    def reweighted(chosen: list[int]) -> design.Reweighting:
+        return design.reweigh(sum(found[i].loglik for i in chosen), values)
+
+    def linearised(chosen: list[int]) -> tuple[float, float]:
+        return linear.effect(sum(found[i].fisher for i in chosen))
+
+    if estimate == "reweighting":
+        order = design.greedy(count, len(found), lambda chosen: reweighted(chosen).expected_sd)
+    else:
+        order = design.greedy(count, len(found), lambda chosen: linearised(chosen)[0])
+    rows = []
+    for step in range(1, count + 1):
+        weighted = reweighted(order[:step])
+        sd, gain = (weighted.expected_sd, weighted.gain) if estimate == "reweighting" else linearised(order[:step])
+        rows.append(
+            {
+                "step": step,
+                "candidate": found[order[step - 1]].run.name,
+                "expected_sd": sd,
+                "reduction": 1.0 - sd / current_sd,
+                "expected_gain_nats": gain,
+                "effective_weights": weighted.effective,
+            }
+        )
+    return pd.DataFrame(rows, columns=SET_COLUMNS)
 
 
 def next_experiment_report(result: NextExperimentResult) -> str:
@@ -403,12 +543,15 @@ def next_experiment_report(result: NextExperimentResult) -> str:
             "current_sd",
             "expected_sd",
             "expected_sd_se",
+            "expected_sd_reweighted",
+            "expected_sd_linearised",
             "expected_gain_nats",
             "effective_weights",
             "notes",
         ]
     ]
-    lines = ["", f"candidates ranked by the expected posterior sd of {result.table['target'].iloc[0]}:"]
+    target = result.table["target"].iloc[0]
+    lines = ["", f"candidates ranked by the expected posterior sd of {target} ({result.estimate} estimate):"]
     lines.append(shown.to_string(index=False, float_format="{:.4g}".format))
     if result.best_set is not None:
         lines += [

@@ -105,8 +105,8 @@ class _Units:
                     1.0, concentration, study.units.concentration, "concentration", f"{where}: units.concentration"
                 )
             ),
-            amount_unit(study.units.concentration, volume),
-            amount_unit(concentration, volume),
+            units.amount_unit(study.units.concentration, volume),
+            units.amount_unit(concentration, volume),
         )
 
     def temperature_in_study(self, value: float, study: Study, where: str) -> float:
@@ -183,15 +183,6 @@ class _Units:
                     row[k] = float(units.kelvin_to(kelvin, self.temperature)[0])
             row["unit"] = self.temperature
         return row
-
-
-def amount_unit(concentration: str, volume: str) -> str:
-    """The unit of concentration x volume: reduced where that is exact (mol/L x L = mol), else the product."""
-    ureg = units.registry()
-    reduced = (ureg.Quantity(1.0, concentration) * ureg.Quantity(1.0, volume)).to_reduced_units()
-    if len(list(reduced.unit_items())) == 1 and math.isclose(reduced.magnitude, 1.0, rel_tol=1e-12):
-        return f"{reduced.units:~}"
-    return f"{concentration}*{volume}"
 
 
 def _to_kelvin(study: Study, value: float | np.ndarray, where: str) -> np.ndarray:
@@ -463,7 +454,7 @@ class _Predictor:
         """Profiles of a dosed batch besides the concentrations: the liquid volume, and per dosed species the
         amount fed so far, the amount still in the vessel (c V) and its share of the amount charged so far."""
         study = self.study
-        amount = amount_unit(study.units.concentration, study.units.volume)
+        amount = units.amount_unit(study.units.concentration, study.units.volume)
         draws = present.shape[0]
         fed = fed_amounts(self.feeds(scenario), axis, len(study.species))
         out = {"volume": (study.units.volume, np.broadcast_to(volume, (draws, axis.size)))}
@@ -479,7 +470,7 @@ class _Predictor:
     ) -> list[dict]:
         """Per dosed species: the largest amount in the vessel, when it is reached, and its share then."""
         study, name = self.study, scenario.name
-        amount = amount_unit(study.units.concentration, study.units.volume)
+        amount = units.amount_unit(study.units.concentration, study.units.volume)
         out = []
         for species in self.dosed_species(scenario):
             i = study.species.index(species)

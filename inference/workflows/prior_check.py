@@ -16,6 +16,7 @@ from ..outputs.results import (
     sha256_json,
 )
 from ..physics.arrhenius import auto_reference_temperature
+from ..posterior.summaries import fit_checks_file
 from .fit import study_inputs
 from .kinds import open_problem
 
@@ -42,7 +43,7 @@ def prior_predictive_check(
         prior = pm.sample_prior_predictive(draws=draws, random_seed=study.sampling.seed)
     # fit_checks reads the predictive group; the prior draws stand in for the posterior ones here.
     stand_in = az.InferenceData(posterior_predictive=prior.prior_predictive)
-    table = problem.fit_checks(stand_in)
+    table = fit_checks_file(study, problem.fit_checks(stand_in))  # the columns of fit_checks.csv
     inside = float(table["inside_90"].mean())
     with StagedFolder(target, overwrite, study_inputs(study)) as folder:
         folder.write_csv("prior_predictive.csv", table)
