@@ -4,7 +4,8 @@ Two kinds of candidate exist today, one per kind of study: for a rate-constant s
 a ``temperature`` (``replicates`` times); for a network study, an isothermal batch run at a ``temperature`` from
 ``initial`` concentrations, sampled at ``times``, with the ``measured`` species. ``noise`` is the sd of the
 study's noise model (of ln of the value for proportional and robust noise, in concentration or rate-constant
-units for absolute noise); left out, the posterior's noise scale is used. Ramped and dosed candidates are not built.
+units for absolute noise); left out, the posterior's noise scale is used. A batch run's ``detection_limit``
+(concentration): values predicted below it are left out. Ramped and dosed candidates are not built.
 
 Everything is checked against the study here and restated in its units (K, the study's time and concentration).
 """
@@ -42,6 +43,7 @@ class Candidate(Strict):
     reaction: Name | None = None
     replicates: Annotated[int, Field(ge=1, le=100)] = 1
     noise: PositiveFloat | dict[str, PositiveFloat] | None = None
+    detection_limit: PositiveFloat | None = None
 
     @model_validator(mode="before")
     @classmethod
@@ -93,8 +95,9 @@ class CandidateFile(Strict):
 @dataclass(frozen=True)
 class CandidateRun:
     """A candidate in the study's units: ``kelvin``; for a batch run ``initial`` (N,), ``times`` (study time unit)
-    and ``measured`` (species indices); for a rate constant ``reaction`` (index) and ``replicates``. ``noise``:
-    the noise model's sd per measured species (or one value for a rate constant), None to use the posterior's.
+    and ``measured`` (species indices), ``detection_limit`` (study concentration unit, or None); for a rate constant
+    ``reaction`` (index) and ``replicates``. ``noise``: the noise model's sd per measured species (or one value for a
+    rate constant), None to use the posterior's.
     ``where``: the candidate's key path in its file."""
 
     name: str
@@ -106,6 +109,7 @@ class CandidateRun:
     reaction: int | None = None
     replicates: int = 1
     noise: np.ndarray | None = None
+    detection_limit: float | None = None
 
     @property
     def duration(self) -> float:
@@ -219,7 +223,9 @@ def _noise_vector(candidate: Candidate, names: tuple[str, ...], where: str, fact
     return np.array([candidate.noise[name] * factor for name in names])
 
 
-def resolve_candidates(file: CandidateFile, study: Study, path: Path, measured_default: tuple[str, ...]) -> list:
+def resolve_candidates(
+    file: CandidateFile, study: Study, path: Path, measured_default: tuple[str, ...]
+) -> list[CandidateRun]:
     """Every candidate checked against ``study`` and restated in its units (``CandidateRun``); ``measured_default``
     are the species a batch candidate measures when it names none (those the fit measured)."""
     given = file.units
@@ -265,11 +271,10 @@ def _batch_run(
     concentration_factor: float,
     measured_default: tuple[str, ...],
 ) -> CandidateRun:
-    for key in ("reaction",):
-        if getattr(candidate, key) is not None:
-            raise StudyError(
-                f"{where}.{key}", "a network study's candidates are batch runs; 'reaction' is for rate constants"
-            )
+    if candidate.reaction is not None:
+        raise StudyError(
+            f"{where}.reaction", "a network study's candidates are batch runs; 'reaction' is for rate constants"
+        )
     if "replicates" in candidate.model_fields_set:
         raise StudyError(f"{where}.replicates", "a batch run is sampled at 'times'; 'replicates' is for rate constants")
     for key in ("initial", "times"):
@@ -299,11 +304,12 @@ def _batch_run(
         times=np.array(candidate.times) * time_factor,
         measured=tuple(species.index(name) for name in measured),
         noise=_noise_vector(candidate, tuple(measured), where, factor),
+        detection_limit=None if candidate.detection_limit is None else candidate.detection_limit * concentration_factor,
     )
 
 
 def _rate_constant_run(candidate: Candidate, study: Study, where: str, kelvin: float) -> CandidateRun:
-    for key in ("initial", "times", "measured"):
+    for key in ("initial", "times", "measured", "detection_limit"):
         if getattr(candidate, key) is not None:
             raise StudyError(
                 f"{where}.{key}",

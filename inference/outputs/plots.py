@@ -475,7 +475,8 @@ def next_experiment_plot(
     """Expected posterior sd of the target after each candidate against the candidate's temperature (``table``
     from ``arrhenia next``: temperature, duration, expected_sd, expected_sd_se, extrapolated, candidate), with
     ±2 Monte Carlo standard errors, the current sd and the fitted temperature range (shaded); colour shows the
-    duration where candidates differ in it; open marks lie outside the fitted range."""
+    duration where candidates differ in it; open marks lie outside the fitted range. Every candidate is named when
+    there are few, else the best three by ``rank`` (their numbers beside them, their names in the title)."""
     fig, ax = plt.subplots(figsize=(6.4, 4.4))
     ax.axvspan(*fitted_range, color="0.92", zorder=0, label="fitted temperature range")
     ax.axhline(current_sd, color="0.35", linestyle="--", linewidth=1.0, label="sd now")
@@ -485,7 +486,10 @@ def next_experiment_plot(
         plt.cm.viridis((durations - durations.min()) / np.ptp(durations)) if varied else np.array(["C0"] * len(table))
     )
     x, y, se = (table[c].to_numpy(dtype=float) for c in ("temperature", "expected_sd", "expected_sd_se"))
-    for i, (name, outside) in enumerate(zip(table["candidate"], table["extrapolated"], strict=True)):
+    named = len(table) <= 8
+    for i, (name, outside, rank) in enumerate(
+        zip(table["candidate"], table["extrapolated"], table["rank"], strict=True)
+    ):
         ax.errorbar(x[i], y[i], yerr=2 * se[i], fmt="none", ecolor=colours[i], elinewidth=0.9, capsize=2)
         ax.plot(
             x[i],
@@ -495,14 +499,21 @@ def next_experiment_plot(
             markeredgecolor=colours[i],
             markerfacecolor="white" if outside else colours[i],
         )
-        ax.annotate(str(name), (x[i], y[i]), xytext=(4, 3), textcoords="offset points", fontsize=7)
+        if named or rank <= 3:
+            label = f"{rank}: {name}" if named else str(rank)
+            ax.annotate(label, (x[i], y[i]), xytext=(5, -9), textcoords="offset points", fontsize=7)
     if varied:
         mappable = plt.cm.ScalarMappable(cmap="viridis", norm=plt.Normalize(durations.min(), durations.max()))
         fig.colorbar(mappable, ax=ax, label=f"duration ({time_unit})")
     ax.set_xlabel(f"candidate temperature ({temperature_unit})")
     ax.set_ylabel(f"expected posterior sd of {target}" + (f" ({unit})" if unit else ""))
     ax.set_ylim(bottom=0)
-    ax.set_title(f"Which experiment next: {target}", fontsize=10)
+    ax.margins(x=0.12)
+    title = f"Which experiment next: {target}"
+    if not named:
+        best = table.sort_values("rank").head(3)
+        title += "\nbest: " + ", ".join(f"{r}: {n}" for r, n in zip(best["rank"], best["candidate"], strict=True))
+    ax.set_title(title, fontsize=9)
     ax.legend(fontsize=7, frameon=False, loc="lower left")
     _footnote(ax, "bars: ±2 Monte Carlo se; open marks: outside the fitted range")
     fig.tight_layout()

@@ -11,7 +11,7 @@ divergence of the reweighted draws from the current ones, mean_s sum_d w_sd log(
 nested Monte Carlo estimator of Ryan (J. Comput. Graph. Stat. 12, 2003; from memory) estimates (``nested_gain``);
 it cannot exceed log D. Kish's effective number of weights, 1 / sum_d w_sd^2, says how many draws carry each
 reweighted posterior: few, and the estimate is unreliable (the new posterior is much narrower than the current one,
-or lies in its tail).
+or lies in its tail); the linearised (Laplace) estimate further down then stands in.
 
 Everything is plain arrays: ``(S, D)`` log-likelihood matrices (simulated data set s under draw d), targets
 ``(D,)`` in display units. Latent quantities of a new run (its temperature error, its share of run-to-run scatter,
@@ -44,9 +44,10 @@ TINY = 1e-300
 #: of one reweighted posterior then has a relative Monte Carlo error above about 1/sqrt(2 x 50) = 10 % (the
 #: normal-theory standard error of a sample sd; from memory).
 MIN_EFFECTIVE = 50
-#: Under log-scale noise, a candidate's measurement counts only where its typical prediction reaches this share of
-#: the largest initial concentration: below, no instrument sees it, and the integrator's absolute tolerance (1e-9 of
-#: it) makes its log meaningless (spurious information that would collapse the weights).
+#: Under log-scale noise and without a stated detection limit, a candidate's measurement counts only where its
+#: typical prediction reaches this share of the largest initial concentration: below, no instrument sees it, and the
+#: integrator's absolute tolerance (1e-9 of it) makes its log meaningless (spurious information that would collapse
+#: the weights).
 DETECTABLE = 1e-6
 #: Elements of one block of the (S, D, M) residual array (memory bound of ``log_likelihood``).
 _BLOCK = 2_000_000
@@ -486,6 +487,12 @@ def rate_constant_jacobian(
     return np.repeat(row[None], run.replicates, axis=0)
 
 
+def detection_floor(run: CandidateRun) -> float:
+    """The concentration below which a batch candidate's predicted values are left out: its detection limit, else
+    ``DETECTABLE`` times its largest initial concentration."""
+    return run.detection_limit if run.detection_limit is not None else DETECTABLE * float(np.max(run.initial))
+
+
 def batch_jacobians(
     study: Study,
     columns: list[ParameterColumn],
@@ -494,9 +501,11 @@ def batch_jacobians(
     rows: np.ndarray,
     temperature_ref: float,
     noise: Noise,
+    floor: float,
 ) -> tuple[list[np.ndarray], list[int]]:
     """Derivatives (times x measured, P) of a batch candidate's model-scale values in the parameters, one per draw
-    in ``rows`` that solves, at the nominal temperature and initial concentrations; and those draws."""
+    in ``rows`` that solves, at the nominal temperature and initial concentrations; and those draws. Under log-scale
+    noise a value below ``floor`` gets no derivative (its log is the integrator's noise)."""
     layout = SensitivityLayout(study.network, study.sensitivity_layout().free_orders)
     solver = NetworkSolver(study.network, [run.times], layout=layout)
     sources = np.array([c.source for c in columns])
@@ -510,8 +519,7 @@ def batch_jacobians(
             continue
         values = solution.concentrations[0][:, measured]  # (T, K)
         sensitivity = solution.sensitivities[0][:, measured][:, :, sources] * multipliers  # (T, K, P)
-        if noise.model != "absolute":  # below the detectable share the log's derivative is the integrator's noise
-            floor = DETECTABLE * float(np.max(run.initial))
+        if noise.model != "absolute":
             sensitivity = np.where(
                 values[:, :, None] >= floor, sensitivity / np.maximum(values, floor)[:, :, None], 0.0
             )

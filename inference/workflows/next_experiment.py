@@ -2,8 +2,9 @@
 
 The API behind ``arrhenia next``. From a saved posterior (no refit) and a candidates file, every candidate's
 measurements are predicted under each posterior draw (rate constants by the Arrhenius form, batch runs by the
-compiled network solver), data sets are simulated from them, and the posterior is reweighted by each data set
-(``posterior.design`` states the method). Written to a folder of its own: ``ranking.csv``, ``best_set.csv`` (when
+compiled network solver), data sets are simulated from them, and the posterior is reweighted by each data set;
+where the weights run out (too few effective draws for some candidate), a linearised (Laplace) estimate ranks
+instead (``posterior.design`` states both). Written to a folder of its own: ``ranking.csv``, ``best_set.csv`` (when
 the file asks for a set), ``expected_sd.png``, ``summary.txt``, ``cautions.txt``, ``report.html`` and
 ``manifest.json``. Ramped and dosed candidates, and a reactor scenario's answer as the target, are not built.
 """
@@ -11,11 +12,13 @@ the file asks for a set), ``expected_sd.png``, ``summary.txt``, ``cautions.txt``
 from __future__ import annotations
 
 import json
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from scipy import stats
 
 from ..errors import StudyError
 from ..inputs import units
@@ -61,8 +64,8 @@ TABLE_COLUMNS = [
     "notes",
 ]
 SET_COLUMNS = ["step", "candidate", "expected_sd", "reduction", "expected_gain_nats", "effective_weights"]
-#: A normal distribution's 90 % interval is this many sds wide (2 x 1.6449).
-NORMAL_WIDTH90 = 3.289707253902945
+#: A normal distribution's central 90 % interval is this many sds wide.
+NORMAL_WIDTH90 = 2 * float(stats.norm.ppf(0.95))
 METHOD = {
     "reweighting": (
         "Each candidate's measurements were simulated at {sets} posterior draws; for each simulated data set the "
@@ -154,10 +157,11 @@ def _measurements(
     values = profiles[:, :, list(run.measured)]
     names = [study.species[i] for i in run.measured]
     flat = values.reshape(values.shape[0], -1)
-    keep = np.ones(flat.shape[1], dtype=bool)
-    if study.noise.model != "absolute":
-        with np.errstate(all="ignore"):
-            present, typical = np.nanmax(values, axis=1), np.nanmedian(flat, axis=0)
+    log_scale = study.noise.model != "absolute"
+    if log_scale:
+        with warnings.catch_warnings():  # draws that failed are all-NaN rows
+            warnings.simplefilter("ignore", RuntimeWarning)
+            present = np.nanmax(values, axis=1)
         for k, name in enumerate(names):
             if np.all(np.isnan(present[:, k])) or np.nanmedian(present[:, k]) <= design.TINY:
                 raise StudyError(
@@ -166,20 +170,21 @@ def _measurements(
                     f"{study.noise.model} noise cannot weigh a zero concentration",
                     "measure a species the run makes or charges",
                 )
-        floor = design.DETECTABLE * float(np.max(run.initial))
-        keep = typical >= floor
+    floor = design.detection_floor(run)
+    keep = np.ones(flat.shape[1], dtype=bool)
+    if log_scale or run.detection_limit is not None:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            keep = np.nanmedian(flat, axis=0) >= floor
+        what = "its detection limit" if run.detection_limit is not None else "a millionth of the largest charge"
         if not keep.any():
             raise StudyError(
                 f"{run.where}.times",
-                f"every measured value is predicted below {floor:.3g} (a millionth of the largest initial "
-                "concentration): nothing left to measure",
+                f"every measured value is predicted below {floor:.3g} ({what}): nothing left to measure",
                 "sample earlier, or measure a species the run makes",
             )
         if not keep.all():
-            notes.append(
-                f"{int((~keep).sum())} of {keep.size} measurements predicted below {floor:.3g} (a millionth of the "
-                "largest initial concentration) left out"
-            )
+            notes.append(f"{int((~keep).sum())} of {keep.size} values predicted below {floor:.3g} ({what}) left out")
     failed = int(np.sum(~np.all(np.isfinite(flat), axis=1)))
     if failed:
         notes.append(f"{failed} draws could not be integrated (left out)")
@@ -200,7 +205,11 @@ def _what(study: Study, row: pd.Series, temperature_unit: str, time_unit: str | 
     """The candidate in words: a run at T for a duration, or a rate constant at T (with its replicates)."""
     where = f"{row['temperature']:g} {temperature_unit}"
     if study.mode == "rate_constants":
-        return f"rate constant measured at {where}" + (f" ({replicates} replicates)" if replicates > 1 else "")
+        return (
+            f"set of {replicates} rate constants measured at {where}"
+            if replicates > 1
+            else f"rate constant measured at {where}"
+        )
     return f"run at {where} for {row['duration']:g} {time_unit}"
 
 
@@ -257,7 +266,7 @@ def _fisher(
         solved = list(rows)
     else:
         jacobians, solved = design.batch_jacobians(
-            study, linear.columns, parameters, run, rows, temperature_ref, study.noise
+            study, linear.columns, parameters, run, rows, temperature_ref, study.noise, design.detection_floor(run)
         )
         jacobians = [jacobian[keep] for jacobian in jacobians]
     weights = [design.fisher_weight(sigma[d], study.noise) for d in solved]
