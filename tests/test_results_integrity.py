@@ -167,8 +167,9 @@ def test_malformed_manifest_is_one_line_not_a_traceback(fitted, run_cli, tmp_pat
 
 def test_check_against_a_missing_folder_says_so(fitted, run_cli, tmp_path):
     folder, _, _ = fitted
-    code, out, _ = run_cli("check", folder / "study.yaml", "--against", tmp_path / "nonexistent")
-    assert code == 3 and "no results there" in out
+    code, _, err = run_cli("check", folder / "study.yaml", "--against", tmp_path / "nonexistent")
+    # A folder that is not there is a mistake in the command (exit 2, one line), not an outdated fit (exit 3).
+    assert code == 2 and "does not exist" in err and len(err.strip().splitlines()) == 1, err
 
 
 def test_a_second_writer_is_refused_at_once(project, run_cli):
