@@ -87,6 +87,7 @@ def run_fit_plot(
         fig, ax = plt.subplots(figsize=(6.4, 4.2))
     colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
     plain = _concentration_rows(study, obs)
+    flags = obs.censored  # once per figure, not once per species
     volume = obs.factor if obs.factor is not None else np.ones(obs.value.size)
     if obs.design is not None and study.measured_as == "amount":
         volume = obs.design.multiplier
@@ -98,7 +99,6 @@ def run_fit_plot(
         ax.fill_between(times, q05[:, i], q95[:, i], color=colour, alpha=0.2, linewidth=0)
         ax.plot(times, median[:, i], style, color=colour, label=species + ("" if i in observed else " (not measured)"))
         rows = (obs.run_index == run) & (obs.species_index == i) & plain
-        flags = obs.censored
         for side, marker in (("below", "v"), ("above", "^")):
             limit = rows & (flags == side)
             ax.plot(
