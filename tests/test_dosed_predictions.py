@@ -182,11 +182,11 @@ def test_predict_reports_dosed_batches_with_their_cautions(dosed_predictions):
     for quantity, unit in (
         ("maximum accumulation of A", "mol"),
         ("time of maximum accumulation of A", "min"),
-        ("accumulation share of A at its maximum", np.nan),
-        ("conversion of A at 100 min", np.nan),
+        ("accumulation share of A at its maximum", "fraction"),
+        ("conversion of A at 100 min", "fraction"),
     ):
         row = summary.loc[("dosing-A", quantity)]
-        assert row["unit"] == unit or (pd.isna(unit) and pd.isna(row["unit"])), quantity
+        assert row["unit"] == unit, quantity
         assert row["q05"] <= row["median"] <= row["q95"], quantity
 
 
@@ -197,7 +197,7 @@ def test_accumulation_equals_c_times_v_of_the_profiles(dosed_predictions):
     result, out, code, _ = dosed_predictions
     assert code == 0
     table = pd.read_csv(out / "dosing-A.csv")
-    rows = {q: part.set_index("time") for q, part in table.groupby("quantity")}
+    rows = {q: part.set_index("time_min") for q, part in table.groupby("quantity")}
     columns = ["q05", "q25", "median", "q75", "q95"]
     volume = rows["volume"]["median"]
     # The CSV holds 8 significant digits: products of rounded values agree to a few parts in 1e8.

@@ -21,10 +21,13 @@ from scipy import stats
 from test_network_model import _simulate, arrhenius_k
 
 from inference import fit_study, load_study, rank_experiments
-from inference.inputs.candidates import CandidateRun
+from inference.inputs.candidates import CandidateRun, load_candidates, resolve_candidates
+from inference.inputs.data import read_observations
 from inference.inputs.schema import Noise
+from inference.model.builder import network_solver
 from inference.physics.arrhenius import R
 from inference.posterior import design
+from inference.posterior.draws import parameter_draws, pick_draws
 
 T_REF = 330.0
 #: The conjugate design of tests/test_conjugate.py: two points at each of 35, 50, 65, 80 degC, sd of ln k 0.15.
@@ -218,7 +221,13 @@ RATE_CONSTANT_CASES = [
     ("target not computable", "  - {name: a, temperature: 90}\n", "dH[step]", ["--target", "not reversible"]),
     ("batch keys", "  - {name: a, temperature: 90, times: [1, 2]}\n", "Ea[step]", ["candidates[0].times"]),
     ("below absolute zero", "  - {name: a, temperature: -300}\n", "Ea[step]", ["candidates[0].temperature"]),
-    ("ramped", "  - {name: a, temperature: 90, programme: [[0, 40], [60, 90]]}\n", "Ea[step]", ["not built yet"]),
+    ("ramped", "  - {name: a, programme: [[0, 40], [60, 90]]}\n", "Ea[step]", ["candidates[0].programme", "for runs"]),
+    (
+        "flow",
+        "  - {name: a, reactor: cstr, temperature: 90, feed: {A: 1}, residence_times: [5]}\n",
+        "Ea[step]",
+        ["candidates[0].reactor", "for runs"],
+    ),
     ("twice", "  - {name: a, temperature: 90}\n  - {name: a, temperature: 95}\n", "Ea[step]", ["used twice"]),
 ]
 
@@ -246,6 +255,8 @@ def _refused(run_cli, args, tmp_path, expected) -> None:
 
 
 RUN = "{name: a, temperature: 60, initial: {A: 1.0}, times: [5, 10, 20]"
+FEED = "{start: 1, stop: 10, rate: 0.1, concentration: {A: 2}}"
+FLOW = "{name: a, reactor: cstr, temperature: 60, feed: {A: 1}, residence_times: [5]"
 NETWORK_CASES = [
     (
         "unknown species",
@@ -260,7 +271,39 @@ NETWORK_CASES = [
     ("zero time", RUN.replace("5, 10, 20", "0, 5") + "}", "Ea[first]", ["candidates[0].times"]),
     ("never formed", RUN.replace("A: 1.0", "C: 1.0") + ", measured: [A]}", "Ea[first]", ["measured", "stays at zero"]),
     ("hot", RUN.replace("60", "5000") + "}", "Ea[first]", ["candidates[0].temperature", "plausible"]),
-    ("dosed", RUN + ", feeds: []}", "Ea[first]", ["candidates[0]", "not built yet"]),
+    ("no feeds", RUN + ", volume: 1, feeds: []}", "Ea[first]", ["candidates[0].feeds"]),
+    ("programme and temperature", RUN + ", programme: [[0, 40], [60, 90]]}", "Ea[first]", ["[0]", "not both"]),
+    (
+        "programme from 5",
+        "{name: a, programme: [[5, 40], [60, 50]], initial: {A: 1.0}, times: [5, 10]}",
+        "Ea[first]",
+        ["candidates[0]", "start at 0"],
+    ),
+    (
+        "programme too cold",
+        "{name: a, programme: [[0, 40], [60, -300]], initial: {A: 1.0}, times: [5, 10]}",
+        "Ea[first]",
+        ["candidates[0].programme", "absolute zero"],
+    ),
+    ("feeds, no volume", RUN + f", feeds: [{FEED}]}}", "Ea[first]", ["candidates[0]", "'volume'"]),
+    (
+        "feed stops first",
+        RUN + f", volume: 1, feeds: [{FEED.replace('stop: 10', 'stop: 0.5')}]}}",
+        "Ea[first]",
+        ["candidates[0].feeds[0]", "stops after it starts"],
+    ),
+    (
+        "unknown fed species",
+        RUN + f", volume: 1, feeds: [{FEED.replace('A: 2', 'Q: 2')}]}}",
+        "Ea[first]",
+        ["candidates[0].feeds[0].concentration.Q", "not a species"],
+    ),
+    ("negative rate", RUN + f", volume: 1, feeds: [{FEED.replace('0.1', '-0.1')}]}}", "Ea[first]", ["feeds[0].rate"]),
+    ("feed in a batch run", RUN + ", feed: {A: 1}}", "Ea[first]", ["candidates[0]", "'feed' is for flow"]),
+    ("flow with times", FLOW + ", times: [1]}", "Ea[first]", ["candidates[0]", "'times' is for batch runs"]),
+    ("flow, no residence time", FLOW.replace(", residence_times: [5]", "") + "}", "Ea[first]", ["'residence_times'"]),
+    ("flow feeds nothing", FLOW.replace("A: 1", "A: 0") + "}", "Ea[first]", ["candidates[0].feed", "nothing"]),
+    ("unknown reactor", FLOW.replace("cstr", "plug") + "}", "Ea[first]", ["candidates[0].reactor"]),
     ("rate-constant keys", RUN + ", replicates: 2}", "Ea[first]", ["candidates[0].replicates"]),
     ("noise of another species", RUN + ", measured: [A], noise: {B: 0.1}}", "Ea[first]", ["noise.B"]),
     ("unknown target", RUN + "}", "time_to[first]", ["--target", "not a target"]),
@@ -287,6 +330,172 @@ def test_no_target_and_missing_file(fitted, run_cli, tmp_path):
     _refused(
         run_cli, ("next", result.results_dir, tmp_path / "nope.yaml", "--target", "Ea[first]"), tmp_path, ["nope.yaml"]
     )
+
+
+#: A candidate of each new kind, and the same run in the study's own data layouts (the temperatures file; the feeds
+#: file with the runs' volumes; the steady-states file).
+LAYOUTS = {
+    "ramped": (
+        "{name: c, programme: [[0, 45], [20, 70], [50, 60]], initial: {A: 1.0}, times: [2, 5, 15, 30, 60]}",
+        {
+            "runs": "run,temperature,A,B,C\nc,,1.0,0,0\n",
+            "temperatures": "run,time,temperature\nc,0,45\nc,20,70\nc,50,60\n",
+        },
+    ),
+    "dosed": (
+        "{name: c, temperature: 55, initial: {A: 0.2}, volume: 1.5, times: [2, 5, 15, 30, 60], feeds: [{start: 0, "
+        "stop: 30, rate: 0.02, concentration: {A: 2.0}}, {start: 40, stop: 50, rate: 0.01, concentration: {A: 1.0, "
+        "C: 0.5}}]}",
+        {
+            "runs": "run,temperature,A,B,C,volume\nc,55,0.2,0,0,1.5\n",
+            "feeds": "run,start,stop,rate,A,C\nc,0,30,0.02,2.0,\nc,40,50,0.01,1.0,0.5\n",
+        },
+    ),
+    "cstr": (
+        "{name: c, reactor: cstr, temperature: 60, feed: {A: 1.0, B: 0.1}, residence_times: [2, 5, 20], "
+        "measured: [A, B]}",
+        {
+            "steady_states": "reactor,temperature,residence_time,feed_A,feed_B,A,B\n"
+            + "".join(f"cstr,60,{tau},1.0,0.1,0.5,0.5\n" for tau in (2, 5, 20))
+        },
+    ),
+}
+
+
+@pytest.mark.parametrize("kind", list(LAYOUTS))
+def test_ramped_dosed_and_flow_candidates_are_simulated_with_the_fits_physics(fitted, tmp_path, kind):
+    # Each candidate must be the run the study's data reader builds from its own layouts, integrated by the fit's
+    # solver (model.builder.network_solver) at the same posterior draw: the same numbers, bit for bit.
+    folder, result = fitted
+    body, tables = LAYOUTS[kind]
+    study = load_study(folder / "study.yaml")
+    path = tmp_path / "candidates.yaml"
+    path.write_text(f"candidates:\n  - {body}\n")
+    (run,) = resolve_candidates(load_candidates(path), study, path, ("A", "B", "C"))
+    data = dict.fromkeys(tables)
+    for name, text in tables.items():
+        (tmp_path / f"{name}.csv").write_text(text)
+    if "runs" in tables:
+        rows = "".join(f"c,{t:g},0.5,0.5,0.5\n" for t in run.times[0])
+        (tmp_path / "measurements.csv").write_text("run,time,A,B,C\n" + rows)
+        data["measurements"] = None
+    (tmp_path / "study.yaml").write_text(
+        (folder / "study.yaml")
+        .read_text()
+        .replace(
+            "data: {runs: runs.csv, measurements: measurements.csv}",
+            f"data: {{{', '.join(f'{k}: {k}.csv' for k in data)}}}",
+        )
+    )
+    layout_study = load_study(tmp_path / "study.yaml")
+    obs = read_observations(layout_study)
+    posterior = result.idata.posterior
+    temperature_ref = json.loads(posterior.attrs["arrhenia"])["reference_temperature_K"]
+    picks = pick_draws(posterior, 4)
+    parameters = parameter_draws(study, posterior, temperature_ref, picks)
+    values = design.candidate_values(study, parameters, design.stacked(posterior, picks), run, np.random.default_rng(0))
+    solver = network_solver(layout_study, obs)
+    measured = list(run.measured)
+    for d in range(picks.size):
+        inputs = parameters.inputs(d, obs.temperature_K, obs.initial)
+        plain = solver.solve(inputs, sensitivities=False).concentrations
+        assert np.array_equal(values[d], np.concatenate([c[:, measured].ravel() for c in plain])), (kind, d)
+        # The likelihood integrates with sensitivities, whose error control takes other steps: equal to the
+        # integrator's tolerance (rtol 1e-6).
+        sensitive = solver.solve(inputs).concentrations
+        assert np.allclose(values[d], np.concatenate([c[:, measured].ravel() for c in sensitive]), rtol=1e-4, atol=1e-9)
+
+
+def test_a_scenario_answer_as_target_ranks_ramped_dosed_and_flow_candidates(fitted, tmp_path):
+    _, result = fitted
+    candidates = tmp_path / "candidates.yaml"
+    candidates.write_text(
+        textwrap.dedent(
+            """\
+            target: "scenario:batch-60C:time to 90% conversion of A"
+            draws: 600
+            simulations: 100
+            candidates:
+              - {name: ramped, programme: [[0, 45], [30, 70]], initial: {A: 1.0}, times: [1, 2, 4, 8, 16, 32, 64]}
+              - {name: dosed, temperature: 55, initial: {A: 0.2}, volume: 1.0, times: [5, 10, 20, 30, 45, 60],
+                 feeds: [{start: 0, stop: 30, rate: 0.02, concentration: {A: 2.0}}]}
+              - {name: cstr, reactor: cstr, temperature: 60, feed: {A: 1.0}, residence_times: [2, 5, 20]}
+              - {name: brief, temperature: 45, initial: {A: 1.0}, times: [0.5, 1], measured: [C]}
+            """
+        )
+    )
+    ranked = rank_experiments(result.results_dir, candidates, out=tmp_path / "next", quiet=True)
+    table = ranked.table
+    assert set(table["target"]) == {"scenario:batch-60C:time to 90% conversion of A"} and set(table["unit"]) == {"min"}
+    kinds = dict(zip(table["candidate"], table["kind"], strict=True))
+    assert kinds == {"ramped": "ramped batch", "dosed": "dosed batch", "cstr": "cstr", "brief": "batch"}
+    # The answer per draw is the first-order batch time t(X) = -ln(1 - X)/k1 (Levenspiel, Chemical Reaction
+    # Engineering, ch. 3; from memory) at the same draws; the scenario's grid (1 min apart, linear between points)
+    # moves its spread by a few per cent.
+    posterior = result.idata.posterior
+    draws = design.stacked(posterior, pick_draws(posterior, 600))
+    ln_k1 = (draws["ln_k_ref"] - draws["Ea"] / R * (1 / 333.15 - 1 / T_REF)).sel(reaction="first").values
+    assert table["current_sd"].iloc[0] == pytest.approx(np.std(np.log(10) / np.exp(ln_k1)), rel=0.05)
+    # By the law of total variance E[Var(g | y)] <= Var(g), and by Jensen's inequality E[sd] <= sqrt(E[Var]): no
+    # candidate is expected to widen the answer beyond Monte Carlo error.
+    se = table["expected_sd_reweighted_se"]
+    assert np.all(table["expected_sd_reweighted"] <= table["current_sd"] + 4 * se), table
+    first, last = table.iloc[0], table.iloc[-1]
+    gap = last["expected_sd_reweighted"] - first["expected_sd_reweighted"]
+    assert gap > 3 * np.hypot(first["expected_sd_reweighted_se"], last["expected_sd_reweighted_se"]), table
+    # Where the weights suffice, the linearised estimate (the solver's sensitivities, temperature slopes and steady
+    # states included) describes the same posterior.
+    reliable = table[table["effective_weights"] >= design.MIN_EFFECTIVE]
+    assert len(reliable) >= 3
+    assert np.allclose(reliable["expected_sd_reweighted"], reliable["expected_sd_linearised"], rtol=0.1), table
+    assert "would" in ranked.sentence and first["candidate"] in ranked.sentence
+
+
+SCENARIO_FILE = """\
+draws: 100
+simulations: 20
+scenarios:
+  - {name: keep-c, reactor: batch, temperature: 60, initial: {A: 1.0, C: 0.5}, until: 60, key_reactant: C,
+     target_conversion: 0.5}
+  - {name: dose, reactor: dosed_batch, temperature: 60, initial: {A: 0.5}, volume: 1.0, until: 30,
+     feeds: [{start: 0, stop: 10, rate: 0.1, concentration: {A: 1.0}}]}
+candidates:
+  - {name: a, temperature: 60, initial: {A: 1.0}, times: [5, 10, 20]}
+"""
+SCENARIO_CASES = [
+    (
+        "never consumed",
+        SCENARIO_FILE,
+        "scenario:keep-c:time to 50% conversion of C",
+        ["--target", "cannot be computed", "never consumes"],
+    ),
+    ("no such answer", SCENARIO_FILE, "scenario:keep-c:nope", ["--target", "no answer 'nope'", "c[C]"]),
+    ("not decided by the kinetics", SCENARIO_FILE, "scenario:dose:volume", ["--target", "do not decide it"]),
+    ("no such scenario", SCENARIO_FILE, "scenario:nope:c[A]", ["--target", "'nope' is not a scenario", "batch-60C"]),
+    ("no quantity", SCENARIO_FILE, "scenario:keep-c", ["--target", "scenario:NAME:QUANTITY"]),
+    (
+        "name of a study scenario",
+        SCENARIO_FILE.replace("name: keep-c", "name: batch-60C"),
+        "scenario:batch-60C:c[A]",
+        ["scenarios[0].name", "also a scenario of the study"],
+    ),
+    (
+        "unknown species",
+        SCENARIO_FILE.replace("C: 0.5}", "Q: 0.5}"),
+        "scenario:dose:c[A]",
+        ["scenarios[0].initial", "'Q'"],
+    ),
+]
+
+
+@pytest.mark.parametrize(
+    ("text", "target", "expected"), [c[1:] for c in SCENARIO_CASES], ids=[c[0] for c in SCENARIO_CASES]
+)
+def test_bad_scenario_targets(fitted, run_cli, tmp_path, text, target, expected):
+    _, result = fitted
+    candidates = tmp_path / "candidates.yaml"
+    candidates.write_text(text)
+    _refused(run_cli, ("next", result.results_dir, candidates, "--target", target), tmp_path, expected)
 
 
 TRUE = {"first": (0.12, 60_000.0), "second": (0.04, 75_000.0)}  # k at 330 K (1/min), Ea (J/mol)

@@ -37,10 +37,12 @@ def test_fit_runs_the_study_scenarios(fitted):
     names = {p.name for p in folder.iterdir()}
     assert {"batch-60C.csv", "batch-60C.png", "cstr-60C.csv", "summary.csv", "cautions.txt", "manifest.json"} <= names
     table = pd.read_csv(folder / "batch-60C.csv")
-    assert list(table.columns) == ["scenario", "time", "quantity", "unit", "median", "q05", "q25", "q75", "q95"]
+    # Column names carry the time unit; fractions say so in `unit` (first-hour readability).
+    assert list(table.columns) == ["scenario", "time_min", "quantity", "unit", "median", "q05", "q25", "q75", "q95"]
+    assert set(table.loc[table["quantity"] == "conversion[A]", "unit"]) == {"fraction"}
     assert {"c[A]", "c[B]", "c[C]", "conversion[A]", "yield[B]", "selectivity[B]"} <= set(table["quantity"])
     cstr = pd.read_csv(folder / "cstr-60C.csv")
-    assert "residence_time" in cstr.columns
+    assert "residence_time_min" in cstr.columns
 
 
 def test_answers_agree_with_the_closed_forms_at_the_posterior(fitted):

@@ -1,66 +1,121 @@
 """The candidates file of ``arrhenia next``: experiments not yet made, and the quantity they should pin down.
 
-Two kinds of candidate exist today, one per kind of study: for a rate-constant study, a rate constant measured at
-a ``temperature`` (``replicates`` times); for a network study, an isothermal batch run at a ``temperature`` from
-``initial`` concentrations, sampled at ``times``, with the ``measured`` species. ``noise`` is the sd of the
-study's noise model (of ln of the value for proportional and robust noise, in concentration or rate-constant
-units for absolute noise); left out, the posterior's noise scale is used. A batch run's ``detection_limit``
-(concentration): values predicted below it are left out. Ramped and dosed candidates are not built.
+For a rate-constant study a candidate is a rate constant measured at a ``temperature`` (``replicates`` times).
+For a network study it is a run, in the study's own layouts:
 
-Everything is checked against the study here and restated in its units (K, the study's time and concentration).
+- a batch run from ``initial`` concentrations, sampled at ``times``, at a ``temperature`` or under a ``programme``
+  of (time, temperature) points joined by straight lines (the temperatures file); with ``feeds`` (start, stop,
+  rate, concentration of each species fed: the feeds file) into an initial liquid ``volume`` it is a dosed run;
+- a flow reactor at steady state (``reactor: cstr`` or ``pfr``, the steady-states file): a ``feed`` at a
+  ``temperature``, one steady state per residence time of ``residence_times``.
+
+Each measures the ``measured`` species. ``noise`` is the sd of the study's noise model (of ln of the value for
+proportional and robust noise, in the measured values' units for absolute noise); left out, the posterior's noise
+scale is used. ``detection_limit`` (measured values' units): values predicted below it are left out.
+
+A file may add reactor ``scenarios`` (as in a scenarios file) whose answers a target can name
+(``scenario:NAME:QUANTITY``, see ``parse_target``).
+
+Everything is checked against the study here and restated in its units (K, the study's time and concentration):
+each candidate becomes the ``RunSetup`` (and sampling times) the study's data reader would build for it.
 """
 
 from __future__ import annotations
 
 import itertools
+import math
 import re
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Annotated, Any
+from typing import Annotated, Literal
 
 import numpy as np
 import pydantic
 from pydantic import Field, PositiveFloat, model_validator
 
 from ..errors import StudyError
+from ..physics.conditions import Feed, RunSetup
 from . import units
 from .config import format_validation_error, lists_to_tuples, read_yaml
-from .schema import Name, ScenarioUnits, Strict
+from .scenarios import check_scenario
+from .schema import Name, Scenario, ScenarioFile, ScenarioUnits, Strict
 from .study import Study
 
-#: Keys of runs that are not isothermal batch runs (scenarios and data files use them); refused with a reason.
-_NOT_BUILT = ("programme", "feeds", "volume", "residence_times", "reactor", "dosed")
+#: The keys of each kind of network candidate (for the messages refusing the others').
+_BATCH_KEYS = ("programme", "initial", "times", "volume", "feeds")
+_FLOW_KEYS = ("feed", "residence_times")
+
+Concentrations = dict[str, Annotated[float, Field(ge=0.0)]]
+
+
+class CandidateFeed(Strict):
+    """One dosing interval of a candidate run, as a row of the study's feeds file: a constant volumetric ``rate``
+    (the study's volume unit per time) from ``start`` to ``stop`` (times) of a feed whose ``concentration`` names
+    each species in it."""
+
+    start: Annotated[float, Field(ge=0.0)]
+    stop: PositiveFloat
+    rate: Annotated[float, Field(ge=0.0)]
+    concentration: Annotated[Concentrations, Field(min_length=1)]
+
+    @model_validator(mode="after")
+    def _stops_after_start(self) -> CandidateFeed:
+        if not self.stop > self.start:
+            raise ValueError(f"a feed stops after it starts (start {self.start:g}, stop {self.stop:g})")
+        return self
 
 
 class Candidate(Strict):
-    """One candidate experiment (see the module's docstring for which keys go with which kind of study)."""
+    """One candidate experiment (see the module's docstring for which keys go with which kind)."""
 
     name: Name
-    temperature: float
-    initial: dict[str, Annotated[float, Field(ge=0.0)]] | None = None
+    reactor: Literal["batch", "cstr", "pfr"] = "batch"
+    temperature: float | None = None
+    programme: Annotated[tuple[tuple[float, float], ...], Field(min_length=2, max_length=1000)] | None = None
+    initial: Concentrations | None = None
     times: Annotated[tuple[PositiveFloat, ...], Field(min_length=1, max_length=500)] | None = None
+    volume: PositiveFloat | None = None
+    feeds: Annotated[tuple[CandidateFeed, ...], Field(min_length=1, max_length=100)] | None = None
+    feed: Concentrations | None = None
+    residence_times: Annotated[tuple[PositiveFloat, ...], Field(min_length=1, max_length=100)] | None = None
     measured: Annotated[tuple[Name, ...], Field(min_length=1)] | None = None
     reaction: Name | None = None
     replicates: Annotated[int, Field(ge=1, le=100)] = 1
     noise: PositiveFloat | dict[str, PositiveFloat] | None = None
     detection_limit: PositiveFloat | None = None
 
-    @model_validator(mode="before")
-    @classmethod
-    def _isothermal_only(cls, data: Any) -> Any:
-        if isinstance(data, dict):
-            for key in _NOT_BUILT:
-                if key in data:
-                    raise ValueError(
-                        f"'{key}': ramped, dosed and flow candidates are not built yet; a candidate is an isothermal "
-                        "batch run (temperature, initial, times, measured) or a rate constant at a temperature"
-                    )
-        return data
-
     @model_validator(mode="after")
-    def _times_rise(self) -> Candidate:
-        if self.times is not None and any(b <= a for a, b in itertools.pairwise(self.times)):
-            raise ValueError("'times' rise strictly (sampling times of one run, each once)")
+    def _consistent(self) -> Candidate:
+        if (self.temperature is None) == (self.programme is None):
+            raise ValueError(
+                "give either 'temperature' or 'programme' (a list of [time, temperature] points), not both"
+                if self.temperature is not None
+                else "required key 'temperature' is missing (or a 'programme' of [time, temperature] points)"
+            )
+        if self.programme is not None:
+            times = [point[0] for point in self.programme]
+            if times[0] != 0 or any(b <= a for a, b in itertools.pairwise(times)):
+                raise ValueError("'programme' times start at 0 and rise")
+        for key in ("times", "residence_times"):
+            values = getattr(self, key)
+            if values is not None and any(b <= a for a, b in itertools.pairwise(values)):
+                raise ValueError(f"'{key}' rise strictly (each once)")
+        if self.reactor == "batch":
+            for key in _FLOW_KEYS:
+                if getattr(self, key) is not None:
+                    raise ValueError(f"'{key}' is for flow candidates (reactor: cstr or pfr)")
+            if self.feeds is not None and self.volume is None:
+                raise ValueError("a dosed run needs 'volume', its initial liquid volume (the study's volume unit)")
+        else:
+            for key in _BATCH_KEYS:
+                if getattr(self, key) is not None:
+                    raise ValueError(
+                        f"'{key}' is for batch runs; a {self.reactor} candidate has 'temperature', 'feed' and "
+                        "'residence_times'"
+                    )
+            for key in _FLOW_KEYS:
+                if getattr(self, key) is None:
+                    raise ValueError(f"a {self.reactor} candidate needs '{key}'")
         return self
 
 
@@ -70,7 +125,8 @@ class CandidateFile(Strict):
     ``target``: the quantity to pin down (the command line's ``--target`` replaces it); ``draws``: posterior draws
     used; ``simulations``: simulated data sets per candidate; ``seed``: of the simulations; ``choose``: also pick
     the best set of this many candidates, greedily; ``units``: of temperatures, times and concentrations
-    (default the study's).
+    (default the study's), for the candidates and the ``scenarios`` alike; ``scenarios``: reactor scenarios (as in
+    a scenarios file) whose answers a target may name, beside the study's own.
     """
 
     candidates: Annotated[tuple[Candidate, ...], Field(min_length=1, max_length=200)]
@@ -80,41 +136,74 @@ class CandidateFile(Strict):
     seed: Annotated[int, Field(ge=0, le=2**32 - 1)] = 1
     choose: Annotated[int, Field(ge=2, le=20)] | None = None
     units: ScenarioUnits = ScenarioUnits()
+    scenarios: Annotated[tuple[Scenario, ...], Field(max_length=50)] = ()
 
     @model_validator(mode="after")
     def _unique(self) -> CandidateFile:
-        names = [c.name for c in self.candidates]
-        for index, name in enumerate(names):
-            if names.index(name) != index:
-                raise ValueError(f"candidates[{index}].name: '{name}' is used twice")
-        if self.choose is not None and self.choose > len(names):
-            raise ValueError(f"choose: {self.choose} is more than the {len(names)} candidates given")
+        for key, items in (("candidates", self.candidates), ("scenarios", self.scenarios)):
+            names = [item.name for item in items]
+            for index, name in enumerate(names):
+                if names.index(name) != index:
+                    raise ValueError(f"{key}[{index}].name: '{name}' is used twice")
+        if self.choose is not None and self.choose > len(self.candidates):
+            raise ValueError(f"choose: {self.choose} is more than the {len(self.candidates)} candidates given")
         return self
 
 
 @dataclass(frozen=True)
 class CandidateRun:
-    """A candidate in the study's units: ``kelvin``; for a batch run ``initial`` (N,), ``times`` (study time unit)
-    and ``measured`` (species indices), ``detection_limit`` (study concentration unit, or None); for a rate constant
-    ``reaction`` (index) and ``replicates``. ``noise``: the noise model's sd per measured species (or one value for a
-    rate constant), None to use the posterior's.
-    ``where``: the candidate's key path in its file."""
+    """A candidate in the study's units. ``kelvin``: its temperature (K; a programme's nominal temperature, the
+    time-weighted mean up to the last sampling time, as the fit states a ramped run's constants at); ``kind``:
+    ``rate_constant``, ``batch`` (isothermal, ramped or dosed), ``cstr`` or ``pfr``.
+
+    A network candidate is one or more runs as the study's data reader builds them: ``setups`` (one
+    ``RunSetup`` each) sampled at ``times`` (one array each, study time unit): a batch run is one run, a flow
+    candidate one run per residence time (its one time). ``initial`` (N,): a batch run's charge or a flow
+    reactor's feed; ``measured`` (species indices); ``detection_limit`` (measured values' units, or None);
+    ``scale``: the largest concentration charged or fed; ``span``: the lowest and highest temperature (K) while it
+    is sampled. A rate constant has ``reaction`` (index) and ``replicates``. ``noise``: the noise model's sd per
+    measured species (or one value for a rate constant), None to use the posterior's. ``where``: the candidate's
+    key path in its file."""
 
     name: str
     kelvin: float
     where: str
+    kind: str = "rate_constant"
     initial: np.ndarray | None = None
-    times: np.ndarray | None = None
+    setups: tuple[RunSetup, ...] = ()
+    times: tuple[np.ndarray, ...] = ()
     measured: tuple[int, ...] = ()
     reaction: int | None = None
     replicates: int = 1
     noise: np.ndarray | None = None
     detection_limit: float | None = None
+    scale: float = 1.0
+    span: tuple[float, float] | None = None
 
     @property
     def duration(self) -> float:
-        """The last sampling time (study time unit); NaN for a rate constant."""
-        return float(self.times[-1]) if self.times is not None else float("nan")
+        """A batch run's last sampling time (study time unit); NaN for flow candidates and rate constants."""
+        return float(self.times[0][-1]) if self.kind == "batch" else float("nan")
+
+    @property
+    def ramped(self) -> bool:
+        return any(setup.ramped for setup in self.setups)
+
+    @property
+    def dosed(self) -> bool:
+        return self.kind == "batch" and any(setup.feeds for setup in self.setups)
+
+    @property
+    def description(self) -> str:
+        """The kind in words: ``rate constant``, ``batch``, ``ramped batch``, ``dosed batch``, ``cstr``, ``pfr``."""
+        if self.kind != "batch":
+            return self.kind.replace("_", " ")
+        return " ".join([*(["ramped"] if self.ramped else []), *(["dosed"] if self.dosed else []), "batch"])
+
+    @property
+    def values_per_species(self) -> int:
+        """Measured values of each measured species: sampling times summed over the candidate's runs."""
+        return int(sum(t.size for t in self.times))
 
 
 @dataclass(frozen=True)
@@ -122,7 +211,8 @@ class Target:
     """The quantity whose uncertainty should shrink: posterior ``variable`` at ``coordinate`` (a reaction, a
     reversible step or a fitted order), shown as ``label`` in ``unit``. ``kind``: ``energy`` (J/mol shown in the
     study's energy unit), ``exp`` (exp of the variable), ``plain``, ``ln_k_at`` / ``k_at`` (ln k or k of the
-    reaction at ``kelvin``)."""
+    reaction at ``kelvin``), or ``scenario``: the answer ``quantity`` of the reactor scenario named ``coordinate``
+    (its unit known once the scenario is run)."""
 
     label: str
     variable: str
@@ -131,17 +221,43 @@ class Target:
     kind: str
     unit: str
     kelvin: float | None = None
+    quantity: str | None = None
 
 
 _TARGET = re.compile(r"^\s*(?P<name>[A-Za-z_]+)\s*\[\s*(?P<inside>[^\]]+?)\s*\]\s*$")
+SCENARIO_PREFIX = "scenario:"
 TARGET_FORMS = (
-    "Ea[r], k_ref[r], ln_k_ref[r], k[r, T] or ln_k[r, T] (T with its unit), dH[r], K_ref[r], n[r], order[r:s]"
+    "Ea[r], k_ref[r], ln_k_ref[r], k[r, T] or ln_k[r, T] (T with its unit), dH[r], K_ref[r], n[r], order[r:s], "
+    "scenario:NAME:QUANTITY (an answer of a reactor scenario)"
 )
 
 
-def parse_target(text: str, study: Study, where: str, temperature_unit: str | None = None) -> Target:
+def _scenario_target(text: str, where: str, scenarios: tuple[str, ...]) -> Target:
+    """``scenario:NAME:QUANTITY``: the answer QUANTITY (as ``arrhenia predict`` names it) of scenario NAME."""
+    _, name, quantity = (part.strip() for part in [*text.strip().split(":", 2), "", ""][:3])
+    if not name or not quantity:
+        raise StudyError(where, f"'{text}' is not a scenario target", "write scenario:NAME:QUANTITY")
+    if name not in scenarios:
+        raise StudyError(
+            where,
+            f"'{name}' is not a scenario of the study or the candidates file",
+            f"scenarios: {', '.join(scenarios)}" if scenarios else "add one under 'scenarios:' in the candidates file",
+        )
+    return Target(f"scenario:{name}:{quantity}", "", "", name, "scenario", "", quantity=quantity)
+
+
+def parse_target(
+    text: str,
+    study: Study,
+    where: str,
+    temperature_unit: str | None = None,
+    scenarios: tuple[str, ...] = (),
+) -> Target:
     """The target named by ``text`` (as ``summary.csv`` names quantities: ``Ea[coupling]``, ``k[coupling, 85
-    degC]``); ``temperature_unit`` is that of a temperature written without one (default the study's)."""
+    degC]``; or a scenario's answer, ``scenario:NAME:QUANTITY``, NAME one of ``scenarios``); ``temperature_unit``
+    is that of a temperature written without one (default the study's)."""
+    if text.strip().startswith(SCENARIO_PREFIX):
+        return _scenario_target(text, where, scenarios)
     match = _TARGET.match(text)
     hint = f"targets: {TARGET_FORMS}"
     if match is None:
@@ -223,11 +339,22 @@ def _noise_vector(candidate: Candidate, names: tuple[str, ...], where: str, fact
     return np.array([candidate.noise[name] * factor for name in names])
 
 
+@dataclass(frozen=True)
+class _Units:
+    """A candidates file's temperature unit, and the factors from its time and concentration units to the
+    study's (value in study units = factor x value)."""
+
+    temperature: str
+    time: float
+    concentration: float
+
+
 def resolve_candidates(
     file: CandidateFile, study: Study, path: Path, measured_default: tuple[str, ...]
 ) -> list[CandidateRun]:
-    """Every candidate checked against ``study`` and restated in its units (``CandidateRun``); ``measured_default``
-    are the species a batch candidate measures when it names none (those the fit measured)."""
+    """Every candidate checked against ``study`` and restated in its units (``CandidateRun``), and the file's
+    scenarios checked; ``measured_default`` are the species a network candidate measures when it names none (those
+    the fit measured)."""
     given = file.units
     temperature_unit = given.temperature or study.units.temperature
     units.parse_unit(temperature_unit, "temperature", f"{path}: units.temperature")
@@ -246,75 +373,176 @@ def resolve_candidates(
                 f"{path}: units.concentration",
             )
         )
+        _check_scenarios(file, study, path)
     elif given.time is not None or given.concentration is not None:
         key = "time" if given.time is not None else "concentration"
         raise StudyError(f"{path}: units.{key}", "a rate-constant study's candidates have temperatures only")
+    elif file.scenarios:
+        raise StudyError(f"{path}: scenarios", "reactor scenarios need a reaction network fitted to runs")
+    factors = _Units(temperature_unit, time_factor, concentration_factor)
     runs = []
     for index, candidate in enumerate(file.candidates):
         where = f"{path}: candidates[{index}]"
-        kelvin = float(units.to_kelvin(candidate.temperature, temperature_unit, f"{where}.temperature")[0])
         if network:
-            runs.append(
-                _batch_run(candidate, study, where, kelvin, time_factor, concentration_factor, measured_default)
-            )
+            runs.append(_network_run(candidate, study, where, factors, measured_default))
         else:
-            runs.append(_rate_constant_run(candidate, study, where, kelvin))
+            runs.append(_rate_constant_run(candidate, study, where, temperature_unit))
     return runs
 
 
-def _batch_run(
-    candidate: Candidate,
-    study: Study,
-    where: str,
-    kelvin: float,
-    time_factor: float,
-    concentration_factor: float,
-    measured_default: tuple[str, ...],
+def _check_scenarios(file: CandidateFile, study: Study, path: Path) -> None:
+    """The file's scenarios, as ``arrhenia predict`` checks a scenarios file's; none shares a study scenario's
+    name."""
+    theirs = {scenario.name for scenario in study.scenarios}
+    for index, scenario in enumerate(file.scenarios):
+        where = f"{path}: scenarios[{index}]"
+        if scenario.name in theirs:
+            raise StudyError(f"{where}.name", f"'{scenario.name}' is also a scenario of the study", "rename it")
+        check_scenario(scenario, study, where)
+
+
+def scenario_names(file: CandidateFile, study: Study) -> tuple[str, ...]:
+    """The scenarios a target may name: the study's and the candidates file's."""
+    return tuple(s.name for s in study.scenarios) + tuple(s.name for s in file.scenarios)
+
+
+def find_scenario(file: CandidateFile, study: Study, path: Path, name: str) -> tuple[ScenarioFile, int, str]:
+    """The scenarios holding scenario ``name`` (the candidates file's, in its units, or the study's, in the
+    study's), its index there, and the file they come from."""
+    own = [scenario.name for scenario in file.scenarios]
+    if name in own:
+        return ScenarioFile(scenarios=file.scenarios, units=file.units), own.index(name), str(path)
+    theirs = [scenario.name for scenario in study.scenarios]
+    return ScenarioFile(scenarios=study.scenarios), theirs.index(name), str(study.path)
+
+
+def _vector(values: dict[str, float], study: Study, where: str, factor: float) -> np.ndarray:
+    """A mapping species -> concentration as a vector over the study's species (0 where not named), times
+    ``factor``."""
+    for name in values:
+        if name not in study.species:
+            raise StudyError(f"{where}.{name}", f"'{name}' is not a species of the study ({', '.join(study.species)})")
+    return np.array([values.get(name, 0.0) for name in study.species]) * factor
+
+
+def _network_run(
+    candidate: Candidate, study: Study, where: str, factors: _Units, measured_default: tuple[str, ...]
 ) -> CandidateRun:
     if candidate.reaction is not None:
-        raise StudyError(
-            f"{where}.reaction", "a network study's candidates are batch runs; 'reaction' is for rate constants"
-        )
+        raise StudyError(f"{where}.reaction", "a network study's candidates are runs; 'reaction' is for rate constants")
     if "replicates" in candidate.model_fields_set:
-        raise StudyError(f"{where}.replicates", "a batch run is sampled at 'times'; 'replicates' is for rate constants")
-    for key in ("initial", "times"):
-        if getattr(candidate, key) is None:
-            raise StudyError(f"{where}", f"required key '{key}' is missing (a batch run: temperature, initial, times)")
+        raise StudyError(f"{where}.replicates", "a run is sampled at 'times'; 'replicates' is for rate constants")
     species = study.species
-    for name in candidate.initial:
-        if name not in species:
-            raise StudyError(
-                f"{where}.initial.{name}", f"'{name}' is not a species of the study ({', '.join(species)})"
-            )
-    initial = np.array([candidate.initial.get(name, 0.0) for name in species]) * concentration_factor
-    if not np.any(initial > 0):
-        raise StudyError(f"{where}.initial", "charges nothing: give a positive initial concentration")
     measured = candidate.measured if candidate.measured is not None else measured_default
     for name in measured:
         if name not in species:
             raise StudyError(f"{where}.measured", f"'{name}' is not a species of the study ({', '.join(species)})")
     if len(set(measured)) != len(measured):
         raise StudyError(f"{where}.measured", "a species is listed twice")
-    factor = concentration_factor if study.noise.model == "absolute" else 1.0
+    if candidate.reactor == "batch":
+        if study.measured_as == "amount" and candidate.volume is None:
+            raise StudyError(
+                where,
+                "required key 'volume' is missing",
+                "the study's measured values are amounts (c x volume): give the run's initial liquid volume in "
+                f"{study.units.volume}",
+            )
+        kind, initial, setups, times, span = _batch(candidate, study, where, factors)
+        charged = [initial, *(feed.concentration for feed in setups[0].feeds if feed.rate > 0)]
+        scale = max(float(np.max(c)) for c in charged)
+        if not scale > 0:
+            raise StudyError(
+                f"{where}.initial",
+                "charges nothing: give a positive initial concentration" + (" or feed" if setups[0].feeds else ""),
+            )
+        if study.measured_as == "amount":
+            scale *= setups[0].volume
+    else:
+        kind, initial, setups, times, span = _flow(candidate, where, study, factors)
+        scale = float(np.max(initial))
+    factor = factors.concentration if study.noise.model == "absolute" else 1.0
+    limit = candidate.detection_limit
     return CandidateRun(
         candidate.name,
-        kelvin,
+        float(setups[0].nominal),
         where,
+        kind=kind,
         initial=initial,
-        times=np.array(candidate.times) * time_factor,
+        setups=setups,
+        times=times,
         measured=tuple(species.index(name) for name in measured),
         noise=_noise_vector(candidate, tuple(measured), where, factor),
-        detection_limit=None if candidate.detection_limit is None else candidate.detection_limit * concentration_factor,
+        detection_limit=None if limit is None else limit * factors.concentration,
+        scale=scale,
+        span=span,
     )
 
 
-def _rate_constant_run(candidate: Candidate, study: Study, where: str, kelvin: float) -> CandidateRun:
-    for key in ("initial", "times", "measured", "detection_limit"):
-        if getattr(candidate, key) is not None:
+def _batch(
+    candidate: Candidate, study: Study, where: str, factors: _Units
+) -> tuple[str, np.ndarray, tuple[RunSetup, ...], tuple[np.ndarray, ...], tuple[float, float]]:
+    """A batch candidate as the data reader builds a run of the runs file (with its rows of the temperatures and
+    feeds files): (kind, initial (N,), (setup,), (times,), span (K))."""
+    if candidate.times is None:
+        raise StudyError(
+            where, "required key 'times' is missing (a batch run: temperature or programme, initial, times)"
+        )
+    if candidate.initial is None and candidate.feeds is None:
+        raise StudyError(
+            where, "required key 'initial' is missing (a batch run: temperature or programme, initial, times)"
+        )
+    t, c = factors.time, factors.concentration
+    initial = _vector(candidate.initial or {}, study, f"{where}.initial", c)
+    times = np.array(candidate.times) * t
+    feeds = tuple(
+        Feed(
+            f.start * t, f.stop * t, f.rate / t, _vector(f.concentration, study, f"{where}.feeds[{i}].concentration", c)
+        )
+        for i, f in enumerate(candidate.feeds or ())
+    )
+    volume = 1.0 if candidate.volume is None else float(candidate.volume)
+    if candidate.programme is None:
+        kelvin = float(units.to_kelvin(candidate.temperature, factors.temperature, f"{where}.temperature")[0])
+        return "batch", initial, (RunSetup.isothermal(kelvin, volume=volume, feeds=feeds),), (times,), (kelvin, kelvin)
+    history = np.array(candidate.programme, dtype=float)
+    history[:, 0] *= t
+    history[:, 1] = units.to_kelvin(history[:, 1], factors.temperature, f"{where}.programme")
+    # Its constants are stated at the time-weighted mean temperature up to the last sampling time, as the fit does.
+    setup = RunSetup(history, horizon=float(times[-1]), volume=volume, feeds=feeds)
+    inside = history[history[:, 0] <= times[-1], 1]
+    end = float(np.interp(times[-1], history[:, 0], history[:, 1]))
+    span = (min(float(inside.min()), end), max(float(inside.max()), end))
+    return "batch", initial, (setup,), (times,), span
+
+
+def _flow(
+    candidate: Candidate, where: str, study: Study, factors: _Units
+) -> tuple[str, np.ndarray, tuple[RunSetup, ...], tuple[np.ndarray, ...], tuple[float, float]]:
+    """A flow candidate as the data reader builds the rows of a steady-states file, one per residence time: a
+    CSTR fed at 1/tau into a unit volume held constant, a PFR a batch run to its space time."""
+    feed = _vector(candidate.feed, study, f"{where}.feed", factors.concentration)
+    if not np.max(feed) > 0:
+        raise StudyError(f"{where}.feed", "feeds nothing: give a positive feed concentration")
+    kelvin = float(units.to_kelvin(candidate.temperature, factors.temperature, f"{where}.temperature")[0])
+    taus = np.array(candidate.residence_times) * factors.time
+    if candidate.reactor == "cstr":
+        setups = tuple(
+            RunSetup.isothermal(kelvin, volume=1.0, feeds=(Feed(0.0, math.inf, 1.0 / float(tau), feed),), overflow=True)
+            for tau in taus
+        )
+    else:
+        setups = tuple(RunSetup.isothermal(kelvin) for _ in taus)
+    return candidate.reactor, feed, setups, tuple(np.array([tau]) for tau in taus), (kelvin, kelvin)
+
+
+def _rate_constant_run(candidate: Candidate, study: Study, where: str, temperature_unit: str) -> CandidateRun:
+    for key in ("reactor", *_BATCH_KEYS, *_FLOW_KEYS, "measured", "detection_limit"):
+        if key in candidate.model_fields_set:
             raise StudyError(
                 f"{where}.{key}",
-                f"a rate-constant study's candidates are rate constants at a temperature; '{key}' is for batch runs",
+                f"a rate-constant study's candidates are rate constants at a temperature; '{key}' is for runs",
             )
+    kelvin = float(units.to_kelvin(candidate.temperature, temperature_unit, f"{where}.temperature")[0])
     names = study.reaction_names
     if candidate.reaction is None and len(names) > 1:
         raise StudyError(f"{where}", "required key 'reaction' is missing", f"the study has {', '.join(names)}")
@@ -333,4 +561,5 @@ def _rate_constant_run(candidate: Candidate, study: Study, where: str, kelvin: f
         reaction=names.index(reaction),
         replicates=candidate.replicates,
         noise=noise,
+        span=(kelvin, kelvin),
     )

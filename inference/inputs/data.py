@@ -303,6 +303,9 @@ class Observations:
     #: lie there (its ``value`` is the limit); -inf / inf where a value is exact. None: nothing censored.
     lower: np.ndarray | None = None
     upper: np.ndarray | None = None
+    #: Rows of the measurements file set aside as no measurement: a value 0 at t = 0 where the run's stated initial
+    #: concentration of that species is 0, under noise on the log of values (``_set_aside_restated_zeros``).
+    restated_zeros: int = 0
 
     @property
     def censored(self) -> np.ndarray:
@@ -481,6 +484,7 @@ def _read_batch(study: Study) -> Observations:
             raise StudyError(f"{runs.path}: line {runs.lines[r]}", "every initial concentration is zero")
     volume = _initial_volumes(study, runs, feeds)
     records, path, long_layout = _read_measurements(study, runs)
+    records, restated = _set_aside_restated_zeros(study, records, runs.initial)
     _check_positive_values(study, records, str(path), long_layout)
     measured = _measurement_fields(records, study, runs.labels, runs.path, path)
     setups = []
@@ -518,6 +522,7 @@ def _read_batch(study: Study) -> Observations:
         run_group=runs.groups,
         setups=tuple(setups),
         factor=factor,
+        restated_zeros=restated,
         **measured,
     )
 
@@ -624,18 +629,43 @@ def _read_measurements(study: Study, runs: Runs) -> tuple[list[Record], Path, bo
     return records, path, long_layout
 
 
-def _check_positive_values(study: Study, records: list[Record], where: str, long_layout: bool) -> None:
-    """Noise models on the log of values need every measured value positive."""
+def _set_aside_restated_zeros(study: Study, records: list[Record], initial: np.ndarray) -> tuple[list[Record], int]:
+    """Under noise on the log of values, the records that restate a zero initial condition (a species' value 0 at
+    t = 0 in a run whose stated initial concentration of it is 0, such as a product not charged) are no measurement
+    to fit: they are left out. Returns the records kept and how many were set aside."""
+    if study.noise.model not in ("proportional", "robust"):
+        return records, 0
+    n_species = len(study.species)
+    kept = [
+        record
+        for record in records
+        if not (record[1] == 0 and record[3] == 0 and record[2] < n_species and initial[record[0], record[2]] == 0)
+    ]
+    return kept, len(records) - len(kept)
+
+
+def _check_positive_values(
+    study: Study, records: list[Record], where: str, long_layout: bool, steady: bool = False
+) -> None:
+    """Noise models on the log of values need every measured value positive (zeros that restate a zero initial
+    condition are set aside before, by ``_set_aside_restated_zeros``)."""
     if study.noise.model not in ("proportional", "robust"):
         return
     names = _measured_names(study)
-    for _, _, index, value, line, _, _ in records:
+    for _, time, index, value, line, _, _ in records:
         if value <= 0:
             column = "value" if long_layout else names[index]
+            at = "residence time" if steady else "t ="
+            rule = (
+                " (a 0 at t = 0 is set aside only where the run's initial concentration of that species is 0)"
+                if time == 0 and not steady
+                else ""
+            )
             raise StudyError(
                 f"{where}: line {line}, column '{column}'",
-                f"{value:g} is not positive, but '{study.noise.model}' noise works on the log of values",
-                "use noise.model: absolute, leave the cell blank, or give a value below a detection limit as <0.002",
+                f"{value:g} at {at} {time:g} {study.units.time} is not positive and cannot be fitted under "
+                f"'{study.noise.model}' noise, which works on the log of values{rule}",
+                "give a value below a detection limit as '<0.01', leave the cell blank, or use noise.model: absolute",
             )
 
 
@@ -920,7 +950,7 @@ def _read_steady_states(study: Study) -> Observations:
                 "no outlet concentration is given",
                 f"give at least one of {', '.join(outlets)} in each row",
             )
-    _check_positive_values(study, records, where, long_layout=False)
+    _check_positive_values(study, records, where, long_layout=False, steady=True)
     setups = []
     for row, reactor in enumerate(reactors):
         if reactor == "pfr":  # isothermal plug flow at constant density: a batch run at time tau

@@ -5,13 +5,28 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import StudyError
-from .schema import Scenario
+from . import units
+from .schema import QUESTIONS, Scenario
 from .study import Study
+
+#: The orders whose half-life has a closed form here: first order, t1/2 = ln 2 / k; second order with equal initial
+#: concentrations (or one reactant, rate k c^2), t1/2 = 1 / (k c0) (the integrated rate laws, from memory).
+HALF_LIFE_ORDERS = (1.0, 2.0)
 
 
 def check_scenario(scenario: Scenario, study: Study, where: str) -> None:
     """Every species and reaction a scenario names must be the study's, and a dosed batch's volume and feeds make
     sense; raises ``StudyError`` naming the key."""
+    if scenario.question is not None:
+        _check_reaction(scenario.reaction, study, f"{where}.reaction")
+        half_life_order(scenario, study, where)
+        return
+    if study.mode != "network":
+        raise StudyError(
+            f"{where}.reactor",
+            "reactor scenarios need a reaction network fitted to batch runs",
+            f"a rate-constant study answers questions about k: question: {' or '.join(QUESTIONS)}",
+        )
     species = study.species
     named = [("initial", name) for name in scenario.initial] + [("products", name) for name in scenario.products]
     if scenario.key_reactant is not None:
@@ -78,3 +93,63 @@ def _check_dosing(scenario: Scenario, where: str) -> None:
     for name in scenario.dosed or ():
         if name not in carried:
             raise StudyError(f"{where}.dosed", f"'{name}' is in none of the feeds")
+
+
+def _check_reaction(name: str, study: Study, where: str) -> None:
+    if name not in study.reaction_names:
+        raise StudyError(where, f"'{name}' is not a reaction of the study ({', '.join(study.reaction_names)})")
+
+
+def half_life_order(scenario: Scenario, study: Study, where: str) -> float | None:
+    """The order a question scenario's half-life is computed for: the declared ``order``, else the one k's unit
+    implies (rate-constant studies) or the step's (networks: first-order steps, fixed orders, no saturation). None when
+    no half-life applies (then only k is reported); a ``StudyError`` naming the key when a half-life is asked for
+    (``half_life``, ``order`` or ``c0`` given) but has no closed form here, or ``order`` contradicts k's unit."""
+    j = study.reaction_names.index(scenario.reaction)
+    spec = study.reactions[j]
+    if study.mode == "network":
+        plain = not spec.fitted_orders and not spec.inhibition_exponent
+        implied = float(np.sum(study.network.forward_orders[j])) if plain else None
+        supported: tuple[float, ...] = (1.0,)  # a network step's rate counts its stoichiometry (2A: -dA/dt = 2 r)
+    else:
+        implied, supported = units.rate_constant_order(spec.k_unit), HALF_LIFE_ORDERS
+    declared = scenario.order
+    asked = scenario.half_life is not None or declared is not None or scenario.c0 is not None
+    if implied is None:
+        if asked:
+            raise StudyError(
+                f"{where}.{'half_life' if scenario.half_life is not None else 'order'}",
+                f"'{scenario.reaction}' has fitted orders or a saturating rate law: its half-life has no closed form",
+                "ask for 'k' instead",
+            )
+        return None
+    if declared is not None and declared != implied:
+        raise StudyError(
+            f"{where}.order",
+            f"order {declared:g} does not fit '{scenario.reaction}', whose k ({spec.k_unit}) is of order {implied:g}",
+        )
+    order = declared if declared is not None else implied
+    if order not in supported:
+        if not asked:
+            return None
+        raise StudyError(
+            f"{where}.{'half_life' if scenario.half_life is not None else 'order'}",
+            "a half-life is computed for "
+            + (
+                "first-order steps of a network"
+                if study.mode == "network"
+                else "first order (ln 2 / k) and second order with equal initial concentrations (1 / (k c0))"
+            )
+            + f", not order {order:g}",
+            "ask for 'k' instead",
+        )
+    if order == 2.0 and scenario.c0 is None:
+        if not asked:
+            return None
+        raise StudyError(
+            f"{where}.c0",
+            "a second-order half-life, 1 / (k c0), needs 'c0': the equal initial concentration of the reactants",
+        )
+    if order != 2.0 and scenario.c0 is not None:
+        raise StudyError(f"{where}.c0", "'c0' is for second-order half-lives")
+    return order

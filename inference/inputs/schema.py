@@ -188,6 +188,7 @@ class Sampling(Strict):
     seed: Annotated[int, Field(ge=0, le=2**32 - 1)] = 1
     target_accept: Annotated[float, Field(gt=0.5, lt=1.0)] = 0.9
     cores: Annotated[int, Field(ge=1, le=64)] | None = None
+    mass_matrix: Literal["diagonal", "dense"] = "diagonal"
 
 
 class Report(Strict):
@@ -242,8 +243,21 @@ class ScenarioFeed(Strict):
     concentration: dict[str, Annotated[float, Field(ge=0.0)]]
 
 
+#: The reactors a scenario may run (network studies), declared once.
+REACTORS = ("batch", "pfr", "cstr", "programmed_batch", "dosed_batch")
+#: The questions a scenario may ask of the fitted rate constants alone, declared once (any study; the only scenarios
+#: of a rate-constant study): ``k_at``: k, and the half-life where the order allows one, at ``temperatures``;
+#: ``temperature_at``: the temperature at which k reaches ``k`` or the half-life reaches ``half_life``.
+QUESTIONS = ("k_at", "temperature_at")
+#: The keys of a question scenario (besides ``name``); every other key is a reactor scenario's.
+QUESTION_KEYS = ("question", "reaction", "temperatures", "k", "half_life", "order", "c0")
+Finite = Annotated[float, Field(allow_inf_nan=False)]
+PositiveFinite = Annotated[float, Field(gt=0.0, allow_inf_nan=False)]
+
+
 class Scenario(Strict):
-    """One reactor scenario. Times, temperatures and concentrations are in the study's units.
+    """One reactor scenario, or one question about rate constants. Times, temperatures and concentrations are in
+    the study's units (or the scenarios file's ``units``).
 
     ``batch``: isothermal, constant volume, from ``initial`` until ``until``. ``pfr``: isothermal plug flow at
     constant density, ``initial`` is the feed, ``until`` the longest space time. ``cstr``: isothermal steady
@@ -252,11 +266,17 @@ class Scenario(Strict):
     ``volume`` (the study's volume unit) of ``initial`` at t = 0, fed by ``feeds``, at ``temperature`` or under a
     ``programme``, until ``until``; ``dosed`` names the species whose accumulation is reported (default: every
     species the feeds carry).
+
+    A ``question`` (``QUESTIONS``) asks about one ``reaction``'s k alone: ``k_at`` at ``temperatures``,
+    ``temperature_at`` for a target ``k`` (the reaction's rate-constant unit) or ``half_life`` (a time). Half-lives
+    are for first order (ln 2 / k) and second order with equal initial concentrations ``c0`` (1 / (k c0));
+    ``order`` declares which, and defaults to the order k's unit (or the step) implies.
     """
 
     name: Name
-    reactor: Literal["batch", "pfr", "cstr", "programmed_batch", "dosed_batch"]
-    initial: dict[str, Annotated[float, Field(ge=0.0)]]
+    reactor: Literal[REACTORS] | None = None  # type: ignore[valid-type]
+    question: Literal[QUESTIONS] | None = None  # type: ignore[valid-type]
+    initial: dict[str, Annotated[float, Field(ge=0.0)]] | None = None
     temperature: float | None = None
     programme: tuple[tuple[float, float], ...] | None = None
     until: PositiveFloat | None = None
@@ -271,9 +291,26 @@ class Scenario(Strict):
     spec: Spec | None = None
     intermediate: str | None = None
     temperature_for: TemperatureFor | None = None
+    reaction: str | None = None
+    temperatures: Annotated[tuple[Finite, ...], Field(min_length=1, max_length=1000)] | None = None
+    k: PositiveFinite | None = None
+    half_life: PositiveFinite | None = None
+    order: Annotated[float, Field(ge=0.0, le=10.0)] | None = None
+    c0: PositiveFinite | None = None
 
     @model_validator(mode="after")
     def _reactor_needs(self) -> Scenario:
+        if (self.reactor is None) == (self.question is None):
+            raise ValueError(
+                "give either 'reactor' (" + ", ".join(REACTORS) + ") or 'question' (" + ", ".join(QUESTIONS) + ")"
+            )
+        if self.question is not None:
+            return self._question_needs()
+        asked = [key for key in QUESTION_KEYS if getattr(self, key) is not None]
+        if asked:
+            raise ValueError(f"'{asked[0]}' is for a question scenario (question: {' or '.join(QUESTIONS)})")
+        if self.initial is None:
+            raise ValueError(f"a {self.reactor} needs 'initial': {{species: concentration}}")
         if self.reactor == "programmed_batch" and self.programme is None:
             raise ValueError("a programmed_batch needs 'programme': two or more [time, temperature] points")
         if self.programme is not None and self.reactor in ("programmed_batch", "dosed_batch"):
@@ -299,6 +336,31 @@ class Scenario(Strict):
         needs_key = self.target_conversion is not None or self.spec is not None or self.products
         if needs_key and self.key_reactant is None:
             raise ValueError("'key_reactant' is needed for conversion, yield, selectivity and specs")
+        return self
+
+    def _question_needs(self) -> Scenario:
+        # Keys left at their defaults are not given (a results folder's study.yaml writes every key).
+        fields = type(self).model_fields
+        other = [
+            key
+            for key, field in fields.items()
+            if key not in ("name", *QUESTION_KEYS)
+            and getattr(self, key) != field.get_default(call_default_factory=True)
+        ]
+        if other:
+            raise ValueError(f"'{other[0]}' is for reactor scenarios; a question takes {', '.join(QUESTION_KEYS[1:])}")
+        if self.reaction is None:
+            raise ValueError(f"a {self.question} question needs 'reaction'")
+        if self.question == "k_at":
+            if self.temperatures is None:
+                raise ValueError("a k_at question needs 'temperatures': [first, second, ...]")
+            if self.k is not None or self.half_life is not None:
+                raise ValueError("'k' and 'half_life' are targets of a temperature_at question")
+        else:
+            if (self.k is None) == (self.half_life is None):
+                raise ValueError("a temperature_at question needs one target: 'k' or 'half_life'")
+            if self.temperatures is not None:
+                raise ValueError("'temperatures' is for a k_at question")
         return self
 
 

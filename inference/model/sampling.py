@@ -11,6 +11,7 @@ import shutil
 import signal
 import sys
 import tempfile
+import time
 import warnings
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -20,7 +21,7 @@ import arviz as az
 import numpy as np
 import pymc as pm
 from pymc.blocking import DictToArrayBijection, RaveledVars
-from pymc.step_methods.hmc.quadpotential import QuadPotentialDiagAdapt
+from pymc.step_methods.hmc.quadpotential import QuadPotential, QuadPotentialDiagAdapt, QuadPotentialFullAdapt
 from scipy.optimize import minimize
 
 from ..inputs.schema import Sampling
@@ -154,13 +155,13 @@ def prior_centre(model: pm.Model) -> dict:
     return point
 
 
-def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], QuadPotentialDiagAdapt] | None:
+def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], QuadPotential] | None:
     """Starting points and an initial mass matrix from the posterior mode and its curvature.
 
     Priors are standardised, but posteriors are often hundreds of times narrower than priors; NUTS would spend
     most of its tuning shrinking its step to that scale. So the mode is found with BFGS (exact gradients) and
-    its inverse-Hessian approximation seeds the diagonal mass matrix; each chain starts from the mode moved by
-    one approximate posterior sd in a random direction (seeded), so chains still start apart.
+    its inverse-Hessian approximation seeds the mass matrix (dense, or its diagonal); each chain starts from
+    the mode moved by one approximate posterior sd in a random direction (seeded), so chains still start apart.
     Returns None when the optimiser fails, and PyMC's default initialisation is used instead.
     """
     start = prior_centre(model)
@@ -182,7 +183,8 @@ def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], Quad
         found = minimize(objective, mapped.data, jac=True, method="BFGS", options={"maxiter": 400, "gtol": 1e-6})
     if not np.all(np.isfinite(found.x)) or found.fun >= 1e300:
         return None
-    variance = np.clip(np.diag(np.atleast_2d(found.hess_inv)), 1e-10, 10.0)
+    covariance = _clipped_covariance(np.atleast_2d(found.hess_inv))
+    variance = np.diag(covariance)
     rng = np.random.default_rng(settings.seed)
     starts = []
     for _ in range(settings.chains):
@@ -191,8 +193,20 @@ def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], Quad
             if np.isfinite(float(logp(point(x)))):
                 break
         starts.append(point(x))
-    potential = QuadPotentialDiagAdapt(found.x.size, found.x, variance, LAPLACE_WEIGHT)
+    potential: QuadPotential
+    if settings.mass_matrix == "dense":
+        potential = QuadPotentialFullAdapt(found.x.size, found.x, covariance, LAPLACE_WEIGHT)
+    else:
+        potential = QuadPotentialDiagAdapt(found.x.size, found.x, variance, LAPLACE_WEIGHT)
     return starts, potential
+
+
+def _clipped_covariance(inverse_hessian: np.ndarray) -> np.ndarray:
+    """BFGS's inverse-Hessian approximation made a usable covariance: symmetric, eigenvalues in [1e-10, 10]
+    (the standardised priors have unit scale, so a posterior variance above 10 is an artefact of the search)."""
+    symmetric = 0.5 * (inverse_hessian + inverse_hessian.T)
+    values, vectors = np.linalg.eigh(symmetric)
+    return (vectors * np.clip(values, 1e-10, 10.0)) @ vectors.T
 
 
 def non_finite_start(model: pm.Model) -> tuple[list[str], np.ndarray]:
@@ -219,6 +233,7 @@ def sample_posterior(
     progress: bool,
     failure_log: Path | None = None,
     predictive: bool = True,
+    timings: dict[str, float] | None = None,
 ) -> tuple[az.InferenceData, int]:
     """Run NUTS and add the pointwise log-likelihood and (unless ``predictive`` is False) the posterior
     predictive of the observations.
@@ -228,14 +243,17 @@ def sample_posterior(
     sampling (counted from ``failure_log``, to which every process appends a line per failure).
     """
     quiet_backend_logs()
+    clock = _Clock(timings if timings is not None else {})
     with model:
         laplace = laplace_start(model, settings)
+        clock.lap("mode search (compiles log-density and gradient)")
         if failure_log is not None:
             failure_log.write_text("")  # failures while finding the mode are part of the search, not of sampling
-        extra: dict = {"target_accept": settings.target_accept}
+        extra: dict = {"target_accept": settings.target_accept, "init": f"jitter+adapt_{settings.mass_matrix[:4]}"}
         if laplace is not None:
             starts, potential = laplace
             extra = {"initvals": starts, "step": pm.NUTS(potential=potential, target_accept=settings.target_accept)}
+            clock.lap("compile NUTS step")
         try:
             idata = pm.sample(
                 draws=settings.draws,
@@ -247,6 +265,7 @@ def sample_posterior(
                 compute_convergence_checks=False,
                 idata_kwargs={"log_likelihood": True},
                 mp_ctx=chain_context(),
+                callback=clock.on_draw,
                 **extra,
             )
         except ValueError as error:
@@ -258,9 +277,37 @@ def sample_posterior(
         if got.get("chain", 0) < settings.chains or got.get("draw", 0) < settings.draws:
             # PyMC answers Ctrl-C by returning the draws made so far; a partial posterior is never a result.
             raise KeyboardInterrupt("sampling was interrupted")
+        clock.sampled()
         failures = len(failure_log.read_text().splitlines()) if failure_log is not None else 0
         if predictive:
             pm.sample_posterior_predictive(
                 idata, extend_inferencedata=True, random_seed=settings.seed + 1, progressbar=False
             )
+            clock.lap("posterior predictive")
     return idata, failures
+
+
+class _Clock:
+    """Splits the wall time of sampling into parts (s), written into ``timings``: PyMC's per-draw callback
+    marks the first draw of any chain, which separates starting the chains' processes (and compiling there,
+    when no step was built beforehand) from the draws themselves."""
+
+    def __init__(self, timings: dict[str, float]) -> None:
+        self.timings = timings
+        self.last = time.perf_counter()
+        self.first_draw: float | None = None
+
+    def lap(self, part: str) -> None:
+        now = time.perf_counter()
+        self.timings[part] = round(now - self.last, 3)
+        self.last = now
+
+    def on_draw(self, trace: object, draw: object) -> None:
+        if self.first_draw is None:
+            self.first_draw = time.perf_counter()
+
+    def sampled(self) -> None:
+        if self.first_draw is not None:
+            self.timings["start chains to first draw"] = round(self.first_draw - self.last, 3)
+            self.last = self.first_draw
+        self.lap("NUTS tuning and draws")

@@ -7,6 +7,7 @@ Matplotlib with the non-interactive Agg backend, so figures are made on machines
 from __future__ import annotations
 
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import matplotlib
 
@@ -20,6 +21,9 @@ from ..inputs.data import Observations, RateConstantData
 from ..inputs.study import Study
 from ..physics.arrhenius import linearised_fit, ln_rate_constant
 
+if TYPE_CHECKING:
+    from ..posterior.per_temperature import TemperaturePoints
+
 
 def arrhenius_plot(
     study: Study,
@@ -28,47 +32,133 @@ def arrhenius_plot(
     measured_K: np.ndarray,
     path: Path,
     data: RateConstantData | None = None,
+    points: TemperaturePoints | None = None,
 ) -> None:
-    """ln k against 1000/T per reaction: posterior median line with its 90 % band over the measured range
-    (plus 5 % each side); with rate-constant data also the measured points and the classical OLS line."""
-    fig, ax = plt.subplots(figsize=(6.4, 4.6))
+    """ln k against 1/T per reaction: posterior median line with its 90 % band over the measured range (plus 5 %
+    each side); with rate-constant data also the measured points (90 % bars where the data state k errors) and the
+    classical OLS line; with ``points`` each step's rate constants fitted freely at each temperature (90 % bars).
+    The top axis shows the temperature in the study's unit (°C when that is K). Where there are points, a panel
+    underneath shows them less the posterior median line, so that a bend is seen at the scale of their errors."""
+    shown = points.table if points is not None else None
+    marked = data is not None or (shown is not None and not shown.empty)
+    if marked:
+        fig, (ax, below) = plt.subplots(2, 1, figsize=(7.2, 7.0), sharex=True, gridspec_kw={"height_ratios": [3, 1.5]})
+    else:
+        fig, ax = plt.subplots(figsize=(7.2, 5.2))
+        below = None
     colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
     low, high = float(np.min(measured_K)), float(np.max(measured_K))
     span = 1.0 / low - 1.0 / high
     inverse = np.linspace(1.0 / high - 0.05 * span, 1.0 / low + 0.05 * span, 80)
+    handles, labels = [], []
     for index, spec in enumerate(study.reactions):
         name, colour = spec.name, colours[index % len(colours)]
-        ln_k_ref = posterior["ln_k_ref"].sel(reaction=name).values.reshape(-1, 1)
-        ea = posterior["Ea"].sel(reaction=name).values.reshape(-1, 1)
-        curves = ln_rate_constant(1.0 / inverse[None, :], ln_k_ref, ea, temperature_ref)
-        q05, median, q95 = np.quantile(curves, [0.05, 0.5, 0.95], axis=0)
-        ax.fill_between(
-            1000 * inverse, q05, q95, color=colour, alpha=0.25, linewidth=0, label=f"{name}: 90 % credible band"
-        )
-        ax.plot(1000 * inverse, median, color=colour, label=f"{name}: posterior median ({spec.k_unit})")
+        q05, median, q95 = _arrhenius_band(posterior, spec, 1.0 / inverse, temperature_ref)
+        band = ax.fill_between(1000 * inverse, q05, q95, color=colour, alpha=0.25, linewidth=0)
+        (line,) = ax.plot(1000 * inverse, median, color=colour)
+        handles.append((band, line))
+        labels.append(f"{name}: posterior median, 90 % band (k in {spec.k_unit})")
+        if below is not None:
+            below.fill_between(1000 * inverse, q05 - median, q95 - median, color=colour, alpha=0.25, linewidth=0)
+        marks = []
         if data is not None:
             rows = data.rows_of(index)
             temperature, k = data.temperature_K[rows], data.k[rows]
             fit = linearised_fit(temperature, k)
-            ax.plot(
-                1000 * inverse,
-                fit.intercept + fit.slope * inverse,
-                color="0.15",
-                linestyle="--",
-                linewidth=0.9,
-                label=f"{name}: least squares on ln k",
+            (dashed,) = ax.plot(
+                1000 * inverse, fit.intercept + fit.slope * inverse, color="0.15", linestyle="--", linewidth=0.9
             )
-            ax.plot(1000 / temperature, np.log(k), "o", color=colour, markersize=4, label=f"{name}: measured")
-    if data is None:
+            handles.append(dashed)
+            labels.append(f"{name}: least squares on ln k")
+            error = None if data.ln_k_sd is None else 1.645 * data.ln_k_sd[rows]
+            marks.append((temperature, np.log(k), error, {"fmt": "o", "markersize": 4}))
+            labels.append(f"{name}: measured" + (" (bars: 90 %, stated error)" if error is not None else ""))
+        if shown is not None:
+            rows = shown[shown["step"] == name]
+            if len(rows):
+                style = {"fmt": "D", "markersize": 5, "markeredgecolor": "black", "markeredgewidth": 0.6, "capsize": 2}
+                marks.append((rows["temperature_K"].to_numpy(), rows["ln_k"].to_numpy(), 1.645 * rows["sd"], style))
+                labels.append(f"{name}: k fitted at each temperature alone (bars: 90 %)")
+        for kelvin, ln_k, error, style in marks:
+            handles.append(ax.errorbar(1000 / kelvin, ln_k, yerr=error, color=colour, elinewidth=0.9, **style))
+            line_at = _arrhenius_band(posterior, spec, kelvin, temperature_ref)[1]
+            dodge = (index - (len(study.reactions) - 1) / 2) * 0.006 * 1000 * span  # steps side by side
+            below.errorbar(1000 / kelvin + dodge, ln_k - line_at, yerr=error, color=colour, elinewidth=0.9, **style)
+    notes = []
+    if not marked:
         for kelvin in np.unique(measured_K):
             ax.axvline(1000 / kelvin, color="0.8", linewidth=0.8, zorder=0)
-    ax.set_xlabel("1000 / T  (1/K)" + ("" if data is not None else "; grey lines: run temperatures"))
-    ax.set_ylabel("ln k")
-    ax.set_title(f"Arrhenius plot: {study.name}")
-    ax.legend(fontsize=7, frameon=False)
-    fig.tight_layout()
+        notes.append("grey lines: run temperatures")
+    if points is not None and points.missing:
+        gaps = [f"{step} at {_temperature_text(kelvin, study.units.temperature)}" for step, kelvin in points.missing]
+        shown = ", ".join(gaps) if len(gaps) <= 4 else f"{len(gaps)} step-temperature pairs (listed in report.html)"
+        notes.append("no point where those runs do not determine k: " + shown)
+    (below if below is not None else ax).set_xlabel("1 / T  (10⁻³ K⁻¹)")
+    units_of_k = {spec.k_unit for spec in study.reactions}
+    ax.set_ylabel(f"ln(k / ({units_of_k.pop()}))" if len(units_of_k) == 1 else "ln(k / unit of its step)")
+    if below is not None:
+        below.axhline(0.0, color="0.3", linewidth=0.8)
+        below.set_ylabel("ln k minus the\nposterior median line", fontsize=8)
+    _temperature_axis(ax, study.units.temperature)
+    ax.set_title(f"Arrhenius plot: {study.name}", fontsize=10)
+    note_height = 0.18 / fig.get_figheight() if notes else 0.0  # the footnote's strip, under the legend
+    fig.legend(
+        handles,
+        labels,
+        fontsize=7,
+        frameon=False,
+        loc="lower center",
+        bbox_to_anchor=(0.5, note_height),
+        ncol=2 if len(labels) > 3 else 1,
+    )
+    if notes:
+        fig.text(0.01, 0.005, "; ".join(notes), fontsize=6, color="0.4", ha="left", va="bottom", wrap=True)
+    legend_rows = -(-len(labels) // (2 if len(labels) > 3 else 1))
+    fig.tight_layout(rect=(0, (0.2 + 0.16 * legend_rows) / fig.get_figheight() + note_height, 1, 1))
     fig.savefig(path, dpi=120)
     plt.close(fig)
+
+
+def _arrhenius_band(posterior: xr.Dataset, spec, kelvin: np.ndarray, temperature_ref: float) -> np.ndarray:
+    """The 5 %, 50 % and 95 % posterior quantiles of ln k of reaction ``spec`` at ``kelvin`` (3, temperatures),
+    with its temperature exponent (fitted, or as stated)."""
+    name = spec.name
+    ln_k_ref = posterior["ln_k_ref"].sel(reaction=name).values.reshape(-1, 1)
+    ea = posterior["Ea"].sel(reaction=name).values.reshape(-1, 1)
+    exponent = spec.temperature_exponent
+    if "temperature_exponent" in posterior:
+        exponent = posterior["temperature_exponent"].sel(reaction=name).values.reshape(-1, 1)
+    curves = ln_rate_constant(np.asarray(kelvin, dtype=float)[None, :], ln_k_ref, ea, temperature_ref, exponent)
+    return np.quantile(curves, [0.05, 0.5, 0.95], axis=0)
+
+
+#: How temperature units read on an axis.
+_TEMPERATURE_SYMBOLS = {"degC": "°C", "degF": "°F", "degR": "°R", "K": "K", "kelvin": "K"}
+
+
+def _temperature_text(kelvin: float, unit: str) -> str:
+    """A temperature in ``unit`` (kelvin in, °C shown when ``unit`` is K) for labels."""
+    unit = "degC" if _TEMPERATURE_SYMBOLS.get(unit, unit) == "K" else unit
+    return f"{float(units.kelvin_to(kelvin, unit)):.4g} {_TEMPERATURE_SYMBOLS.get(unit, unit)}"
+
+
+def _temperature_axis(ax, unit: str) -> None:
+    """A secondary top axis of ``ax`` (whose x is 1000 / T in K) in the temperature unit ``unit`` (°C for K)."""
+    unit = "degC" if _TEMPERATURE_SYMBOLS.get(unit, unit) == "K" else unit
+    offset = float(units.kelvin_to(0.0, unit))
+    degree = float(units.kelvin_to(1.0, unit)) - offset  # the unit is affine in K
+
+    def to_unit(x):
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return offset + degree * 1000.0 / np.asarray(x, dtype=float)
+
+    def to_inverse(t):
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return 1000.0 * degree / (np.asarray(t, dtype=float) - offset)
+
+    top = ax.secondary_xaxis("top", functions=(to_unit, to_inverse))
+    top.set_xlabel(f"T ({_TEMPERATURE_SYMBOLS.get(unit, unit)})", fontsize=9)
+    top.tick_params(labelsize=8)
 
 
 def run_fit_plot(
@@ -299,7 +389,7 @@ def pair_plot(columns: dict[str, np.ndarray], path: Path, *, max_points: int = 1
 def comparison_plot(table, path: Path) -> None:
     """elpd of each candidate with its standard error, pointwise and leave-one-run-out side by side."""
     levels = [("pointwise", "held-out measurements"), ("leave_one_run_out", "held-out runs")]
-    fig, axes = plt.subplots(1, 2, figsize=(9.0, 0.9 + 0.55 * table["candidate"].nunique()), squeeze=False)
+    fig, axes = plt.subplots(1, 2, figsize=(9.0, 1.8 + 0.55 * table["candidate"].nunique()), squeeze=False)
     for ax, (level, label) in zip(axes[0], levels, strict=True):
         rows = table[table["level"] == level].sort_values("rank", ascending=False)
         y = np.arange(len(rows))
@@ -315,11 +405,14 @@ def comparison_plot(table, path: Path) -> None:
             label="difference to best ± se",
         )
         ax.set_yticks(y, rows["candidate"])
-        ax.set_xlabel("expected log predictive density (PSIS-LOO)")
+        ax.set_ylim(-0.6, len(rows) - 0.4)
+        ax.set_xlabel("expected log predictive density\n(PSIS-LOO; higher is better)", fontsize=9)
         ax.set_title(label, fontsize=10)
-    axes[0, 0].legend(fontsize=7, frameon=False, loc="lower left")
-    fig.tight_layout()
-    fig.savefig(path, dpi=110)
+    # Below the panels, never over the points; "tight" keeps every label inside the saved image.
+    handles, labels = axes[0, 0].get_legend_handles_labels()
+    fig.legend(handles, labels, fontsize=7, frameon=False, loc="lower center", ncol=2)
+    fig.tight_layout(rect=(0, 0.4 / fig.get_figheight(), 1, 1))
+    fig.savefig(path, dpi=110, bbox_inches="tight")
     plt.close(fig)
 
 
@@ -346,59 +439,190 @@ def prediction_plot(name: str, table, path: Path, time_unit: str) -> None:
     plt.close(fig)
 
 
+#: Above this many runs the predictive check draws all runs in one panel.
+_MAX_RUN_PANELS = 16
+
+
 def predictive_check_plot(table, path: Path, title: str) -> None:
-    """Every measurement against its predictive median and 90 % interval (log scale when all are positive)."""
-    fig, ax = plt.subplots(figsize=(7.0, 4.0))
-    x = np.arange(len(table))
-    inside = table["inside_90"].to_numpy(dtype=bool)
-    ax.vlines(x, table["q05"], table["q95"], color="0.6", linewidth=1.2, label="90 % predictive interval")
-    ax.plot(x, table["median"], "_", color="0.3", markersize=6, label="predictive median")
-    ax.plot(x[inside], table["observed"][inside], "o", color="C0", markersize=3, label="measured, inside")
-    ax.plot(x[~inside], table["observed"][~inside], "o", color="C3", markersize=4, label="measured, outside")
-    if (table[["q05", "observed"]].to_numpy() > 0).all():
-        ax.set_yscale("log")
-    ax.set_xlabel("measurement (in file order by run and time)")
-    ax.set_ylabel("value")
-    ax.set_title(title, fontsize=9)
-    ax.legend(fontsize=7, frameon=False)
-    fig.tight_layout()
+    """Every measurement with its predictive median and 90 % interval (``table``: the columns of fit_checks.csv):
+    batch runs against time, one panel per run, one colour per measured species or quantity; steady states against
+    residence time and rate constants against temperature, in one panel. Log scale when all values are positive."""
+    time_column = next((c for c in table.columns if c == "time" or c.startswith("time_")), None)
+    temperature_column = next(c for c in table.columns if c == "temperature" or c.startswith("temperature_"))
+    if time_column is None:  # rate constants
+        x_column, names, x_label = temperature_column, "reaction", _column_label(temperature_column)
+    else:
+        names = "quantity" if "quantity" in table.columns else "species"
+        x_label = _column_label(time_column)
+        if "reactor" in table.columns:
+            x_label = x_label.replace("time", "residence (CSTR) or space (PFR) time")
+        x_column = time_column
+    by_run = time_column is not None and "reactor" not in table.columns and table["run"].nunique() <= _MAX_RUN_PANELS
+    groups = list(table.groupby("run", sort=False)) if by_run else [(None, table)]
+    columns = min(3, len(groups))
+    rows = -(-len(groups) // columns)
+    fig, axes = plt.subplots(
+        rows, columns, figsize=(max(6.4, 3.9 * columns + 0.4), 2.7 * rows + 1.0), squeeze=False, sharey=True
+    )
+    measured = list(dict.fromkeys(table[names]))
+    colour = {name: f"C{i % 10}" for i, name in enumerate(measured)}
+    shown_units = {name: str(table.loc[table[names] == name, "unit"].iloc[0]) for name in measured}
+    positive = bool((table[["q05", "observed"]].to_numpy(dtype=float) > 0).all())
+    for ax, (run, rows_of) in zip(axes.ravel(), groups, strict=False):
+        x_all = rows_of[x_column].to_numpy(dtype=float)
+        width = 0.012 * (np.ptp(x_all) if np.ptp(x_all) > 0 else 1.0)
+        for i, name in enumerate(measured):
+            part = rows_of[rows_of[names] == name]
+            if part.empty:
+                continue
+            x = part[x_column].to_numpy(dtype=float) + (i - (len(measured) - 1) / 2) * width
+            inside = part["inside_90"].to_numpy(dtype=bool)
+            ax.vlines(x, part["q05"], part["q95"], color=colour[name], linewidth=1.4, alpha=0.45)
+            ax.plot(x, part["median"], "_", color=colour[name], markersize=7)
+            ax.plot(x, part["observed"], "o", color=colour[name], markersize=3.5)
+            ax.plot(x[~inside], part["observed"].to_numpy()[~inside], "o", mfc="none", mec="black", markersize=8)
+        if positive:
+            ax.set_yscale("log")
+            # Prior intervals may reach far below the data: the axis follows the data, and longer bars run off it.
+            values = table[["observed", "median"]].to_numpy(dtype=float)
+            low, high = float(values.min()), float(values.max())
+            ax.set_ylim(low / 30, max(high * 3, min(float(table["q95"].max()) * 1.5, high * 30)))
+        if run is not None:
+            temperatures = rows_of[temperature_column].to_numpy(dtype=float)
+            where = (
+                f"{temperatures[0]:.4g} {_unit_of(temperature_column)}"
+                if np.ptp(temperatures) == 0
+                else "temperature history"
+            )
+            ax.set_title(f"run {run} ({where})", fontsize=8)
+        ax.tick_params(labelsize=7)
+    for ax in axes.ravel()[len(groups) :]:
+        ax.set_visible(False)
+    for ax in axes.ravel()[: len(groups)]:
+        ax.set_xlabel(x_label, fontsize=8)
+    distinct = set(shown_units.values())
+    if names == "reaction":
+        value = "k"
+    elif names == "species":
+        value = "concentration"
+    else:
+        value = "measured value"
+    y_label = f"{value} ({distinct.pop() or 'dimensionless'})" if len(distinct) == 1 else f"{value} (unit in legend)"
+    for r in range(rows):
+        axes[r, 0].set_ylabel(y_label, fontsize=8)
+    from matplotlib.lines import Line2D
+
+    several = len(distinct) > 1
+    handles = [
+        Line2D([], [], color=colour[n], marker="o", linestyle="", label=n + (f" ({shown_units[n]})" if several else ""))
+        for n in measured
+    ]
+    handles += [
+        Line2D([], [], color="0.5", linewidth=1.4, label="90 % predictive interval (marks: median)"),
+        Line2D([], [], marker="o", mfc="none", mec="black", linestyle="", markersize=8, label="outside its interval"),
+    ]
+    legend_columns = min(len(handles), max(2, int(fig.get_figwidth() // 1.25)))
+    fig.legend(handles=handles, loc="lower center", ncol=legend_columns, fontsize=7, frameon=False)
+    fig.suptitle(title, fontsize=9)
+    legend_rows = -(-len(handles) // legend_columns)
+    fig.tight_layout(rect=(0, (0.25 + 0.18 * legend_rows) / fig.get_figheight(), 1, 1))
     fig.savefig(path, dpi=110)
     plt.close(fig)
 
 
-def prior_posterior_plot(study: Study, posterior: xr.Dataset, path: Path) -> None:
-    """For every reaction, the prior density of ln k_ref and of Ea (in the study's energy unit) over the
-    posterior histogram: how much the data taught beyond the priors."""
+def _unit_of(column: str) -> str:
+    """The unit in a column name of fit_checks.csv (``temperature_degC`` -> °C), or an empty string."""
+    unit = column.split("_", 1)[1] if "_" in column else ""
+    return _TEMPERATURE_SYMBOLS.get(unit, unit)
+
+
+def _column_label(column: str) -> str:
+    """An axis label from a column name of fit_checks.csv: ``time_min`` -> ``time (min)``."""
+    name = column.split("_", 1)[0]
+    unit = _unit_of(column)
+    return f"{name} ({unit})" if unit else name
+
+
+def prior_posterior_plot(study: Study, posterior: xr.Dataset, path: Path, temperature_ref: float | None = None) -> None:
+    """For every reaction, the prior density of ln k_ref and of Ea (in the study's energy unit) with the posterior:
+    how much the data taught beyond the priors. Where the posterior is much narrower than the prior, its 90 %
+    interval and median are marked on the prior's scale and an inset zooms on its histogram."""
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
     from scipy import stats
 
     from ..inputs.units import joule_per_mol_to
 
     energy = study.units.energy
     rows = len(study.reactions)
-    fig, axes = plt.subplots(rows, 2, figsize=(8.0, 2.4 * rows + 0.4), squeeze=False)
+    fig, axes = plt.subplots(rows, 2, figsize=(8.4, 2.7 * rows + 0.7), squeeze=False)
+    at = f" at T_ref = {temperature_ref:.1f} K" if temperature_ref is not None else ""
     for row, spec in enumerate(study.reactions):
         prior = spec.prior
         ln_k = posterior["ln_k_ref"].sel(reaction=spec.name).values.ravel()
         ea = joule_per_mol_to(posterior["Ea"].sel(reaction=spec.name).values.ravel(), energy)
         mean, sd = joule_per_mol_to(prior.ea_mean, energy), joule_per_mol_to(prior.ea_sd, energy)
         panels = (
-            (axes[row, 0], ln_k, stats.norm(prior.ln_k_ref_mean, prior.ln_k_ref_sd), f"ln k_ref[{spec.name}]"),
-            (axes[row, 1], ea, stats.truncnorm(-mean / sd, np.inf, loc=mean, scale=sd), f"Ea[{spec.name}] ({energy})"),
+            (
+                axes[row, 0],
+                ln_k,
+                stats.norm(prior.ln_k_ref_mean, prior.ln_k_ref_sd),
+                f"ln(k_ref / ({spec.k_unit})){at}",
+            ),
+            (axes[row, 1], ea, stats.truncnorm(-mean / sd, np.inf, loc=mean, scale=sd), f"Ea ({energy})"),
         )
         for ax, draws, density, label in panels:
-            low, high = density.ppf(0.001), density.ppf(0.999)
-            low, high = min(low, draws.min()), max(high, draws.max())
-            grid = np.linspace(low, high, 400)
-            ax.hist(draws, bins=40, density=True, color="C0", alpha=0.6, label="posterior")
-            ax.plot(grid, density.pdf(grid), color="0.3", label="prior")
-            ax.set_yscale("log")
-            ax.set_ylim(bottom=max(1e-4 * density.pdf(grid).max(), 1e-12))
+            _prior_and_posterior(ax, draws, density)
+            ax.set_title(spec.name, fontsize=9)
             ax.set_xlabel(label, fontsize=8)
+            ax.set_ylabel("probability density", fontsize=8)
             ax.tick_params(labelsize=7)
-        axes[row, 0].legend(fontsize=7, frameon=False)
-    fig.tight_layout()
+    handles = [
+        Line2D([], [], color="0.3", label="prior"),
+        Patch(color="C0", alpha=0.6, label="posterior (histogram)"),
+        Patch(color="C0", alpha=0.3, label="posterior 90 % interval"),
+        Line2D([], [], color="C0", label="posterior median"),
+    ]
+    fig.legend(handles=handles, loc="lower center", ncol=4, fontsize=7, frameon=False)
+    fig.tight_layout(rect=(0, 0.45 / (2.7 * rows + 0.7), 1, 1))
     fig.savefig(path, dpi=110)
     plt.close(fig)
+
+
+#: The posterior is drawn in an inset when its 90 % interval is narrower than this share of the prior's.
+_ZOOM_BELOW = 0.2
+
+
+def _prior_and_posterior(ax, draws: np.ndarray, density) -> None:
+    """The prior density (a frozen scipy distribution) as a line over its 0.1 to 99.9 % range, the posterior
+    ``draws`` as a histogram on the same axis, or, when much narrower, as its 90 % interval and median there and
+    a histogram in an inset (placed on the side away from the posterior)."""
+    q05, q50, q95 = np.quantile(draws, [0.05, 0.5, 0.95])
+    low, high = min(density.ppf(0.001), draws.min()), max(density.ppf(0.999), draws.max())
+    grid = np.linspace(low, high, 400)
+    peak = float(density.pdf(grid).max())
+    ax.plot(grid, density.pdf(grid), color="0.3")
+    ax.set_xlim(low, high)
+    if q95 - q05 >= _ZOOM_BELOW * (density.ppf(0.95) - density.ppf(0.05)):
+        ax.hist(draws, bins=40, density=True, color="C0", alpha=0.6)
+        ax.axvline(q50, color="C0", linewidth=1.0)
+        return
+    ax.axvspan(q05, q95, color="C0", alpha=0.3, linewidth=0)
+    ax.axvline(q50, color="C0", linewidth=1.0)
+    ax.set_ylim(0, 2.3 * peak)  # the upper half is the inset's
+    left = q50 > (low + high) / 2
+    inset = ax.inset_axes([0.04 if left else 0.58, 0.55, 0.38, 0.33])
+    lo, hi = np.quantile(draws, [0.001, 0.999])
+    pad = 0.3 * (hi - lo) if hi > lo else 1.0
+    inset.hist(draws, bins=40, range=(lo - pad, hi + pad), density=True, color="C0", alpha=0.6)
+    inset.axvline(q50, color="C0", linewidth=1.0)
+    zoom = np.linspace(lo - pad, hi + pad, 100)
+    inset.plot(zoom, density.pdf(zoom), color="0.3")
+    inset.set_xlim(lo - pad, hi + pad)
+    inset.set_yticks([])
+    inset.xaxis.set_major_locator(matplotlib.ticker.MaxNLocator(3))
+    inset.tick_params(labelsize=6)
+    inset.set_title("posterior, zoomed", fontsize=6, color="0.3", pad=2)
 
 
 def rank_histograms(result, path: Path) -> None:
@@ -434,11 +658,18 @@ def rank_histograms(result, path: Path) -> None:
 def caption(name: str) -> str:
     """The caption of a figure file we write."""
     if name == "arrhenius.png":
-        return "Arrhenius plot: posterior median and 90 % credible band of ln k per reaction"
+        return (
+            "Arrhenius plot: posterior median and 90 % credible band of ln k per reaction against 1/T (top axis: "
+            "temperature); measured rate constants, or for batch runs each step's k fitted at each temperature alone, "
+            "with 90 % bars; underneath, the same points less the posterior median line"
+        )
     if name == "pair.png":
         return "Pair plot of the kinetic parameters (posterior draws)"
     if name == "prior_posterior.png":
-        return "Prior densities over posterior histograms (log density scale)"
+        return (
+            "Prior density (line) and posterior (histogram; where much narrower than the prior, its 90 % interval "
+            "and median on the prior's scale and a zoomed histogram inset) of ln k_ref and Ea of every reaction"
+        )
     if name.startswith("run_"):
         return (
             f"Run {name[4:-4]}: measurements with 90 % predictive intervals and posterior median profiles with "
@@ -457,7 +688,10 @@ def caption(name: str) -> str:
             "space (PFR) time, with the posterior median and 90 % predictive interval at each measured state"
         )
     if name == "comparison.png":
-        return "Expected log predictive density of each candidate, with its standard error"
+        return (
+            "Expected log predictive density of each candidate (higher is better), with its standard error, and "
+            "its difference to the best candidate with the standard error of that difference"
+        )
     return name
 
 
@@ -516,6 +750,53 @@ def next_experiment_plot(
     ax.set_title(title, fontsize=9)
     ax.legend(fontsize=7, frameon=False, loc="lower left")
     _footnote(ax, "bars: ±2 Monte Carlo se; open marks: outside the fitted range")
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    plt.close(fig)
+
+
+def rate_constant_prediction_plot(name: str, figure: dict, path: Path) -> None:
+    """A question about k (``arrhenia predict``): k, and the half-life where there is one, against temperature:
+    posterior median with 50 % and 90 % bands on a log scale, the fitted temperature range shaded, the temperatures
+    asked marked, or the target with the temperature found (median, dotted; 90 % interval, hatched).
+
+    ``figure``: ``curve`` (a table with ``temperature_<unit>``, ``quantity``, ``unit``, ``median``, ``q05``, ``q25``,
+    ``q75``, ``q95``), ``unit`` (of temperature), ``fitted_K``, ``asked_K``, ``answer_K`` (5 %, 50 %, 95 %; inf
+    where not reached) and ``target`` ((quantity, value) or None); temperatures in K."""
+    curve, unit = figure["curve"], figure["unit"]
+    axis = f"temperature_{unit}"
+    quantities = list(dict.fromkeys(curve["quantity"]))
+    fig, axes = plt.subplots(1, len(quantities), figsize=(5.6 * len(quantities), 4.2), squeeze=False)
+
+    def shown(kelvin: float) -> float:
+        return float(units.kelvin_to(kelvin, unit))
+
+    low, high = (shown(t) for t in figure["fitted_K"])
+    for index, (ax, quantity) in enumerate(zip(axes[0], quantities, strict=True)):
+        rows = curve[curve["quantity"] == quantity]
+        colour = f"C{index}"
+        ax.axvspan(low, high, color="0.9", zorder=0, label="fitted temperature range")
+        ax.fill_between(rows[axis], rows["q05"], rows["q95"], color=colour, alpha=0.15, linewidth=0, label="90 % band")
+        ax.fill_between(rows[axis], rows["q25"], rows["q75"], color=colour, alpha=0.3, linewidth=0, label="50 % band")
+        ax.plot(rows[axis], rows["median"], color=colour, label="posterior median")
+        for number, kelvin in enumerate(figure["asked_K"]):
+            ax.axvline(shown(kelvin), color="0.3", linestyle=":", linewidth=1, label="asked" if number == 0 else None)
+        if figure["answer_K"] is not None:
+            q05, median, q95 = figure["answer_K"]
+            finite = [t for t in (q05, q95) if np.isfinite(t)]
+            if np.isfinite(median):
+                ax.axvline(shown(median), color="black", linestyle=":", linewidth=1.2, label="temperature found")
+            if len(finite) == 2:
+                ax.axvspan(
+                    shown(q05), shown(q95), fill=False, hatch="//", edgecolor="0.5", linewidth=0, label="its 90 %"
+                )
+        if figure["target"] is not None and figure["target"][0] == quantity:
+            ax.axhline(figure["target"][1], color="C3", linewidth=1, label="target")
+        ax.set_yscale("log")
+        ax.set_xlabel(f"temperature ({unit})")
+        ax.set_ylabel(f"{quantity} ({rows['unit'].iloc[0]})")
+        ax.legend(fontsize=7, frameon=False)
+    fig.suptitle(f"scenario {name}: median, 50 % and 90 % bands over posterior draws", fontsize=10)
     fig.tight_layout()
     fig.savefig(path, dpi=110)
     plt.close(fig)

@@ -86,8 +86,11 @@ def fit_report(
     extrapolations: list[str],
     caution: str,
     figures: list[tuple[str, str]],
+    arrhenius_notes: list[str] | None = None,
 ) -> str:
-    """The report of one fit; ``figures`` are (file inside ``folder``, caption)."""
+    """The report of one fit; ``figures`` are (file inside ``folder``, caption); ``arrhenius_notes``: sentences on the
+    rate constants fitted at each temperature (whether they bend away from the Arrhenius line), shown above the
+    figures."""
     verdict = diagnostics["verdict"]
     advice = diagnostics.get("advice") or []
     numbers = (
@@ -122,6 +125,8 @@ def fit_report(
             "<p>Posterior correlation of ln A with Ea, next to that of ln k_ref with Ea.</p>" + table(correlations, 3),
         )
     )
+    if arrhenius_notes:
+        sections.append(section("Rate constants at each temperature", paragraphs(arrhenius_notes)))
     sections.append(section("Figures", "".join(image(folder / name, caption) for name, caption in figures)))
     sections.append(
         section("Cautions", paragraphs(extrapolations) + f'<div class="caution">{html.escape(caution)}</div>')

@@ -3,7 +3,11 @@
 from __future__ import annotations
 
 import math
+import os
 import time
+from collections.abc import Iterator
+from contextlib import contextmanager
+from pathlib import Path
 from typing import TYPE_CHECKING, Protocol
 
 from ..inputs.study import Study
@@ -96,13 +100,21 @@ def comparison_report(result: ComparisonResult) -> str:
     return "\n".join(lines)
 
 
+#: The unit shown for conversions, yields, selectivities and shares (blank in the tables the code reads).
+FRACTION = "fraction"
+
+
 def prediction_report(result: PredictionResult) -> str:
     """The scalar answers with their 90 % intervals, every extrapolation flag, and the cautions."""
-    table = result.summary[["scenario", "quantity", "unit", "median", "q05", "q95", "share"]]
+    columns = ["scenario", "quantity", "unit", "median", "q05", "q95", "share", "extrapolated"]
+    table = result.summary[[c for c in columns if c in result.summary]]
+    if "share" in table and table["share"].isna().all():
+        table = table.drop(columns="share")
+    table = table.assign(unit=table["unit"].fillna("").replace("", FRACTION))
     lines = [
         "",
-        "reactor predictions (median and 90 % interval over posterior draws):",
-        table.to_string(index=False, float_format="{:.4g}".format),
+        "predictions (posterior median and 90 % interval, q05 to q95, over posterior draws):",
+        table.to_string(index=False, float_format="{:.4g}".format, na_rep=""),
         "",
     ]
     lines += result.extrapolations
@@ -129,3 +141,23 @@ class Steps:
     def say(self, text: str) -> None:
         if not self.quiet:
             print(text, flush=True)
+
+    @contextmanager
+    def measure(self, part: str) -> Iterator[None]:
+        """Record the wall time (s) of a part of a step under ``part``, without a line on screen."""
+        started = time.perf_counter()
+        try:
+            yield
+        finally:
+            self.timings[part] = round(time.perf_counter() - started, 3)
+
+
+def process_age_s() -> float | None:
+    """Seconds since this process started (interpreter start and imports, when called first thing in a
+    command); None where the operating system does not say (it is read from Linux's /proc)."""
+    try:
+        start_ticks = int(Path("/proc/self/stat").read_text().rsplit(")", 1)[1].split()[19])
+        uptime = float(Path("/proc/uptime").read_text().split()[0])
+        return round(uptime - start_ticks / os.sysconf("SC_CLK_TCK"), 3)
+    except (OSError, ValueError, IndexError, AttributeError):
+        return None

@@ -22,7 +22,7 @@ augmented space at the cost of fewer effective weights.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -35,7 +35,8 @@ from ..inputs.candidates import CandidateRun, Target
 from ..inputs.schema import Noise
 from ..inputs.study import Study
 from ..physics.arrhenius import R, ln_rate_constant
-from ..physics.parameters import ParameterDraws, SensitivityLayout
+from ..physics.conditions import RunSetup, build_conditions
+from ..physics.parameters import BLOCKS, ParameterDraws, SensitivityLayout
 from ..physics.solution import NetworkSolver, SolverFailure
 
 #: Predictions are floored here before their log is taken (as the model does: a zero has no log).
@@ -286,9 +287,10 @@ def rate_constant_predictions(
 def new_run_draws(
     study: Study, parameters: ParameterDraws, draws: xr.Dataset, run: CandidateRun, rng: np.random.Generator
 ) -> tuple[ParameterDraws, np.ndarray, np.ndarray]:
-    """The latent quantities of a new run, one per draw: its shift of ln k (``run_variability``), true temperature
-    (K; a stated temperature error) and initial concentrations (``initial_uncertainty``). Returns the draws with
-    that shift, the temperatures (D,) and the initial concentrations (D, N)."""
+    """The latent quantities of a new run, one per draw: its shift of ln k (``run_variability``), the error of its
+    temperature (K; a stated temperature error, which shifts a whole programme) and its initial concentrations
+    (``initial_uncertainty``; a flow reactor's start-up state, as the fit has it). A candidate's runs share them.
+    Returns the draws with that shift, the temperature offsets (D,) and the initial concentrations (D, N)."""
     n_draws = parameters.size
     if study.run_variability is not None:
         varying = list(study.run_variability.reactions)
@@ -296,46 +298,61 @@ def new_run_draws(
         shift = np.zeros((n_draws, len(study.reactions)))
         shift[:, varying] = spread * rng.standard_normal(spread.shape)
         parameters = replace(parameters, new_run_shift=shift)
-    kelvin = np.full(n_draws, run.kelvin)
+    offset = np.zeros(n_draws)
     if study.temperature_sd_K is not None:
-        kelvin = kelvin + study.temperature_sd_K * rng.standard_normal(n_draws)
+        offset = study.temperature_sd_K * rng.standard_normal(n_draws)
     initial = np.repeat(run.initial[None], n_draws, axis=0)
     for name, share in study.initial_uncertainty:
         i = study.species.index(name)
         initial[:, i] *= np.exp(share * rng.standard_normal(n_draws))
-    return parameters, kelvin, initial
+    return parameters, offset, initial
 
 
-def batch_concentrations(
-    study: Study, parameters: ParameterDraws, kelvin: np.ndarray, initial: np.ndarray, times: np.ndarray
+def _shifted(setup: RunSetup, offset: float) -> RunSetup:
+    """``setup`` with its whole temperature history ``offset`` K away."""
+    if offset == 0.0:
+        return setup
+    history = np.array(setup.history, dtype=float)
+    history[:, 1] += offset
+    nominal = None if setup.nominal_kelvin is None else setup.nominal_kelvin + offset
+    return replace(setup, history=history, nominal_kelvin=nominal)
+
+
+def run_concentrations(
+    study: Study, parameters: ParameterDraws, setups: Sequence[RunSetup], initial: np.ndarray, times: np.ndarray
 ) -> np.ndarray:
-    """Concentrations (D, times, N) of an isothermal batch run under each draw (each draw one run of the compiled
-    solver); NaN for draws whose integration fails."""
+    """Concentrations (D, times, N) of one run under each draw: draw d carried out as ``setups[d]`` from
+    ``initial[d]``, its constants stated at the setup's nominal temperature (as the fit states a run's), each draw
+    one run of the compiled solver; NaN for draws whose integration fails."""
     n_draws, n_species = initial.shape
     out = np.full((n_draws, times.size, n_species), np.nan)
-    solver = NetworkSolver(study.network, [times] * n_draws)
+    nominal = np.array([setup.nominal for setup in setups], dtype=float)
+
+    def solve(rows: slice, inputs) -> list[np.ndarray]:
+        chosen = list(setups[rows])
+        conditions = build_conditions(chosen, n_species)
+        solver = NetworkSolver(study.network, [times] * len(chosen), conditions=conditions)
+        return solver.solve(inputs, sensitivities=False).concentrations
+
     if parameters.orders_vary:  # each draw its own orders: one solve per draw
         for d in range(n_draws):
             try:
-                solution = solver.solve(
-                    parameters.inputs(d, kelvin[d : d + 1], initial[d : d + 1]), sensitivities=False
-                )
+                out[d] = solve(slice(d, d + 1), parameters.inputs(d, nominal[d : d + 1], initial[d : d + 1]))[0]
             except SolverFailure:
                 continue
-            out[d] = solution.concentrations[0]
         return out
-    inputs = parameters.as_runs(kelvin, initial[0])._replace(initial=initial)
+    inputs = parameters.as_runs(nominal, initial[0])._replace(initial=initial)
     start = 0
     while start < n_draws:  # a failed draw ends one solve: the draws before it are solved again, those after next
         try:
-            solution = solver.solve(_rows(inputs, slice(start, None)), sensitivities=False)
+            solution = solve(slice(start, None), _rows(inputs, slice(start, None)))
         except SolverFailure as failure:
             if failure.run > 0:
-                done = solver.solve(_rows(inputs, slice(start, start + failure.run)), sensitivities=False)
-                out[start : start + failure.run] = np.stack(done.concentrations)
+                done = solve(slice(start, start + failure.run), _rows(inputs, slice(start, start + failure.run)))
+                out[start : start + failure.run] = np.stack(done)
             start += failure.run + 1
             continue
-        out[start:] = np.stack(solution.concentrations)
+        out[start:] = np.stack(solution)
         break
     return out
 
@@ -349,6 +366,34 @@ def _rows(inputs, rows: slice):
             if name != "orders" and isinstance(value, np.ndarray)
         }
     )
+
+
+def _measured_factor(study: Study, run: CandidateRun, setup: RunSetup, times: np.ndarray) -> np.ndarray:
+    """What multiplies a concentration into a measured value at ``times``: the liquid volume where the study
+    measures amounts of a batch run (as ``inputs.data`` has it), else 1."""
+    if study.measured_as == "amount" and run.kind == "batch":
+        return setup.volume_at(times)
+    return np.ones(times.size)
+
+
+def candidate_values(
+    study: Study, parameters: ParameterDraws, draws: xr.Dataset, run: CandidateRun, rng: np.random.Generator
+) -> np.ndarray:
+    """A network candidate's measured values under each draw (D, M): its ``measured`` species at each time of
+    each of its runs, flattened run by run, time by time; concentrations, or amounts c V where the study measures
+    amounts. A new run's latent quantities are drawn per draw (``new_run_draws``). A draw that fails in any run is
+    a NaN row."""
+    shifted, offset, initial = new_run_draws(study, parameters, draws, run, rng)
+    measured = list(run.measured)
+    parts = []
+    for setup, times in zip(run.setups, run.times, strict=True):
+        setups = [_shifted(setup, float(delta)) for delta in offset]
+        profiles = run_concentrations(study, shifted, setups, initial, times)[:, :, measured]
+        profiles = profiles * _measured_factor(study, run, setup, times)[None, :, None]
+        parts.append(profiles.reshape(profiles.shape[0], -1))
+    values = np.concatenate(parts, axis=1)
+    values[~np.all(np.isfinite(values), axis=1)] = np.nan
+    return values
 
 
 # The linearised (Laplace) estimate: the posterior as a Gaussian in the kinetic parameters, the candidate's data
@@ -488,12 +533,43 @@ def rate_constant_jacobian(
 
 
 def detection_floor(run: CandidateRun) -> float:
-    """The concentration below which a batch candidate's predicted values are left out: its detection limit, else
-    ``DETECTABLE`` times its largest initial concentration."""
-    return run.detection_limit if run.detection_limit is not None else DETECTABLE * float(np.max(run.initial))
+    """The value below which a network candidate's predicted values are left out: its detection limit, else
+    ``DETECTABLE`` times the largest concentration (or amount) it charges or feeds."""
+    return run.detection_limit if run.detection_limit is not None else DETECTABLE * run.scale
 
 
-def batch_jacobians(
+#: The temperature-slope block beside each block of constants (``physics.parameters.BLOCKS``): where a run's
+#: temperature changes, Ea, dH and dH_ads move its constants through these columns as well.
+_SLOPES = {"ln_k": "activation", "ln_eq": "eq_enthalpy", "ln_ads": "ads_enthalpy"}
+_LEVEL_BLOCK = {"Ea": "ln_k", "dH": "ln_eq", "dH_ads": "ln_ads"}
+
+
+def _chain(
+    columns: list[ParameterColumn], layout: SensitivityLayout, kelvin: float, temperature_ref: float
+) -> np.ndarray:
+    """(solver sensitivities, P): the derivatives of the solver's inputs in the parameters for a run whose constants
+    are stated at ``kelvin``: ln k_n = ln k_ref - (Ea/R)(1/T_n - 1/T_ref) + n ln(T_n/T_ref), so d/dEa is d/d ln k
+    times -(1/T_n - 1/T_ref)/R plus, where the temperature changes, d/d(Ea/R) over R (likewise dH, dH_ads and the
+    exponent n, whose slope column is d/dn at fixed k_n)."""
+    offsets, start = {}, 0
+    for block in BLOCKS:
+        offsets[block.name] = start
+        start += block.count(layout)
+    chain = np.zeros((start, len(columns)))
+    multipliers = _multipliers(columns, kelvin, temperature_ref)
+    for p, column in enumerate(columns):
+        chain[column.source, p] = multipliers[p]
+        if not layout.temperature_varies:
+            continue
+        if column.kind == _ENERGY:
+            level = _LEVEL_BLOCK[column.variable]
+            chain[offsets[_SLOPES[level]] + column.source - offsets[level], p] = 1.0 / R
+        elif column.kind == _EXPONENT:
+            chain[offsets["exponent"] + layout.fitted_exponents.index(column.source), p] = 1.0
+    return chain
+
+
+def candidate_jacobians(
     study: Study,
     columns: list[ParameterColumn],
     parameters: ParameterDraws,
@@ -503,26 +579,35 @@ def batch_jacobians(
     noise: Noise,
     floor: float,
 ) -> tuple[list[np.ndarray], list[int]]:
-    """Derivatives (times x measured, P) of a batch candidate's model-scale values in the parameters, one per draw
-    in ``rows`` that solves, at the nominal temperature and initial concentrations; and those draws. Under log-scale
-    noise a value below ``floor`` gets no derivative (its log is the integrator's noise)."""
-    layout = SensitivityLayout(study.network, study.sensitivity_layout().free_orders)
-    solver = NetworkSolver(study.network, [run.times], layout=layout)
-    sources = np.array([c.source for c in columns])
-    multipliers = _multipliers(columns, run.kelvin, temperature_ref)
+    """Derivatives (M, P) of a network candidate's model-scale values (as ``candidate_values`` orders them) in
+    the parameters, one per draw in ``rows`` that solves every run of the candidate, at its nominal conditions; and
+    those draws. Under log-scale noise a value below ``floor`` gets no derivative (its log is the integrator's
+    noise)."""
+    base = study.sensitivity_layout()
+    layout = SensitivityLayout(study.network, base.free_orders, (), run.ramped, base.fitted_exponents)
+    n_species = len(study.species)
+    solvers = [
+        NetworkSolver(study.network, [times], layout=layout, conditions=build_conditions([setup], n_species))
+        for setup, times in zip(run.setups, run.times, strict=True)
+    ]
+    chain = _chain(columns, layout, run.kelvin, temperature_ref)
     measured = list(run.measured)
     jacobians, solved = [], []
     for d in rows:
+        blocks = []
         try:
-            solution = solver.solve(parameters.inputs(int(d), np.array([run.kelvin]), run.initial[None]))
+            for solver, setup, times in zip(solvers, run.setups, run.times, strict=True):
+                solution = solver.solve(parameters.inputs(int(d), np.array([setup.nominal]), run.initial[None]))
+                factor = _measured_factor(study, run, setup, times)[:, None]
+                values = solution.concentrations[0][:, measured] * factor  # (T, K)
+                sensitivity = (solution.sensitivities[0][:, measured] @ chain) * factor[:, :, None]  # (T, K, P)
+                if noise.model != "absolute":
+                    sensitivity = np.where(
+                        values[:, :, None] >= floor, sensitivity / np.maximum(values, floor)[:, :, None], 0.0
+                    )
+                blocks.append(sensitivity.reshape(-1, len(columns)))
         except SolverFailure:
             continue
-        values = solution.concentrations[0][:, measured]  # (T, K)
-        sensitivity = solution.sensitivities[0][:, measured][:, :, sources] * multipliers  # (T, K, P)
-        if noise.model != "absolute":
-            sensitivity = np.where(
-                values[:, :, None] >= floor, sensitivity / np.maximum(values, floor)[:, :, None], 0.0
-            )
-        jacobians.append(sensitivity.reshape(-1, len(columns)))
+        jacobians.append(np.concatenate(blocks))
         solved.append(int(d))
     return jacobians, solved

@@ -23,7 +23,7 @@ from ..inputs.study import Study
 from ..model.sampling import sample_posterior, scratch_folder
 from ..outputs import plots, report
 from ..outputs.records import FitResult
-from ..outputs.reporting import CAUTION, Steps
+from ..outputs.reporting import CAUTION, Steps, process_age_s
 from ..outputs.results import (
     StagedFolder,
     binding_differences,
@@ -34,6 +34,7 @@ from ..outputs.results import (
 )
 from ..physics.arrhenius import auto_reference_temperature
 from ..posterior.diagnostics import assess
+from ..posterior.per_temperature import POINTS_FILE, TemperaturePoints
 from ..posterior.summaries import (
     correlation_table,
     derived_quantities,
@@ -79,6 +80,8 @@ def fit_study(
     in the input before anything is sampled or written.
     """
     steps = Steps(quiet)
+    if command_line is not None and (age := process_age_s()) is not None:
+        steps.timings["start of the command (interpreter and imports)"] = age
     if not isinstance(study, Study):
         study = load_study(study)
     overrides = {
@@ -112,7 +115,9 @@ def _fit(
         model = problem.build_model(temperature_ref, failure_log)
         _check_start(model, problem, temperature_ref)
         steps.done("built model")
-        idata, failures = sample_posterior(model, sampling, progress=not quiet, failure_log=failure_log)
+        idata, failures = sample_posterior(
+            model, sampling, progress=not quiet, failure_log=failure_log, timings=steps.timings
+        )
     steps.done("sampled", f"{sampling.chains} chains x {sampling.draws} draws after {sampling.tune} tuning")
 
     fit_checks = problem.fit_checks(idata)
@@ -120,6 +125,7 @@ def _fit(
         idata, problem.kinetic_var_names(idata), solver_failures=failures, problem=problem, fit_checks=fit_checks
     )
     quantities = derived_quantities(study, idata.posterior, temperature_ref)
+    points = problem.temperature_points(idata, temperature_ref)  # beside the Arrhenius line, in its figure
     span = np.array(problem.temperature_span_K)
     result = FitResult(
         study=study,
@@ -127,14 +133,14 @@ def _fit(
         reference_temperature_K=temperature_ref,
         diagnostics=diagnostics,
         summary=summary_table(quantities, temperature_ref, extrapolated_rows(study, span)),
-        tables=problem.extra_tables(),
+        tables={**problem.extra_tables(), **({POINTS_FILE: points.table} if points and len(points.table) else {})},
         correlations=correlation_table(study, idata.posterior, temperature_ref),
         fit_checks=fit_checks_file(study, fit_checks),
         extrapolations=extrapolation_notes(study, span),
         idata=idata,
     )
     steps.done("summarised", f"verdict {diagnostics.verdict}")
-    _write(result, problem, fit_checks, sampling.model_dump(), quantities, overwrite, steps, command_line)
+    _write(result, problem, fit_checks, sampling.model_dump(), quantities, overwrite, steps, command_line, points)
     steps.done("wrote results", str(target))
     if study.scenarios:
         from ..inputs.schema import ScenarioFile
@@ -193,6 +199,7 @@ def _write(
     overwrite: bool,
     steps: Steps,
     command_line: str | None,
+    points: TemperaturePoints | None = None,
 ) -> None:
     """Write the results folder; ``fit_checks`` are the checks with plain column names, as the figures read them."""
     study, idata = result.study, result.idata
@@ -233,19 +240,25 @@ def _write(
         folder.write_csv("correlations.csv", result.correlations)
         folder.write_csv("fit_checks.csv", result.fit_checks)
         folder.write_json("diagnostics.json", {**result.diagnostics.to_dict(), "predictive_coverage_90": coverage})
-        idata.to_netcdf(str(folder.path("posterior.nc")))
-        problem.figures(folder, idata, result.reference_temperature_K, fit_checks)
-        plots.pair_plot(_pair_columns(quantities), folder.path("figures/pair.png"), seed=sampling["seed"])
-        plots.prior_posterior_plot(study, idata.posterior, folder.path("figures/prior_posterior.png"))
+        with steps.measure("write posterior.nc"):
+            idata.to_netcdf(str(folder.path("posterior.nc")))
+        with steps.measure("draw figures"):
+            problem.figures(folder, idata, result.reference_temperature_K, fit_checks, points)
+            plots.pair_plot(_pair_columns(quantities), folder.path("figures/pair.png"), seed=sampling["seed"])
+            plots.prior_posterior_plot(
+                study,
+                idata.posterior,
+                folder.path("figures/prior_posterior.png"),
+                temperature_ref=result.reference_temperature_K,
+            )
         folder.write_text("study.yaml", resolved_study_yaml(study, result.reference_temperature_K, sampling))
         order = ["arrhenius.png", "pair.png", "prior_posterior.png"]
         names = sorted(
             (p.name for p in folder.path("figures").iterdir()),
             key=lambda n: (order.index(n) if n in order else len(order), n),
         )
-        folder.write_text(
-            "report.html",
-            report.fit_report(
+        with steps.measure("write report.html"):
+            html = report.fit_report(
                 folder.stage,
                 title=f"Arrhenia fit: {study.name}" + (f" ({study.title})" if study.title else ""),
                 study_lines=problem.check_lines(),
@@ -256,8 +269,9 @@ def _write(
                 extrapolations=result.extrapolations,
                 caution=CAUTION,
                 figures=[(f"figures/{n}", plots.caption(n)) for n in names],
-            ),
-        )
+                arrhenius_notes=points.sentences() if points is not None else None,
+            )
+            folder.write_text("report.html", html)
         folder.write_manifest("fit", manifest, command_line)
 
 

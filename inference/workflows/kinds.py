@@ -28,6 +28,7 @@ from ..physics.parameters import BLOCKS
 from ..physics.solution import NetworkSolver, SolverFailure
 from ..posterior.diagnostics import KINETIC_VARIABLES
 from ..posterior.draws import parameter_draws, pick_draws, prior_centre_draws
+from ..posterior.per_temperature import TemperaturePoints, per_temperature_fits
 from ..posterior.summaries import classical_table, network_fit_checks, rate_constant_fit_checks
 
 if TYPE_CHECKING:
@@ -74,8 +75,15 @@ class Problem(Protocol):
 
     def extra_tables(self) -> dict[str, pd.DataFrame]: ...
 
+    def temperature_points(self, idata: az.InferenceData, temperature_ref: float) -> TemperaturePoints | None: ...
+
     def figures(
-        self, folder: StagedFolder, idata: az.InferenceData, temperature_ref: float, fit_checks: pd.DataFrame
+        self,
+        folder: StagedFolder,
+        idata: az.InferenceData,
+        temperature_ref: float,
+        fit_checks: pd.DataFrame,
+        points: TemperaturePoints | None = None,
     ) -> None: ...
 
     def with_measurements(self, values: np.ndarray) -> Problem: ...
@@ -270,8 +278,16 @@ class RateConstantProblem:
         """The same design with other measured rate constants (simulated data, for calibration)."""
         return replace(self, data=replace(self.data, k=np.asarray(values, dtype=float)))
 
+    def temperature_points(self, idata: az.InferenceData, temperature_ref: float) -> TemperaturePoints | None:
+        return None  # the measured rate constants are the points
+
     def figures(
-        self, folder: StagedFolder, idata: az.InferenceData, temperature_ref: float, fit_checks: pd.DataFrame
+        self,
+        folder: StagedFolder,
+        idata: az.InferenceData,
+        temperature_ref: float,
+        fit_checks: pd.DataFrame,
+        points: TemperaturePoints | None = None,
     ) -> None:
         plots.arrhenius_plot(
             self.study,
@@ -415,6 +431,11 @@ class NetworkProblem:
             f"  data: {source}",
             f"  experiments: {_experiment_counts(obs)}",
         ]
+        if obs.restated_zeros:
+            lines.append(
+                f"  set aside: {obs.restated_zeros} value(s) of 0 at t = 0 where the run starts without that species "
+                "(they restate the initial condition; not fitted)"
+            )
         lines += _temperature_lines(study, self.temperatures_K, self.temperature_span_K)
         lines += ["  reactions:", *_prior_lines(study)]
         if study.initial_uncertainty:
@@ -509,12 +530,26 @@ class NetworkProblem:
                 out[r][d] = solution.concentrations[r]
         return out
 
+    def temperature_points(self, idata: az.InferenceData, temperature_ref: float) -> TemperaturePoints | None:
+        """Each step's ln k fitted freely at each temperature of the isothermal batch runs (``per_temperature``)."""
+        return per_temperature_fits(self.study, self.obs, idata.posterior, temperature_ref)
+
     def figures(
-        self, folder: StagedFolder, idata: az.InferenceData, temperature_ref: float, fit_checks: pd.DataFrame
+        self,
+        folder: StagedFolder,
+        idata: az.InferenceData,
+        temperature_ref: float,
+        fit_checks: pd.DataFrame,
+        points: TemperaturePoints | None = None,
     ) -> None:
         obs = self.obs
         plots.arrhenius_plot(
-            self.study, idata.posterior, temperature_ref, self.temperatures_K, folder.path("figures/arrhenius.png")
+            self.study,
+            idata.posterior,
+            temperature_ref,
+            self.temperatures_K,
+            folder.path("figures/arrhenius.png"),
+            points=points,
         )
         if obs.quantity_index is not None:
             plots.measured_quantities_plot(self.study, obs, fit_checks, folder.path("figures/measured_quantities.png"))

@@ -1,19 +1,21 @@
 """Which experiment next: candidate experiments ranked by how much they would shrink one target's uncertainty.
 
 The API behind ``arrhenia next``. From a saved posterior (no refit) and a candidates file, every candidate's
-measurements are predicted under each posterior draw (rate constants by the Arrhenius form, batch runs by the
-compiled network solver), data sets are simulated from them, and the posterior is reweighted by each data set;
-where the weights run out (too few effective draws for some candidate), a linearised (Laplace) estimate ranks
-instead (``posterior.design`` states both). Written to a folder of its own: ``ranking.csv``, ``best_set.csv`` (when
-the file asks for a set), ``expected_sd.png``, ``summary.txt``, ``cautions.txt``, ``report.html`` and
-``manifest.json``. Ramped and dosed candidates, and a reactor scenario's answer as the target, are not built.
+measurements are predicted under each posterior draw (rate constants by the Arrhenius form; batch runs, isothermal,
+ramped or dosed, and flow reactors at steady state by the compiled network solver under the ``RunSetup`` the
+study's data reader would build for them), data sets are simulated from them, and the posterior is reweighted by
+each data set; where the weights run out (too few effective draws for some candidate), a linearised (Laplace)
+estimate ranks instead (``posterior.design`` states both). The target is a posterior parameter or a reactor
+scenario's answer, computed per draw by ``predict.scenario_answers``. Written to a folder of its own:
+``ranking.csv``, ``best_set.csv`` (when the file asks for a set), ``expected_sd.png``, ``summary.txt``,
+``cautions.txt``, ``report.html`` and ``manifest.json``.
 """
 
 from __future__ import annotations
 
 import json
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -26,9 +28,11 @@ from ..inputs.candidates import (
     CandidateFile,
     CandidateRun,
     Target,
+    find_scenario,
     load_candidates,
     parse_target,
     resolve_candidates,
+    scenario_names,
 )
 from ..inputs.config import load_study
 from ..inputs.data import read_observations, read_rate_constants
@@ -39,9 +43,11 @@ from ..outputs.results import StagedFolder, check_target, load_results, sha256_f
 from ..posterior import design
 from ..posterior.draws import parameter_draws, pick_draws
 from ..posterior.summaries import temperature_label
+from .predict import scenario_answers
 
 TABLE_COLUMNS = [
     "candidate",
+    "kind",
     "target",
     "unit",
     "temperature",
@@ -55,6 +61,7 @@ TABLE_COLUMNS = [
     "rank",
     "estimate",
     "expected_sd_reweighted",
+    "expected_sd_reweighted_se",
     "expected_sd_linearised",
     "expected_gain_linearised_nats",
     "current_width90",
@@ -82,8 +89,9 @@ METHOD = {
 }
 ASSUMPTIONS = (
     "The ranking assumes the fitted model is right: a candidate's data are simulated from it, so an experiment that "
-    "would reveal a wrong model or rate law is not credited for that. Candidates are isothermal batch runs or rate "
-    "constants; ramped and dosed candidates are not built."
+    "would reveal a wrong model or rate law is not credited for that. Candidate values are concentrations of the "
+    "measured species (amounts where the study measures amounts); declared measured quantities (signals, area %) "
+    "and censoring are not simulated."
 )
 
 
@@ -131,6 +139,12 @@ def _outside(kelvin: float, fitted: tuple[float, float], unit: str) -> str:
     return f"{abs(kelvin - edge):.3g} K {side} fitted temperature ({temperature_label(edge, unit)})"
 
 
+def _outside_span(span: tuple[float, float], fitted: tuple[float, float], unit: str) -> str:
+    """'' when a candidate's temperatures (lowest, highest; K) lie inside the fitted range, else how far outside."""
+    parts = [_outside(kelvin, fitted, unit) for kelvin in dict.fromkeys(span)]
+    return "; ".join(part for part in parts if part)
+
+
 def _measurements(
     study: Study,
     run: CandidateRun,
@@ -140,8 +154,8 @@ def _measurements(
     stated_sd: dict[int, float],
     rng: np.random.Generator,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, list[str]]:
-    """(values (D, M) on the data scale, noise sd (D, M), which of the candidate's measurements count (its times x
-    measured species, flattened), notes) of one candidate under every picked draw."""
+    """(values (D, M) on the data scale, noise sd (D, M), which of the candidate's measurements count (its runs x
+    times x measured species, flattened), notes) of one candidate under every picked draw."""
     notes = []
     if study.mode == "rate_constants":
         values = design.rate_constant_predictions(study, draws, run, temperature_ref, rng)
@@ -152,16 +166,13 @@ def _measurements(
         name = study.reaction_names[run.reaction]
         sigma = design.sigma_draws(draws, [name], stated, run.where, run.replicates)
         return values, sigma, np.ones(run.replicates, dtype=bool), notes
-    shifted, kelvin, initial = design.new_run_draws(study, parameters, draws, run, rng)
-    profiles = design.batch_concentrations(study, shifted, kelvin, initial, run.times)
-    values = profiles[:, :, list(run.measured)]
+    flat = design.candidate_values(study, parameters, draws, run, rng)
     names = [study.species[i] for i in run.measured]
-    flat = values.reshape(values.shape[0], -1)
     log_scale = study.noise.model != "absolute"
     if log_scale:
         with warnings.catch_warnings():  # draws that failed are all-NaN rows
             warnings.simplefilter("ignore", RuntimeWarning)
-            present = np.nanmax(values, axis=1)
+            present = np.nanmax(flat.reshape(flat.shape[0], -1, len(names)), axis=1)
         for k, name in enumerate(names):
             if np.all(np.isnan(present[:, k])) or np.nanmedian(present[:, k]) <= design.TINY:
                 raise StudyError(
@@ -178,17 +189,18 @@ def _measurements(
             keep = np.nanmedian(flat, axis=0) >= floor
         what = "its detection limit" if run.detection_limit is not None else "a millionth of the largest charge"
         if not keep.any():
+            key = "times" if run.kind == "batch" else "residence_times"
             raise StudyError(
-                f"{run.where}.times",
+                f"{run.where}.{key}",
                 f"every measured value is predicted below {floor:.3g} ({what}): nothing left to measure",
-                "sample earlier, or measure a species the run makes",
+                "sample later or earlier, or measure a species the run makes",
             )
         if not keep.all():
             notes.append(f"{int((~keep).sum())} of {keep.size} values predicted below {floor:.3g} ({what}) left out")
     failed = int(np.sum(~np.all(np.isfinite(flat), axis=1)))
     if failed:
         notes.append(f"{failed} draws could not be integrated (left out)")
-    sigma = design.sigma_draws(draws, names, run.noise, run.where, run.times.size)
+    sigma = design.sigma_draws(draws, names, run.noise, run.where, run.values_per_species)
     return flat[:, keep], sigma[:, keep], keep, notes
 
 
@@ -201,32 +213,37 @@ def _effect(reduction: float, subject: str) -> str:
     return f"cut {subject} by {reduction:.0%}"
 
 
-def _what(study: Study, row: pd.Series, temperature_unit: str, time_unit: str | None, replicates: int) -> str:
-    """The candidate in words: a run at T for a duration, or a rate constant at T (with its replicates)."""
+def _what(run: CandidateRun, row: pd.Series, temperature_unit: str, time_unit: str | None) -> str:
+    """The candidate in words: a run at T for a duration (ramped, dosed), a flow reactor at T, or a rate constant
+    at T (with its replicates)."""
     where = f"{row['temperature']:g} {temperature_unit}"
-    if study.mode == "rate_constants":
+    if run.kind == "rate_constant":
         return (
-            f"set of {replicates} rate constants measured at {where}"
-            if replicates > 1
+            f"set of {run.replicates} rate constants measured at {where}"
+            if run.replicates > 1
             else f"rate constant measured at {where}"
         )
-    return f"run at {where} for {row['duration']:g} {time_unit}"
+    if run.kind != "batch":
+        return f"{run.kind.upper()} at {where}"
+    low, high = (float(units.kelvin_to(k, temperature_unit)) for k in run.span)
+    at = f"ramped between {low:.3g} and {high:.3g} {temperature_unit}" if run.ramped else f"at {where}"
+    return f"{'dosed ' if run.dosed else ''}run {at} for {row['duration']:g} {time_unit}"
 
 
 def _sentence(
-    study: Study, table: pd.DataFrame, target: Target, runs: dict[str, CandidateRun], temperature_unit: str, time_unit
+    table: pd.DataFrame, target: Target, runs: dict[str, CandidateRun], temperature_unit: str, time_unit
 ) -> str:
     """One plain sentence: what the best candidate would do to the target's uncertainty, and what the worst would."""
     best, worst = table.iloc[0], table.iloc[-1]
     unit = f" {target.unit}" if target.unit else ""
     text = (
-        f"A {_what(study, best, temperature_unit, time_unit, runs[best['candidate']].replicates)} "
+        f"A {_what(runs[best['candidate']], best, temperature_unit, time_unit)} "
         f"(candidate '{best['candidate']}') would {_effect(best['reduction'], f'the uncertainty of {target.label}')} "
         f"(expected sd {best['expected_sd']:.3g}{unit}, now {best['current_sd']:.3g})"
     )
     if len(table) > 1:
         text += (
-            f"; a {_what(study, worst, temperature_unit, time_unit, runs[worst['candidate']].replicates)} "
+            f"; a {_what(runs[worst['candidate']], worst, temperature_unit, time_unit)} "
             f"('{worst['candidate']}') would {_effect(worst['reduction'], 'it')}"
         )
     return text + "."
@@ -265,12 +282,61 @@ def _fisher(
         ]
         solved = list(rows)
     else:
-        jacobians, solved = design.batch_jacobians(
+        jacobians, solved = design.candidate_jacobians(
             study, linear.columns, parameters, run, rows, temperature_ref, study.noise, design.detection_floor(run)
         )
         jacobians = [jacobian[keep] for jacobian in jacobians]
     weights = [design.fisher_weight(sigma[d], study.noise) for d in solved]
     return design.fisher_information(jacobians, weights, linear.scale)
+
+
+def _scenario_values(
+    study: Study,
+    target: Target,
+    file: CandidateFile,
+    path: Path,
+    parameters,
+    fitted: tuple[float, float],
+    where: str,
+) -> tuple[np.ndarray, Target, list[str]]:
+    """A scenario answer's value in each picked draw (the study's units), the target with its unit, and the
+    scenario's notes (extrapolations). ``StudyError`` at ``where`` when the answer does not exist or is not defined
+    in every draw."""
+    name, quantity = target.coordinate, target.quantity
+    if study.mode != "network":
+        raise StudyError(where, "a scenario's answer is a target of network studies only", "target k[r, T] instead")
+    scenarios, index, source = find_scenario(file, study, path, name)
+    if getattr(scenarios.scenarios[index], "reactor", None) is None:
+        raise StudyError(where, f"scenario '{name}' runs no reactor", "name a reactor scenario, or target k[r, T]")
+    with warnings.catch_warnings():  # quantiles of answers some draws never reach (inf) are the predictor's concern
+        warnings.simplefilter("ignore", RuntimeWarning)
+        answers, notes = scenario_answers(study, parameters, fitted, scenarios, index, source)
+    if quantity not in answers:
+        raise StudyError(where, f"scenario '{name}' has no answer '{quantity}'", f"its answers: {'; '.join(answers)}")
+    unit, values = answers[quantity]
+    values = np.asarray(values, dtype=float)
+    undefined = ~np.isfinite(values)
+    if undefined.all():
+        raise StudyError(
+            where,
+            f"'{quantity}' of scenario '{name}' cannot be computed: no posterior draw reaches it within the "
+            "scenario's range (a conversion of a species the scenario never consumes, say)",
+            "choose another answer",
+        )
+    if undefined.any():
+        raise StudyError(
+            where,
+            f"'{quantity}' of scenario '{name}' is undefined in {undefined.mean():.1%} of the posterior draws (not "
+            "reached within the scenario's range, or not integrated), so its sd is not defined",
+            "lengthen the scenario's 'until' or 'residence_times', or choose another answer",
+        )
+    if np.ptp(values) == 0:
+        raise StudyError(
+            where,
+            f"'{quantity}' of scenario '{name}' is the same in every posterior draw: the kinetics do not decide it",
+            "choose an answer that depends on the fitted parameters",
+        )
+    return values, replace(target, unit=unit), notes
 
 
 def rank_experiments(
@@ -300,7 +366,8 @@ def rank_experiments(
     if text is None:
         raise StudyError("--target", "no target given", f"pass --target, or put 'target:' into {path}")
     temperature_unit = file.units.temperature or study.units.temperature
-    chosen = parse_target(text, study, "--target" if target is not None else f"{path}: target", temperature_unit)
+    target_where = "--target" if target is not None else f"{path}: target"
+    chosen = parse_target(text, study, target_where, temperature_unit, scenario_names(file, study))
     destination = Path(out) if out is not None else results_dir / "next_experiment"
     check_target(destination, overwrite, (results_dir, path))
 
@@ -320,10 +387,14 @@ def rank_experiments(
     fitted = tuple(float(v) for v in attrs["temperature_range_K"])
     picks = pick_draws(idata.posterior, file.draws)
     draws = design.stacked(idata.posterior, picks)
-    values = design.target_values(chosen, draws, study, temperature_ref)
-    linear = design.Linearised.of(design.parameter_columns(study), draws, values)
     network = study.mode == "network"
     parameters = parameter_draws(study, idata.posterior, temperature_ref, picks) if network else None
+    scenario_notes: list[str] = []
+    if chosen.kind == "scenario":
+        values, chosen, scenario_notes = _scenario_values(study, chosen, file, path, parameters, fitted, target_where)
+    else:
+        values = design.target_values(chosen, draws, study, temperature_ref)
+    linear = design.Linearised.of(design.parameter_columns(study), draws, values)
     n_draws = picks.size
     sources = np.random.default_rng([file.seed, 0]).choice(
         n_draws, file.simulations, replace=file.simulations > n_draws
@@ -344,13 +415,13 @@ def rank_experiments(
 
     few = [c.run.name for c in found if not c.reweighted.effective >= design.MIN_EFFECTIVE]
     estimate = "linearised" if few else "reweighting"
-    cautions = _cautions(results_dir, study, chosen, fitted, found, few, file, temperature_unit)
-    table = _table(found, file, chosen, estimate, current_sd, current_width, fitted, study)
+    cautions = _cautions(results_dir, study, chosen, fitted, found, few, scenario_notes)
+    table = _table(found, file, chosen, estimate, current_sd, current_width, fitted, study, temperature_unit)
     best_set = None
     if file.choose is not None:
         best_set = _best_set(found, file.choose, estimate, linear, values, current_sd)
     time_unit = (file.units.time or study.units.time) if network else None
-    sentence = _sentence(study, table, chosen, {r.name: r for r in runs}, temperature_unit, time_unit)
+    sentence = _sentence(table, chosen, {r.name: r for r in runs}, temperature_unit, time_unit)
     method = METHOD[estimate].format(sets=file.simulations, draws=n_draws, fisher=design.FISHER_DRAWS)
 
     with StagedFolder(destination, overwrite, (results_dir, path)) as folder:
@@ -418,8 +489,7 @@ def _cautions(
     fitted: tuple[float, float],
     found: list[_Candidate],
     few: list[str],
-    file: CandidateFile,
-    temperature_unit: str,
+    scenario_notes: list[str],
 ) -> list[str]:
     """The fit's verdict when not 'pass', extrapolations (target and candidates), which estimate ranks and why,
     the method's assumptions and the project's caution."""
@@ -431,12 +501,14 @@ def _cautions(
         outside = _outside(target.kelvin, fitted, study.units.temperature)
         if outside:
             cautions.append(f"EXTRAPOLATED: the target {target.label} lies {outside}.")
-    for candidate, stated in zip(found, file.candidates, strict=True):
-        outside = _outside(candidate.run.kelvin, fitted, study.units.temperature)
+    cautions += scenario_notes
+    for candidate in found:
+        run = candidate.run
+        outside = _outside_span(run.span, fitted, study.units.temperature)
         if outside:
             cautions.append(
-                f"EXTRAPOLATED: candidate {stated.name}: temperature {stated.temperature:g} {temperature_unit} is "
-                f"{outside}; the ranking trusts the fitted model out there."
+                f"EXTRAPOLATED: candidate {run.name} ({run.description}) runs {outside}; the ranking trusts the "
+                "fitted model out there."
             )
     if few:
         latent = study.run_variability is not None or study.initial_uncertainty or study.temperature_sd_K is not None
@@ -464,24 +536,32 @@ def _table(
     current_width: float,
     fitted: tuple[float, float],
     study: Study,
+    temperature_unit: str,
 ) -> pd.DataFrame:
-    """The ranking: one row per candidate (``TABLE_COLUMNS``), best first."""
+    """The ranking: one row per candidate (``TABLE_COLUMNS``), best first. ``temperature``: as stated, or a
+    programme's nominal temperature (time-weighted mean up to the last sampling time); ``duration``: a batch run's
+    last sampling time (both in the candidates file's units)."""
     rows = []
     for candidate, stated in zip(found, file.candidates, strict=True):
         weighted, (linear_sd, linear_gain) = candidate.reweighted, candidate.linearised
+        run = candidate.run
         by_weights = estimate == "reweighting"
         expected = weighted.expected_sd if by_weights else linear_sd
-        outside = _outside(candidate.run.kelvin, fitted, study.units.temperature)
+        outside = _outside_span(run.span, fitted, study.units.temperature)
         notes = ([f"extrapolated: {outside}"] if outside else []) + candidate.notes
         if weighted.effective < design.MIN_EFFECTIVE:
             notes.append(f"reweighting unreliable ({weighted.effective:.0f} effective weights)")
+        temperature = stated.temperature
+        if temperature is None:
+            temperature = float(units.kelvin_to(run.kelvin, temperature_unit))
         rows.append(
             {
                 "candidate": stated.name,
+                "kind": run.description,
                 "target": target.label,
                 "unit": target.unit,
-                "temperature": stated.temperature,
-                "duration": stated.times[-1] if stated.times is not None else np.nan,
+                "temperature": temperature,
+                "duration": stated.times[-1] if run.kind == "batch" else np.nan,
                 "current_sd": current_sd,
                 "expected_sd": expected,
                 "expected_sd_se": weighted.se if by_weights else np.nan,
@@ -490,6 +570,7 @@ def _table(
                 "effective_weights": weighted.effective,
                 "estimate": estimate,
                 "expected_sd_reweighted": weighted.expected_sd,
+                "expected_sd_reweighted_se": weighted.se,
                 "expected_sd_linearised": linear_sd,
                 "expected_gain_linearised_nats": linear_gain,
                 "current_width90": current_width,
@@ -548,6 +629,7 @@ def next_experiment_report(result: NextExperimentResult) -> str:
         [
             "rank",
             "candidate",
+            "kind",
             "temperature",
             "current_sd",
             "expected_sd",

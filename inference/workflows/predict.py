@@ -23,18 +23,20 @@ import pandas as pd
 import pydantic
 from scipy.interpolate import CubicSpline
 from scipy.optimize import minimize_scalar
+from scipy.special import lambertw, wrightomega
 
 from ..errors import StudyError
 from ..inputs import units
 from ..inputs.config import format_validation_error, lists_to_tuples, load_study, read_yaml
-from ..inputs.data import read_observations
-from ..inputs.scenarios import check_scenario
+from ..inputs.data import read_observations, read_rate_constants
+from ..inputs.scenarios import check_scenario, half_life_order
 from ..inputs.schema import Scenario, ScenarioFile
 from ..inputs.study import Study
 from ..outputs import report
 from ..outputs.records import PredictionResult
-from ..outputs.reporting import CAUTION
+from ..outputs.reporting import CAUTION, FRACTION
 from ..outputs.results import StagedFolder, check_target, load_results, sha256_file
+from ..physics.arrhenius import R, ln_pre_exponential
 from ..physics.conditions import Feed
 from ..physics.reactors import (
     batch_profiles,
@@ -44,10 +46,13 @@ from ..physics.reactors import (
     programmed_batch_profiles,
 )
 from ..posterior.draws import ParameterDraws, parameter_draws, pick_draws
+from ..posterior.summaries import temperature_label
 
 QUANTILES = (0.05, 0.25, 0.5, 0.75, 0.95)
 TABLE_COLUMNS = ["scenario", "time", "quantity", "unit", "median", "q05", "q25", "q75", "q95"]
-SUMMARY_COLUMNS = ["scenario", "quantity", "unit", "median", "q05", "q95", "share", "note"]
+#: ``extrapolated``: a question's row whose temperature (asked or answered) lies outside the fitted range, or any
+#: answer of a reactor scenario with such a temperature.
+SUMMARY_COLUMNS = ["scenario", "quantity", "unit", "median", "q05", "q95", "share", "note", "extrapolated"]
 #: Residence times searched for a CSTR's target conversion, relative to the scenario's range.
 CSTR_SEARCH_POINTS = 48
 
@@ -248,7 +253,104 @@ def _scalar(
         "q95": q95,
         "share": share,
         "note": note,
+        "draws": values,  # per draw, in the study's units (for scenario_answers; not a column of summary.csv)
     }
+
+
+def temperature_for_ln_k(
+    wanted: float, ln_k_ref: np.ndarray, ea: np.ndarray, temperature_ref: float, exponent: float | np.ndarray = 0.0
+) -> np.ndarray:
+    """Per draw, the temperature (K) at which ln k reaches ``wanted`` under the law of ``ln_rate_constant``, on its
+    rising branch (k in its own unit, Ea in J/mol, T_ref in K); inf where no temperature reaches it.
+
+    Plain law (n = 0): 1/T = 1/T_ref - (wanted - ln k_ref) R/Ea. With a temperature exponent n, ln k = ln A +
+    n ln T - b/T (b = Ea/R, ln A from ``ln_pre_exponential``) and c = wanted - ln A: for n > 0, T = b/(n x) with
+    x = W0(e^z), z = ln(b/n) - c/n (Wright's omega; k rises for every T); for n < 0, k peaks at T = b/|n| and the
+    rising branch has T = b/(|n| x) with x = -W_-1(-e^s) >= 1, s = ln(b/|n|) + c/|n| <= -1 (Lambert's W, from
+    memory; ``tests/test_rate_constant_predictions.py`` checks it against scipy's brentq).
+    """
+    ln_k_ref, ea = np.asarray(ln_k_ref, dtype=float), np.asarray(ea, dtype=float)
+    n = np.broadcast_to(np.asarray(exponent, dtype=float), ln_k_ref.shape)
+    b = ea / R
+    with np.errstate(all="ignore"):
+        inverse = 1.0 / temperature_ref - (wanted - ln_k_ref) / b
+        plain = np.where(inverse > 0, 1.0 / inverse, np.inf)
+        c = wanted - ln_pre_exponential(ln_k_ref, ea, temperature_ref, n)
+        rising = b / (n * wrightomega(np.log(b / n) - c / n))
+        m = -n
+        s = np.log(b / m) + c / m
+        x = -lambertw(-np.exp(np.maximum(s, -700.0)), k=-1).real
+        # Where e^s underflows, x - ln x = -s by Newton from its asymptote (x > 700: three steps reach rounding).
+        far = -s
+        guess = far + np.log(np.maximum(far, 1.0))
+        for _ in range(3):
+            guess = guess - (guess - np.log(guess) - far) / (1.0 - 1.0 / guess)
+        x = np.where(s < -700.0, guess, x)
+        peaked = np.where(s <= -1.0, b / (m * x), np.inf)
+        found = np.select([n == 0, n > 0], [plain, rising], peaked)
+    return np.where(np.isfinite(found) & (found > 0), found, np.inf)
+
+
+@dataclass(frozen=True)
+class _QuestionUnits:
+    """The units a question scenario is stated and answered in: the scenarios file's, else the study's, else those k's
+    unit implies (a rate-constant study states only that one): ``concentration`` None where none is stated or
+    implied (a first-order k)."""
+
+    temperature: str
+    time: str
+    concentration: str | None
+
+    @classmethod
+    def of(cls, file: ScenarioFile, study: Study, where: str) -> _QuestionUnits:
+        given, ureg = file.units, units.registry()
+        time, concentration = study.units.time, study.units.concentration
+        if study.units.rate_constant is not None:  # e.g. L/(mol*min): time min, concentration mol/L
+            k_unit = ureg.Quantity(1.0, study.units.rate_constant)
+            times = [n for n, _ in k_unit.unit_items() if ureg.Unit(n).dimensionality == {"[time]": 1}]
+            time = time or (format(ureg.Unit(times[0]), "~") if len(times) == 1 else "s")
+            implied = (1.0 / (k_unit * ureg.Quantity(1.0, time))).to_reduced_units()
+            if concentration is None and implied.dimensionality == ureg.get_dimensionality("[substance]/[length]**3"):
+                concentration = format(implied.units, "~C")
+        out = cls(
+            given.temperature or study.units.temperature, given.time or time, given.concentration or concentration
+        )
+        units.parse_unit(out.temperature, "temperature", f"{where}: units.temperature")
+        units.parse_unit(out.time, "time", f"{where}: units.time")
+        if out.concentration is not None:
+            units.parse_unit(out.concentration, "concentration", f"{where}: units.concentration")
+        return out
+
+    def half_life_numerator(self, k_unit: str, order: float, c0: float | None) -> float:
+        """a of t1/2 = a / k, with k in ``k_unit`` and t1/2 in ``time``: ln 2 (first order) or 1/c0 (second order,
+        c0 in ``concentration``), times the unit factor."""
+        ureg = units.registry()
+        if order == 1.0:
+            return math.log(2.0) * float(ureg.Quantity(1.0, f"1/({k_unit})").to(self.time).magnitude)
+        return float(ureg.Quantity(1.0, f"1/(({k_unit})*({self.concentration}))").to(self.time).magnitude) / c0
+
+
+def _rate_constant_draws(study: Study, posterior, temperature_ref: float, picks: np.ndarray) -> ParameterDraws:
+    """The picked draws of a rate-constant study as ``ParameterDraws`` (ln k_ref, Ea and temperature exponents; no
+    network blocks), so that questions about k read the same law as reactor predictions."""
+    stacked = posterior.stack(sample=("chain", "draw")).isel(sample=picks)
+    ln_k_ref = np.moveaxis(stacked["ln_k_ref"].values, -1, 0)
+    count, reactions = ln_k_ref.shape
+    if "temperature_exponent" in stacked:
+        exponent = np.moveaxis(stacked["temperature_exponent"].values, -1, 0)
+    else:
+        exponent = np.repeat(np.array([[r.temperature_exponent for r in study.reactions]]), count, axis=0)
+    empty = np.zeros((count, 0))
+    return ParameterDraws(
+        ln_k_ref,
+        np.moveaxis(stacked["Ea"].values, -1, 0),
+        empty,
+        empty,
+        np.zeros((count, reactions, 0)),
+        None,
+        temperature_ref,
+        exponent=exponent,
+    )
 
 
 class _Predictor:
@@ -266,11 +368,17 @@ class _Predictor:
             )
         #: The unit temperatures are quoted in (the scenarios file's).
         self.display_temperature = study.units.temperature
+        #: The scenarios with a temperature outside the fitted range.
+        self.flagged: set[str] = set()
+        #: The profiles of the last scenario ``run``, per draw: quantity -> (unit, values (draws, points)).
+        self.series: dict[str, tuple[str, np.ndarray]] = {}
 
-    def flag(self, scenario: str, kelvin: float, what: str) -> None:
+    def flag(self, scenario: str, kelvin: float, what: str) -> bool:
+        """Note a temperature (K) outside the fitted runs' range, with how far outside; True when it is."""
         low, high = self.measured
         unit = self.display_temperature
         if kelvin < low or kelvin > high:
+            self.flagged.add(scenario)
             edge = low if kelvin < low else high
             side = "below the lowest" if kelvin < low else "above the highest"
             shown = float(units.kelvin_to(kelvin, unit))
@@ -278,6 +386,8 @@ class _Predictor:
                 f"EXTRAPOLATED: scenario {scenario}: {what} {shown:g} {unit} is {abs(kelvin - edge):.3g} K "
                 f"{side} fitted run temperature ({float(units.kelvin_to(edge, unit)):g} {unit})"
             )
+            return True
+        return False
 
     def vector(self, values: dict[str, float]) -> np.ndarray:
         """A mapping species -> value as a vector over the study's species (zero where not named)."""
@@ -355,18 +465,12 @@ class _Predictor:
         low, high = _to_kelvin(self.study, np.array(target.between), f"{where}.temperature_for.between")
         lo, hi = np.full(self.draws.size, low), np.full(self.draws.size, high)
         if target.reaction is not None:
-            # The same ln k as the profiles (temperature exponent and a new run's shift included), inverted by
-            # bisection: ln k rises with T wherever Ea > 0 and n > -Ea/(RT).
+            # The same ln k as the profiles (temperature exponent and a new run's shift included), inverted in
+            # closed form.
             j = self.study.reaction_names.index(target.reaction)
             k = target.k if target.k is not None else math.log(2.0) / target.half_life
-            wanted = math.log(k)
-            inside = (self.draws.ln_k(lo)[:, j] <= wanted) & (self.draws.ln_k(hi)[:, j] >= wanted)
-            for _ in range(60):
-                middle = 0.5 * (lo + hi)
-                above = self.draws.ln_k(middle)[:, j] >= wanted
-                hi = np.where(above, middle, hi)
-                lo = np.where(above, lo, middle)
-            return np.where(inside, 0.5 * (lo + hi), np.nan)
+            found = self.temperature_for_k(j, math.log(k))
+            return np.where((found >= low) & (found <= high), found, np.nan)
         reached_high = self.conversion_at(scenario, high, target.within) >= target.conversion
         for _ in range(40):  # bisection on T per draw: conversion rises with T when every Ea is positive
             middle = 0.5 * (lo + hi)
@@ -374,6 +478,114 @@ class _Predictor:
             hi = np.where(above, middle, hi)
             lo = np.where(above, lo, middle)
         return np.where(reached_high, 0.5 * (lo + hi), np.nan)
+
+    def temperature_for_k(self, j: int, wanted: float) -> np.ndarray:
+        """Per draw, the temperature (K) at which ln k of reaction j (a new run's, as the profiles use) reaches
+        ``wanted``; inf where none does."""
+        draws = self.draws
+        exponent = 0.0 if draws.exponent is None else draws.exponent[:, j]
+        ln_k_ref = draws.ln_k(draws.temperature_ref)[:, j]  # a new run's shift included
+        return temperature_for_ln_k(wanted, ln_k_ref, draws.ea[:, j], draws.temperature_ref, exponent)
+
+    def answer(self, scenario: Scenario, where: str, stated: _QuestionUnits) -> tuple[pd.DataFrame, list[dict], dict]:
+        """A question about one reaction's k, in the units ``stated``: posterior quantiles of k and the half-life at
+        each temperature asked (``k_at``), or of the temperature at which a target is met (``temperature_at``),
+        each row flagged where its temperature lies outside the fitted range. Returns the table (the temperatures
+        asked, or a temperature grid about the answer), the summary rows and the figure's content."""
+        study, name, draws = self.study, scenario.name, self.draws
+        j = study.reaction_names.index(scenario.reaction)
+        k_unit, unit = study.reactions[j].k_unit, stated.temperature
+        order = half_life_order(scenario, study, where)
+        numerator = None if order is None else stated.half_life_numerator(k_unit, order, scenario.c0)
+        series = [(f"k[{scenario.reaction}]", k_unit)]
+        if numerator is not None:
+            series.append((f"half_life[{scenario.reaction}]", stated.time))
+
+        def values(kelvin: float) -> list[np.ndarray]:
+            k = np.exp(draws.ln_k(kelvin)[:, j])
+            return [k] if numerator is None else [k, numerator / k]
+
+        low, high = self.measured
+
+        def table(kelvins: np.ndarray) -> pd.DataFrame:
+            rows = []
+            for kelvin in kelvins:
+                for (quantity, value_unit), value in zip(series, values(float(kelvin)), strict=True):
+                    band = _band(value)
+                    rows.append(
+                        {
+                            "scenario": name,
+                            f"temperature_{unit}": float(units.kelvin_to(kelvin, unit)),
+                            "quantity": quantity,
+                            "unit": value_unit,
+                            "median": band[2],
+                            "q05": band[0],
+                            "q25": band[1],
+                            "q75": band[3],
+                            "q95": band[4],
+                            "extrapolated": not low <= kelvin <= high,
+                        }
+                    )
+            return pd.DataFrame(rows)
+
+        out: list[dict] = []
+        figure: dict = {"unit": unit, "fitted_K": (low, high), "asked_K": [], "answer_K": None, "target": None}
+        if scenario.question == "k_at":
+            kelvins = units.to_kelvin(np.array(scenario.temperatures), unit, f"{where}.temperatures")
+            for kelvin in kelvins:
+                flagged = self.flag(name, float(kelvin), "temperature")
+                for (quantity, value_unit), value in zip(series, values(float(kelvin)), strict=True):
+                    label = f"{quantity[:-1]}, {temperature_label(float(kelvin), unit)}]"
+                    out.append(_scalar(name, label, value_unit, value) | {"extrapolated": flagged})
+            figure["asked_K"] = [float(kelvin) for kelvin in kelvins]
+        else:
+            reaction = scenario.reaction
+            if scenario.k is not None:
+                wanted, key = math.log(scenario.k), "k"
+                what = f"temperature for k[{reaction}] = {scenario.k:g} {k_unit}"
+            else:
+                wanted, key = math.log(numerator / scenario.half_life), "half_life"
+                what = f"temperature for a half-life of {scenario.half_life:g} {stated.time} of {reaction}"
+            found = self.temperature_for_k(j, wanted)
+            reached = np.isfinite(found)
+            if not reached.any():
+                raise StudyError(
+                    f"{where}.{key}",
+                    f"no posterior draw reaches {what.removeprefix('temperature for ')} at any temperature: k of "
+                    f"'{reaction}' stays below {math.exp(float(np.max(self.highest_ln_k(j)))):.3g} {k_unit} in every "
+                    "draw",
+                    "ask for a smaller k" + (" (a longer half-life)" if key == "half_life" else ""),
+                )
+            shown = np.where(reached, units.kelvin_to(np.where(reached, found, 1.0), unit), np.inf)
+            median = float(np.median(found))
+            if np.isfinite(median):
+                flagged = self.flag(name, median, "the temperature found")
+            else:
+                flagged = True
+                self.notes.append(
+                    f"EXTRAPOLATED: scenario {name}: most posterior draws reach the target at no temperature"
+                )
+            note = "share = draws that reach the target at some temperature (the others count as inf)"
+            out.append(_scalar(name, what, unit, shown, note, float(reached.mean())) | {"extrapolated": flagged})
+            figure["answer_K"] = tuple(float(t) for t in np.quantile(found, [0.05, 0.5, 0.95]))
+            figure["target"] = (series[-1][0] if key == "half_life" else series[0][0], scenario.k or scenario.half_life)
+        # The figure's temperatures: the fitted range and every temperature asked or answered, with a margin.
+        span = [low, high, *figure["asked_K"], *(t for t in figure["answer_K"] or () if np.isfinite(t))]
+        margin = 0.05 * (max(span) - min(span))
+        grid = np.linspace(max(min(span) - margin, 1.0), max(span) + margin, 61)
+        figure["curve"] = table(grid)
+        return table(kelvins) if scenario.question == "k_at" else figure["curve"], out, figure
+
+    def highest_ln_k(self, j: int) -> np.ndarray:
+        """Per draw, the largest ln k of reaction j at any temperature: ln A as T grows without bound (n = 0), the
+        peak at T = Ea/(R |n|) (n < 0), inf (n > 0)."""
+        draws = self.draws
+        n = np.zeros(draws.size) if draws.exponent is None else draws.exponent[:, j]
+        with np.errstate(all="ignore"):
+            peak = np.where(n < 0, draws.ea[:, j] / (R * -n), draws.temperature_ref)
+            at_peak = draws.ln_k(peak)[:, j]
+            ln_a = ln_pre_exponential(draws.ln_k(draws.temperature_ref)[:, j], draws.ea[:, j], draws.temperature_ref)
+        return np.select([n < 0, n == 0], [at_peak, ln_a], np.inf)
 
     def cstr_time_to(self, scenario: Scenario, kelvin: float, target: float) -> np.ndarray:
         """Per draw, the residence time that reaches ``target`` conversion (log-spaced search, interpolated)."""
@@ -418,6 +630,7 @@ class _Predictor:
                     formed = present[:, :, p] - charged[:, p]
                     series[f"yield[{product}]"] = ("", np.where(charged[:, key] > 0, formed / charged[:, key], 0.0))
                     series[f"selectivity[{product}]"] = ("", np.where(consumed > 0, formed / consumed, np.nan))
+        self.series = series
         rows = []
         for quantity, (unit, values) in series.items():
             band = _band(values)
@@ -593,10 +806,30 @@ def _share(amount: np.ndarray, charged: np.ndarray) -> np.ndarray:
         return np.where(charged > 0, amount / charged, np.nan)
 
 
+def scenario_answers(
+    study: Study, draws: ParameterDraws, measured_K: tuple[float, float], file: ScenarioFile, index: int, where: str
+) -> tuple[dict[str, tuple[str, np.ndarray]], list[str]]:
+    """Every answer of scenario ``index`` of ``file`` (read from ``where``) per posterior draw, in the study's units:
+    quantity -> (unit, values (draws,)). The scalar answers as ``summary.csv`` names them, and each profile
+    quantity (``c[S]``, ``conversion[A]``, ``yield[P]``, ...) at the end of the scenario's axis (its last time, or
+    its longest residence time). Also the notes (extrapolations, multiple steady states)."""
+    predictor = _Predictor(study, draws, measured_K)
+    scenario_units = _Units.of(file, study, where)
+    predictor.display_temperature = scenario_units.temperature
+    scenario, at = file.scenarios[index], f"{where}: scenarios[{index}]"
+    _, scalars = predictor.run(scenario_units.to_study(scenario, study, at), at, scenario, scenario_units.time)
+    answers = {quantity: (unit, values[:, -1]) for quantity, (unit, values) in predictor.series.items()}
+    answers.update({row["quantity"]: (row["unit"], row["draws"]) for row in scalars})
+    return answers, predictor.notes
+
+
 def _measured_range(study: Study, attrs: dict) -> tuple[float, float]:
     if "temperature_range_K" in attrs:
         low, high = attrs["temperature_range_K"]
         return float(low), float(high)
+    if study.mode != "network":
+        kelvin = read_rate_constants(study).temperature_K
+        return float(np.min(kelvin)), float(np.max(kelvin))
     return read_observations(study).kelvin_span()
 
 
@@ -621,12 +854,6 @@ def predict(
     results_dir = Path(results_dir)
     manifest, idata = load_results(results_dir)
     study = load_study(results_dir / "study.yaml")
-    if study.mode != "network":
-        raise StudyError(
-            str(results_dir),
-            "reactor predictions need a reaction network fitted to batch runs",
-            "rate-constant studies report k at named temperatures instead (report.k_at)",
-        )
     if isinstance(scenarios, ScenarioFile):
         file, source = scenarios, {"path": str(results_dir / "study.yaml"), "sha256": None}
     else:
@@ -638,38 +865,54 @@ def predict(
     attrs = json.loads(idata.posterior.attrs["arrhenia"])
     posterior = idata.posterior
     picks = pick_draws(posterior, draws or file.draws)
-    parameter = parameter_draws(study, posterior, float(attrs["reference_temperature_K"]), picks)
+    temperature_ref = float(attrs["reference_temperature_K"])
+    network = study.mode == "network"
+    draws_of = parameter_draws if network else _rate_constant_draws
+    parameter = draws_of(study, posterior, temperature_ref, picks)
     predictor = _Predictor(study, parameter, _measured_range(study, attrs))
-    profiles, summary_rows = {}, []
-    scenario_units = _Units.of(file, study, source["path"])
-    predictor.display_temperature = scenario_units.temperature
+    profiles, summary_rows, k_figures = {}, [], {}
+    scenario_units = _Units.of(file, study, source["path"]) if network else None
+    question_units = _QuestionUnits.of(file, study, source["path"])
+    predictor.display_temperature = question_units.temperature
     for index, scenario in enumerate(file.scenarios):
         where = f"{source['path']}: scenarios[{index}]"
-        table, scalars = predictor.run(
-            scenario_units.to_study(scenario, study, where), where, scenario, scenario_units.time
-        )
-        profiles[scenario.name] = scenario_units.table_from_study(table, study)
-        summary_rows += [scenario_units.scalar_from_study(row, study) for row in scalars]
-        if not quiet:
-            print(
-                f"predicted scenario {scenario.name} ({scenario.reactor}, {parameter.size} posterior draws)", flush=True
+        if scenario.question is not None:
+            profiles[scenario.name], scalars, k_figures[scenario.name] = predictor.answer(
+                scenario, where, question_units
             )
+            summary_rows += scalars
+        else:
+            table, scalars = predictor.run(
+                scenario_units.to_study(scenario, study, where), where, scenario, scenario_units.time
+            )
+            profiles[scenario.name] = scenario_units.table_from_study(table, study)
+            flagged = scenario.name in predictor.flagged
+            summary_rows += [
+                scenario_units.scalar_from_study(row, study) | {"extrapolated": flagged} for row in scalars
+            ]
+        if not quiet:
+            kind = scenario.question or scenario.reactor
+            print(f"predicted scenario {scenario.name} ({kind}, {parameter.size} posterior draws)", flush=True)
     summary = pd.DataFrame(summary_rows, columns=SUMMARY_COLUMNS)
     notes = predictor.notes
     result = PredictionResult(target, profiles, summary, [n for n in notes if n.startswith("EXTRAPOLATED")])
+    time_unit = scenario_units.time if scenario_units is not None else question_units.time
     with StagedFolder(target, overwrite, inputs) as folder:
         for name, table in profiles.items():
-            folder.write_csv(f"{name}.csv", table)
+            folder.write_csv(f"{name}.csv", _readable(table, time_unit))
+            if name in k_figures:
+                plots.rate_constant_prediction_plot(name, k_figures[name], folder.path(f"{name}.png"))
+                continue
             # The figure holds concentrations and fractions; volumes and amounts are in the table and summary.
             shown = table[table["quantity"].str.startswith("c[") | (table["unit"] == "")]
             plots.prediction_plot(name, shown, folder.path(f"{name}.png"), scenario_units.time)
-        folder.write_csv("summary.csv", summary)
+        folder.write_csv("summary.csv", _readable(summary, time_unit))
         folder.write_text("cautions.txt", "\n".join([*notes, CAUTION]) + "\n")
         folder.write_text(
             "report.html",
             report.simple_report(
                 folder.stage,
-                title=f"Arrhenia reactor predictions: {study.name}",
+                title=f"Arrhenia {'reactor ' if network else ''}predictions: {study.name}",
                 intro=[
                     f"{parameter.size} posterior draws of {results_dir} pushed through {len(profiles)} scenario(s); "
                     "medians with 90 % intervals."
@@ -693,3 +936,13 @@ def predict(
             command_line,
         )
     return result
+
+
+def _readable(table: pd.DataFrame, time_unit: str) -> pd.DataFrame:
+    """A table as its CSV holds it: the time axis named with its unit (``time_min``, ``space_time_min``,
+    ``residence_time_min``) and the unit of a fraction written out instead of left blank."""
+    axes = {axis: f"{axis}_{time_unit}" for axis in ("time", "space_time", "residence_time") if axis in table}
+    written = table.rename(columns=axes)
+    if "unit" in written:
+        written["unit"] = written["unit"].fillna("").replace("", FRACTION)
+    return written
