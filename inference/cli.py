@@ -244,7 +244,7 @@ def _run(args: argparse.Namespace) -> int:
         study = load_study(args.study)
         from .workflows.kinds import open_problem
 
-        print(reporting.check_report(study, open_problem(study)))
+        print(reporting.check_report(study, open_problem(study), sampling_next=args.prior_predictive))
         if args.prior_predictive:
             from .workflows.prior_check import prior_predictive_check
 

@@ -284,3 +284,15 @@ def test_one_chain_is_told_that_r_hat_needs_two(one_chain):
     assert "R-hat needs two or more chains" in out
     assert "Shape validation" not in err + "".join(r.getMessage() for r in records)
     assert not [w for w in caught if "All-NaN" in str(w.message) or "Shape validation" in str(w.message)]
+
+
+def test_check_states_t_ref_once_in_kelvin_and_says_when_prior_draws_follow(make_study, run_cli, tmp_path):
+    kelvin_study = BASE_STUDY.replace("temperature: degC", "temperature: K")
+    kelvin_table = "temperature,k\n" + "".join(f"{t + 273.15:g},{k}\n" for t, k in ((30, 1.2e-4), (50, 1.1e-3)))
+    code, out, _ = run_cli("check", make_study(kelvin_study, kelvin_table))
+    assert code == 0
+    assert re.search(r"T_ref = [\d.]+ K \(auto", out), out  # not "T_ref = 313.15 K = 313.15 K"
+    assert "nothing was sampled" in out
+    code, out, _ = run_cli("check", make_study(), "--prior-predictive", "--draws", "50", "--out", tmp_path / "prior")
+    assert code == 0
+    assert "drawing from the priors" in out and "nothing was sampled" not in out

@@ -42,6 +42,7 @@ def test_report_is_self_contained(report):
         assert f"<h2>{heading}</h2>" in text
     assert "EXTRAPOLATED: k at 20 degC" in text
     assert "@media print" in text
+    assert "<td>None</td>" not in text and "<td>nan</td>" not in text  # a value that does not apply is blank
 
 
 def test_report_renders_in_headless_chromium(report, tmp_path):

@@ -199,3 +199,13 @@ def test_extreme_rate_constants_fail_cleanly(ln_k):
             continue
         values = result.concentrations[0] if hasattr(result, "concentrations") else result[0]
         assert np.all(np.isfinite(values))
+
+
+def test_the_cold_start_notice_knows_when_the_solver_is_compiled_on_disk():
+    # `fit` says it is compiling the solver when numba's cache lacks it; once the solver has run in a writable
+    # installation (as above), numba has written its cache and the notice is not shown again.
+    from inference.physics.integrator import solver_compiled_on_disk
+
+    net = network("AB", "A -> B")
+    solve(net, np.linspace(0.0, 1.0, 3), [0.3], [1.0, 0.0])
+    assert solver_compiled_on_disk() in (True, None)

@@ -182,7 +182,11 @@ def run_fit_plot(
     if obs.design is not None and study.measured_as == "amount":
         volume = obs.design.multiplier
     observed = set(obs.species_index[(obs.run_index == run) & plain].tolist())
-    q05, median, q95 = np.nanquantile(curves, [0.05, 0.5, 0.95], axis=0)
+    quantile = np.nanquantile if np.isnan(curves).any() else np.quantile  # failed draws are NaN; the rest is fast
+    q05, median, q95 = quantile(curves, [0.05, 0.5, 0.95], axis=0)
+    # Limits are set once at the end: autoscaling after every artist costs more than drawing the figure.
+    ax.set_autoscale_on(False)
+    drawn = [q05, q95]
     for i, species in enumerate(study.species):
         colour = colours[i % len(colours)]
         style = "-" if i in observed else "--"
@@ -191,6 +195,9 @@ def run_fit_plot(
         rows = (obs.run_index == run) & (obs.species_index == i) & plain
         for side, marker in (("below", "v"), ("above", "^")):
             limit = rows & (flags == side)
+            if not limit.any():
+                continue
+            drawn.append((checks["observed"] / volume)[limit].to_numpy())
             ax.plot(
                 checks["time"][limit],
                 (checks["observed"] / volume)[limit],
@@ -204,6 +211,7 @@ def run_fit_plot(
             table = checks[rows].copy()
             for column in ("observed", "q05", "q95"):  # measured amounts are drawn as concentrations
                 table[column] = table[column] / volume[rows]
+                drawn.append(table[column].to_numpy())
             ax.errorbar(
                 table["time"],
                 table["observed"],
@@ -218,6 +226,12 @@ def run_fit_plot(
                 capsize=0,
                 alpha=0.9,
             )
+    values = np.concatenate([np.ravel(v) for v in drawn])
+    values = values[np.isfinite(values)]
+    low, high = (min(0.0, values.min()), values.max()) if values.size else (0.0, 1.0)
+    pad = 0.05 * (high - low) or 1.0
+    ax.set_ylim(low - (pad if low < 0 else 0.0), high + pad)
+    ax.set_xlim(times[0] - 0.02 * times[-1], times[-1] * 1.02)
     kelvin = obs.temperature_K[run]
     unit = study.units.temperature
     shown = f"{float(units.kelvin_to(kelvin, unit)):.4g} {unit}"
@@ -241,8 +255,15 @@ def run_fit_plot(
 
 
 def _footnote(ax, text: str) -> None:
-    """A small grey note in the lower right corner of ``ax`` saying what the marks mean."""
-    ax.text(0.99, 0.01, text, transform=ax.transAxes, ha="right", va="bottom", fontsize=6, color="0.4")
+    """A small grey note saying what the marks mean: under the x-axis label of ``ax`` where it has one (clear of
+    the data; ``tight_layout`` makes room for it), else in the lower right corner inside ``ax``."""
+    if ax.get_xlabel():
+        ax.annotate(
+            text, xy=(1.0, 0.0), xycoords="axes fraction", xytext=(0, -30), textcoords="offset points",
+            ha="right", va="top", fontsize=6, color="0.4",
+        )  # fmt: skip
+    else:
+        ax.text(0.99, 0.01, text, transform=ax.transAxes, ha="right", va="bottom", fontsize=6, color="0.4")
 
 
 def _concentration_rows(study: Study, obs: Observations) -> np.ndarray:

@@ -51,7 +51,11 @@ def image(path: Path, caption: str) -> str:
 
 
 def table(frame: pd.DataFrame, digits: int = 4) -> str:
-    return frame.to_html(index=False, float_format=lambda v: f"{v:.{digits}g}", na_rep="", border=0, escape=True)
+    """An HTML table; a value that does not apply (NaN, or None in a column of flags) is an empty cell."""
+    text = {c: frame[c].where(frame[c].notna(), "") for c in frame.columns if frame[c].dtype == object}
+    return frame.assign(**text).to_html(
+        index=False, float_format=lambda v: f"{v:.{digits}g}", na_rep="", border=0, escape=True
+    )
 
 
 def page(title: str, sections: list[str]) -> str:

@@ -31,9 +31,10 @@ CAUTION = (
 )
 
 
-def check_report(study: Study, problem: StudyKind) -> str:
+def check_report(study: Study, problem: StudyKind, *, sampling_next: bool = False) -> str:
     """What the study means once validated: species, reactions, priors in their units, T_ref, counts of data;
-    ``problem`` is the study's kind opened on its data."""
+    ``problem`` is the study's kind opened on its data; ``sampling_next``: prior draws follow (not "nothing was
+    sampled")."""
     lines = [f"study {study.name}" + (f": {study.title}" if study.title else "")]
     lines += problem.check_lines()
     s = study.sampling
@@ -42,7 +43,7 @@ def check_report(study: Study, problem: StudyKind) -> str:
         f"target_accept {s.target_accept:g}"
     )
     lines += [f"  warning: {note}" for note in (*study.warnings, *problem.warnings())]
-    lines.append("  the study is valid; nothing was sampled")
+    lines.append(f"  the study is valid; {'drawing from the priors' if sampling_next else 'nothing was sampled'}")
     return "\n".join(lines)
 
 

@@ -10,6 +10,8 @@ needs) rather than an approximation of the exact one.
 
 from __future__ import annotations
 
+import os
+
 import numba
 import numpy as np
 
@@ -95,3 +97,12 @@ def predict_measurements(
             for p in range(n_params):
                 jacobian[m, columns[r, p]] += factor[m] * out_s[t, i, p]
     return -1
+
+
+def solver_compiled_on_disk() -> bool | None:
+    """Whether numba's on-disk cache already holds the solver's entry point: False means the first use in this
+    installation compiles it (about a minute on a 2-core machine); None where numba does not say."""
+    try:
+        return bool(os.path.exists(predict_measurements._cache._cache_file._index_path))
+    except AttributeError:  # numba's cache layout is not public; say nothing rather than guess
+        return None

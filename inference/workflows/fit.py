@@ -33,6 +33,7 @@ from ..outputs.results import (
     sha256_json,
 )
 from ..physics.arrhenius import auto_reference_temperature
+from ..physics.integrator import solver_compiled_on_disk
 from ..posterior.diagnostics import assess
 from ..posterior.per_temperature import POINTS_FILE, TemperaturePoints
 from ..posterior.summaries import (
@@ -61,6 +62,11 @@ def resolved_study_yaml(study: Study, temperature_ref: float, sampling: dict) ->
     return header + yaml.safe_dump(resolved, sort_keys=False, allow_unicode=True)
 
 
+#: The process's age is the command's start-up (interpreter and imports) only at its first fit; a command that
+#: fits several studies (demo, compare) records it once.
+_command_start_recorded = False
+
+
 def fit_study(
     study: Study | str | Path,
     *,
@@ -79,9 +85,11 @@ def fit_study(
     Arguments left as None take the study file's ``sampling`` values. Raises ``StudyError`` for any mistake
     in the input before anything is sampled or written.
     """
+    global _command_start_recorded
     steps = Steps(quiet)
-    if command_line is not None and (age := process_age_s()) is not None:
+    if command_line is not None and not _command_start_recorded and (age := process_age_s()) is not None:
         steps.timings["start of the command (interpreter and imports)"] = age
+    _command_start_recorded = True
     if not isinstance(study, Study):
         study = load_study(study)
     overrides = {
@@ -110,6 +118,10 @@ def _fit(
     for note in notes:
         steps.say(f"warning: {note}")
 
+    if study.network is not None and solver_compiled_on_disk() is False:
+        steps.say(
+            "first fit in this installation: compiling the network solver (numba), about a minute; later fits reuse it"
+        )
     with scratch_folder() as scratch:
         failure_log = scratch / "solver-failures"
         model = problem.build_model(temperature_ref, failure_log)

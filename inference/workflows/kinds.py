@@ -9,6 +9,9 @@ the ``StagedFolder`` it is handed.
 from __future__ import annotations
 
 import math
+import multiprocessing
+import os
+from collections.abc import Callable
 from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Protocol
@@ -140,7 +143,9 @@ def _temperature_lines(study: Study, measured_K: np.ndarray, span_K: tuple[float
     source = "auto, 1/mean(1/T)" if study.reference_temperature_K is None else "from the study file"
     return [
         f"  temperatures: {low:g} to {high:g} {unit} ({np.unique(measured_K).size} distinct)",
-        f"  T_ref = {reference:.2f} K = {float(units.kelvin_to(reference, unit)):.2f} {unit} ({source})",
+        f"  T_ref = {reference:.2f} K"
+        + (f" = {float(units.kelvin_to(reference, unit)):.2f} {unit}" if unit != "K" else "")
+        + f" ({source})",
     ]
 
 
@@ -558,11 +563,42 @@ class NetworkProblem:
             return
         times = [np.linspace(0.0, float(t.max()), PROFILE_POINTS) for t in obs.times]
         curves = self.profiles(idata.posterior, temperature_ref, times)
-        for r, run in enumerate(obs.run_ids):
-            safe = "".join(ch if ch.isalnum() or ch in "-_." else "_" for ch in run)
-            plots.run_fit_plot(
-                self.study, obs, r, times[r], curves[r], fit_checks, folder.path(f"figures/run_{safe}.png")
-            )
+        paths = [
+            folder.path(f"figures/run_{''.join(ch if ch.isalnum() or ch in '-_.' else '_' for ch in run)}.png")
+            for run in obs.run_ids
+        ]
+        _draw_in_parallel(
+            lambda r: plots.run_fit_plot(self.study, obs, r, times[r], curves[r], fit_checks, paths[r]), len(paths)
+        )
+
+
+#: Figures drawn in one process below this many; above it, forked processes share them (one per core).
+PARALLEL_FIGURES_FROM = 4
+
+_figure_job: Callable[[int], None] | None = None
+
+
+def _draw_figure(index: int) -> None:
+    assert _figure_job is not None  # set by the parent before it forks
+    _figure_job(index)
+
+
+def _draw_in_parallel(draw: Callable[[int], None], count: int) -> None:
+    """``draw(i)`` for i < count: in forked processes, one per core, when there are enough figures to pay for
+    them (the figures are written to files; nothing comes back), else here. Where fork is not the start method
+    (it is on Linux), here."""
+    global _figure_job
+    workers = min(os.cpu_count() or 1, count)
+    if count < PARALLEL_FIGURES_FROM or workers < 2 or multiprocessing.get_start_method(allow_none=False) != "fork":
+        for index in range(count):
+            draw(index)
+        return
+    _figure_job = draw
+    try:
+        with multiprocessing.get_context("fork").Pool(workers) as pool:
+            pool.map(_draw_figure, range(count), chunksize=1)
+    finally:
+        _figure_job = None
 
 
 #: The kinds of study, by ``Study.mode``. Each reads its own data (``open``) and answers the ``Problem``
