@@ -281,3 +281,26 @@ def test_a_network_step_is_asked_the_same_questions(fitted, tmp_path):
     row = summary.loc["half_life[first, 60 degC]"]
     assert row["unit"] == "min"
     assert row["median"] == pytest.approx(np.median(math.log(2.0) / k), rel=1e-9)
+
+
+def test_questions_in_the_study_file_are_answered_by_the_fit(make_study):
+    # A rate-constant study may list its questions under `scenarios:`; `fit` answers them after sampling, as it
+    # does a network's reactor scenarios. t1/2 = ln 2 / k (first order; textbook).
+    study = make_study(
+        BASE_STUDY + "scenarios:\n  - {name: at-50, question: k_at, reaction: step, temperatures: [50]}\n"
+    )
+    result = fit_study(study, out=study.parent / "res", quiet=True)
+    summary = pd.read_csv(study.parent / "res" / "predictions" / "summary.csv").set_index("quantity")
+    k = summary.loc["k[step, 50 degC]", "median"]
+    assert summary.loc["k[step, 50 degC]", "unit"] == "1/s"
+    assert math.isclose(summary.loc["half_life[step, 50 degC]", "median"], math.log(2) / k, rel_tol=0.02)
+    assert result.predictions is not None
+
+
+def test_a_reactor_scenario_in_a_rate_constant_study_file_is_refused(make_study, run_cli):
+    study = make_study(
+        BASE_STUDY + "scenarios:\n  - {name: b, reactor: batch, temperature: 50, initial: {A: 1}, until: 10}\n"
+    )
+    code, _, err = run_cli("check", study)
+    assert code == 2 and err.count("\n") == 1
+    assert "scenarios[0].reactor" in err and "question" in err

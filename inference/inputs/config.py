@@ -622,8 +622,6 @@ def load_study(path: str | Path) -> Study:
             "is for isothermal runs, not with a temperatures file (data.temperatures)",
             "a latent temperature per run cannot stand for a temperature history; remove one of the two",
         )
-    if file.scenarios and file.data.rate_constants is not None:
-        raise StudyError(f"{where}: scenarios", "reactor scenarios need a reaction network fitted to batch runs")
     if file.observations and file.data.runs is None:
         raise StudyError(
             f"{where}: observations",
