@@ -121,3 +121,20 @@ sampling: {draws: 300, tune: 300, chains: 2, seed: 9}
     )
     result = fit_study(study, out=folder / "res", quiet=True)
     return folder, result
+
+
+#: Test files that take minutes (whole demo fits, calibration, recovery fits, refits). They run first: test files
+#: are spread over the workers one file at a time, and a slow file started last would leave one core idle.
+SLOW_FILES_FIRST = (
+    "test_demo.py",
+    "test_calibration.py",
+    "test_observation_fits.py",
+    "test_rate_laws.py",
+    "test_next_experiment.py",
+    "test_experiment_fits.py",
+)
+
+
+def pytest_collection_modifyitems(items: list[pytest.Item]) -> None:
+    rank = {name: index for index, name in enumerate(SLOW_FILES_FIRST)}
+    items.sort(key=lambda item: rank.get(item.path.name, len(rank)))  # stable: a file's tests keep their order
