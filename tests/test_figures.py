@@ -346,3 +346,14 @@ def test_per_temperature_ln_k_of_an_isothermal_dosed_run_matches_solve_ivp(tmp_p
     obs = read_observations(study)
     points = per_temperature_fits(study, obs, _posterior(math.log(k) + 0.4, 60_000.0, 0.05), T_REF)
     assert points.table["ln_k"].iloc[0] == pytest.approx(math.log(k), abs=1e-4)
+
+
+@pytest.mark.parametrize("count", [2, 6])
+def test_run_figures_are_each_drawn_once_in_process_or_forked(tmp_path, count):
+    # Below PARALLEL_FIGURES_FROM the figures are drawn here, above it in forked processes: either way every
+    # index is drawn exactly once (each writes its own file; nothing comes back from the processes).
+    from inference.workflows import kinds
+
+    kinds._draw_in_parallel(lambda i: (tmp_path / f"{i}.txt").open("a").write("drawn\n"), count)
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted(f"{i}.txt" for i in range(count))
+    assert all((tmp_path / f"{i}.txt").read_text() == "drawn\n" for i in range(count))

@@ -586,10 +586,11 @@ def _draw_figure(index: int) -> None:
 def _draw_in_parallel(draw: Callable[[int], None], count: int) -> None:
     """``draw(i)`` for i < count: in forked processes, one per core, when there are enough figures to pay for
     them (the figures are written to files; nothing comes back), else here. Where fork is not the start method
-    (it is on Linux), here."""
+    (it is on Linux), or this process may not have children, here."""
     global _figure_job
     workers = min(os.cpu_count() or 1, count)
-    if count < PARALLEL_FIGURES_FROM or workers < 2 or multiprocessing.get_start_method(allow_none=False) != "fork":
+    daemon = multiprocessing.current_process().daemon  # a daemonic process (some job runners') may not fork
+    if count < PARALLEL_FIGURES_FROM or workers < 2 or daemon or multiprocessing.get_start_method() != "fork":
         for index in range(count):
             draw(index)
         return
