@@ -40,7 +40,7 @@ Targets (issue #18): Arrhenia's ESS/s >= 2x the plain way's on ``network`` with 
 ``process`` sampling wall <= 1.5x (gradient evaluations x cost per gradient / cores) and the 24-run cost per
 gradient <= 2.1x the 12-run one; ``stiff`` done in <= 300 s (stopped at ``--timeout``, default 600 s).
 
-Run: ``python benchmarks/whole_fit.py [--quick] [--only network,process,stiff] [--timeout S]``; about an hour
+Run: ``python benchmarks/whole_fit.py [--quick] [--only network,process,stiff] [--timeout S] [--keep DIR]``; 70 minutes
 in full on the 2-core machine (``--quick``: a smoke check). Needs no extra packages.
 """
 
