@@ -249,7 +249,8 @@ def sample_posterior(
         clock.lap("mode search (compiles log-density and gradient)")
         if failure_log is not None:
             failure_log.write_text("")  # failures while finding the mode are part of the search, not of sampling
-        extra: dict = {"target_accept": settings.target_accept, "init": f"jitter+adapt_{settings.mass_matrix[:4]}"}
+        init = "jitter+adapt_full" if settings.mass_matrix == "dense" else "jitter+adapt_diag"
+        extra: dict = {"target_accept": settings.target_accept, "init": init}
         if laplace is not None:
             starts, potential = laplace
             extra = {"initvals": starts, "step": pm.NUTS(potential=potential, target_accept=settings.target_accept)}
