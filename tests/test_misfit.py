@@ -31,6 +31,7 @@ from inference.posterior.diagnostics import (
     _piled,
     _trends,
     standardised_residuals,
+    unpinned_fast_steps,
 )
 
 REPO = Path(__file__).resolve().parents[1]
@@ -316,3 +317,28 @@ def test_well_specified_data_pass(make_study, tmp_path):
     code, _, diagnostics = _fit(make_study, tmp_path, table(TEMPERATURES_C, simulated_k(seed=7)), LONGER)
     assert diagnostics["misfit"] == []
     assert code == 0 and diagnostics["verdict"] == "pass", diagnostics["advice"]
+
+
+def test_a_reversible_step_whose_rate_the_data_do_not_pin_is_named():
+    # Posterior draws built to the pattern: ln k_ref of 'binding' as wide as its N(0, 1) prior (sd 1), ln K_ref
+    # pinned (sd 0.1); the slow step's ln k_ref pinned. Only 'binding' is named, and only while its K is pinned.
+    import xarray as xr
+
+    rng = np.random.default_rng(3)
+    shape = (2, 500)
+
+    def posterior(k_sd: float, eq_sd: float) -> xr.Dataset:
+        z_k = np.stack([k_sd * rng.standard_normal(shape), 0.1 * rng.standard_normal(shape)], axis=-1)
+        z_eq = eq_sd * rng.standard_normal((*shape, 1))
+        return xr.Dataset(
+            {
+                "z_ln_k_ref": (("chain", "draw", "reaction"), z_k),
+                "z_ln_K_ref": (("chain", "draw", "reversible"), z_eq),
+            },
+            coords={"reaction": ["binding", "turnover"], "reversible": ["binding"]},
+        )
+
+    advice = unpinned_fast_steps(posterior(1.0, 0.1))
+    assert len(advice) == 1 and "'binding'" in advice[0] and "Report K, not k" in advice[0]
+    assert unpinned_fast_steps(posterior(0.2, 0.1)) == []  # both pinned
+    assert unpinned_fast_steps(posterior(1.0, 0.9)) == []  # neither pinned: too little data, not a fast step

@@ -12,7 +12,7 @@ import numpy as np
 
 from .conditions import dose_piece, next_stop
 from .kinetics import INITIAL, parameter_rate
-from .stepping import DONE, FAILED, evaluate, initial_sensitivities, record_start
+from .stepping import DONE, FAILED, STIFF, evaluate, initial_sensitivities, record_start
 
 #: Dormand-Prince 5(4): nodes, stage coefficients, 5th-order weights, and 5th minus 4th order weights
 #: (the last weight belongs to f at the new point).
@@ -29,6 +29,13 @@ DP_A = np.array(
 )
 DP_B = np.array([35 / 384, 0.0, 500 / 1113, 125 / 192, -2187 / 6784, 11 / 84])
 DP_E = np.array([-71 / 57600, 0.0, 71 / 16695, -71 / 1920, 17253 / 339200, -22 / 525, 1 / 40])
+#: Stiffness test of the pair (Hairer and Wanner, "Solving Ordinary Differential Equations II", sec. IV.2):
+#: h |lambda| estimated from the last two stages, which share their time point, against the pair's stability
+#: boundary on the negative real axis (about 3.3); the run counts as stiff after ``STIFF_STEPS`` such accepted
+#: steps without ``NONSTIFF_RESET`` clear ones between them (the thresholds of the authors' DOPRI5 code).
+STIFF_BOUNDARY = 3.25
+STIFF_STEPS = 15
+NONSTIFF_RESET = 6
 #: Coefficients of the quartic continuous extension (Shampine, Math. Comp. 46 (1986) 135; as in scipy's RK45):
 #: u(t + x h) = u + h sum_q K_q (P[q, 0] x + P[q, 1] x^2 + P[q, 2] x^3 + P[q, 3] x^4).
 DP_P = np.array(
@@ -67,9 +74,10 @@ def _augmented_rhs(u, t, piece, n, net, cond, params, out, work):
 
 @numba.njit(cache=True)
 def dopri_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
-    """Like ``radau_run`` with the explicit Dormand-Prince pair; FAILED once ``max_steps`` are used. Steps end
-    where the inflow jumps and at the points of a short temperature programme (``conditions.next_stop``), so no
-    step straddles a discontinuity."""
+    """Like ``radau_run`` with the explicit Dormand-Prince pair; FAILED once ``max_steps`` are used, STIFF as soon
+    as the stiffness test says the step size is held by stability rather than accuracy. Steps end where the
+    inflow jumps and at the points of a short temperature programme (``conditions.next_stop``), so no step
+    straddles a discontinuity."""
     rtol, atol, max_steps = tolerances.rtol, tolerances.atol, tolerances.max_steps
     forward = net.forward
     kinds = params.kind
@@ -125,6 +133,8 @@ def dopri_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
     piece = dose_piece(cond, t)
     stop = next_stop(cond, t)
     steps = 0
+    stiff_steps = 0
+    clear_steps = 0
     while out_index < times.shape[0]:
         steps += 1
         if steps > max_steps:
@@ -167,6 +177,21 @@ def dopri_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
             stats[1] += 1
             continue
         stats[0] += 1
+        # trial holds the stage-6 point, which shares the time t + h with the new point (stage 7).
+        numerator = 0.0
+        denominator = 0.0
+        for i in range(n):
+            numerator += (stages[6, i] - stages[5, i]) ** 2
+            denominator += (new[i] - trial[i]) ** 2
+        if denominator > 0.0 and h * math.sqrt(numerator / denominator) > STIFF_BOUNDARY:
+            clear_steps = 0
+            stiff_steps += 1
+            if stiff_steps == STIFF_STEPS:
+                return STIFF
+        else:
+            clear_steps += 1
+            if clear_steps == NONSTIFF_RESET:
+                stiff_steps = 0
         t_new = end if t + h >= end * (1.0 - 1e-12) else t + h
         while out_index < times.shape[0] and times[out_index] <= t_new:
             x = (times[out_index] - t) / h

@@ -1,8 +1,8 @@
 """One run, or every run of a study, integrated with sensitivities: ``integrate_run`` tries the explicit
-Dormand-Prince pair (``dormand_prince``) first; when that needs more than ``EXPLICIT_BUDGET`` steps (the mark of a
-stiff draw) it integrates the run again with Radau IIA (``radau``). A run with ``overflow`` (a CSTR) goes to its
-steady state instead (``steady_state``). ``predict_measurements`` does every run and gathers predictions and
-their Jacobian at the measurements in one compiled call.
+Dormand-Prince pair (``dormand_prince``) first; when its stiffness test fires (a few steps into a stiff draw), or
+it fails or needs more than ``EXPLICIT_BUDGET`` steps, it integrates the run again with Radau IIA (``radau``).
+A run with ``overflow`` (a CSTR) goes to its steady state instead (``steady_state``). ``predict_measurements``
+does every run and gathers predictions and their Jacobian at the measurements in one compiled call.
 
 Sensitivities are those of the discrete solution, so the gradient is exact for the computed profile (what NUTS
 needs) rather than an approximation of the exact one.
@@ -22,7 +22,7 @@ from .radau import radau_run
 from .steady_state import STARTUP_RESIDENCE_TIMES, steady_state_run
 from .stepping import DONE, FAILED, Tolerances
 
-#: Steps of the explicit pair before a run counts as stiff and goes to the implicit method.
+#: Steps of the explicit pair after which a run goes to the implicit method even if the stiffness test never fired.
 EXPLICIT_BUDGET = 1500
 
 

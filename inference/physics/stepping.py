@@ -13,7 +13,8 @@ import numpy as np
 from .conditions import temperature_terms, volume_at
 from .kinetics import INITIAL, rates_and_jacobian
 
-FAILED, DONE = 0, 1
+#: Outcomes of a run's integration; STIFF: the explicit pair stopped because the run is stiff.
+FAILED, DONE, STIFF = 0, 1, 2
 
 
 class Tolerances(NamedTuple):

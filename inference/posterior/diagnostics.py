@@ -163,6 +163,7 @@ def assess(
         )
 
     advice += confounded_factors(idata.posterior)
+    advice += unpinned_fast_steps(idata.posterior)
     if solver_failures > 0.01 * chains * draws:
         advice.append(
             f"{solver_failures} integrations failed during sampling (those proposals were rejected): "
@@ -220,6 +221,32 @@ def _scalar_draws(posterior, names: tuple[str, ...], logged: tuple[str, ...]) ->
             row = values.values[index]
             columns[f"{name}[{label}]" if label else name] = np.log(row) if name in logged else row
     return columns
+
+
+#: A reversible step's rate counts as unpinned when the posterior sd of its ln k_ref is at least this share of
+#: the prior's while that of its ln K_ref is at most ``PINNED_SHARE`` of the prior's (our choice).
+UNPINNED_SHARE, PINNED_SHARE = 0.7, 0.5
+
+
+def unpinned_fast_steps(posterior) -> list[str]:
+    """Advice naming each reversible step whose equilibrium constant the data pin but whose rate they do not:
+    the step equilibrates faster than the runs were sampled. The standardised variables (z_ln_k_ref,
+    z_ln_K_ref; N(0, 1) priors) give the posterior-to-prior sd ratios directly."""
+    if "z_ln_K_ref" not in posterior or "z_ln_k_ref" not in posterior:
+        return []
+    advice = []
+    for step in posterior["z_ln_K_ref"].coords["reversible"].values:
+        rate = float(posterior["z_ln_k_ref"].sel(reaction=step).std())
+        equilibrium = float(posterior["z_ln_K_ref"].sel(reversible=step).std())
+        if rate >= UNPINNED_SHARE and equilibrium <= PINNED_SHARE:
+            advice.append(
+                f"the data pin the equilibrium constant of '{step}' (posterior sd of ln K_ref {equilibrium:.2f} of "
+                f"its prior's) but not its rate (posterior sd of ln k_ref {rate:.2f} of its prior's): the step "
+                "equilibrates faster than the runs were sampled, so its k_ref and Ea are the priors'. Report K, "
+                "not k; a narrower prior on k_ref (upper end where the step is fast enough) shortens sampling, "
+                "since large draws of k make the profiles stiff."
+            )
+    return advice
 
 
 def confounded_factors(posterior) -> list[str]:

@@ -63,14 +63,21 @@ def rank_one(
     study_path: str, index: int, truth: dict, values: np.ndarray, temperature_ref: float, settings: CalibrationSettings
 ) -> dict:
     """Fit simulated dataset ``index`` and return the ranks of the truths, interval hits and sampler counts."""
-    from ..inputs.schema import Sampling
     from ..model.sampling import sample_posterior
     from .kinds import open_problem
 
-    problem = open_problem(load_study(study_path)).with_measurements(np.array(values, dtype=float))
+    study = load_study(study_path)
+    problem = open_problem(study).with_measurements(np.array(values, dtype=float))
     model = problem.build_model(temperature_ref)
-    sampling = Sampling(
-        draws=settings.draws, tune=settings.tune, chains=settings.chains, seed=settings.seed + 1 + index, cores=1
+    # The study's own sampler settings (target_accept, mass matrix), with the calibration's draws and seed.
+    sampling = study.sampling.model_copy(
+        update={
+            "draws": settings.draws,
+            "tune": settings.tune,
+            "chains": settings.chains,
+            "seed": settings.seed + 1 + index,
+            "cores": 1,
+        }
     )
     idata, _ = sample_posterior(model, sampling, progress=False, predictive=False)
     posterior = idata.posterior
