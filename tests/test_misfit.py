@@ -342,3 +342,39 @@ def test_a_reversible_step_whose_rate_the_data_do_not_pin_is_named():
     assert len(advice) == 1 and "'binding'" in advice[0] and "Report K, not k" in advice[0]
     assert unpinned_fast_steps(posterior(0.2, 0.1)) == []  # both pinned
     assert unpinned_fast_steps(posterior(1.0, 0.9)) == []  # neither pinned: too little data, not a fast step
+
+
+FAST_BINDING = """\
+study: binding
+units: {time: min, temperature: degC, concentration: mol/L, energy: kJ/mol}
+data: {runs: runs.csv, measurements: measurements.csv}
+species: [S, Cat, SCat, P]
+reactions:
+  - name: binding
+    equation: S + Cat <=> SCat
+    k_ref: {median: %s, factor: 10}
+    Ea: {mean: 30, sd: 15}
+    K_ref: {median: 50, factor: 10}
+    dH: {mean: -20, sd: 15}
+  - {name: turnover, equation: SCat -> P + Cat, k_ref: {median: 0.5, factor: 10}, Ea: {mean: 70, sd: 20}}
+reference_temperature: 50
+noise: {model: proportional, sigma: {scale: 0.2}}
+"""
+
+
+@pytest.mark.parametrize("binding_k, named", [(1e4, True), (0.1, False)])
+def test_check_names_a_reversible_step_that_relaxes_before_the_first_sample(tmp_path, binding_k, named):
+    # Relaxation of the binding step alone: k_f c + k_r with c = 1 mol/L (pseudo-first order; common practice).
+    # With k_f = 1e4 L/(mol min) it relaxes in about 1e-4 min, far before the first sample at 2 min; with 0.1 it
+    # does not. (The turnover step is irreversible and never named.)
+    from inference.inputs.config import load_study
+    from inference.workflows.kinds import open_problem
+
+    (tmp_path / "runs.csv").write_text("run,temperature,S,Cat,SCat,P\nr1,40,1.0,0.02,0,0\nr2,60,1.0,0.02,0,0\n")
+    rows = [f"{run},{t},{0.9 - 0.01 * t:.3f},{0.01 * t:.3f}" for run in ("r1", "r2") for t in (2, 5, 10, 20)]
+    (tmp_path / "measurements.csv").write_text("run,time,S,P\n" + "\n".join(rows) + "\n")
+    (tmp_path / "study.yaml").write_text(FAST_BINDING % binding_k)
+    notes = [n for n in open_problem(load_study(tmp_path / "study.yaml")).warnings() if "relaxes" in n]
+    assert len(notes) == int(named)
+    if named:
+        assert "'binding'" in notes[0] and "equilibrium constant but hardly its rate" in notes[0]

@@ -92,6 +92,11 @@ class Problem(Protocol):
     def with_measurements(self, values: np.ndarray) -> Problem: ...
 
 
+#: A reversible step relaxing this many times faster than the first sample of every run counts as fast: its
+#: equilibrium is reached within e^-50 of the first measurement (our choice).
+FAST_RELAXATION = 50.0
+
+
 def open_problem(study: Study) -> Problem:
     """Read and check the study's data and return the kind of study that fits it (``KINDS``)."""
     return KINDS[study.mode].open(study)
@@ -356,8 +361,44 @@ class NetworkProblem:
                     f"reaction '{spec.name}' is linked to no measured species: its k_ref and Ea are set by "
                     "their priors alone"
                 )
-        notes += self._multiplicity_notes() + self._factor_notes()
+        notes += self._multiplicity_notes() + self._factor_notes() + self._fast_equilibrium_notes()
         return notes + plausibility.network_warnings(study, obs, self.measurement_label)
+
+    def _fast_equilibrium_notes(self) -> list[str]:
+        """Reversible steps that, at the priors' centre, relax far faster than the first sample of every run:
+        the data then show their equilibrium constant but hardly their rate. The step's relaxation rate is
+        estimated as k_f c^(n_f - 1) + k_r c^(n_r - 1) at the run's largest initial concentration c (orders n)."""
+        from ..physics.arrhenius import auto_reference_temperature
+
+        study, obs, network = self.study, self.obs, self.study.network
+        reversible = np.flatnonzero(network.reversible)
+        if not reversible.size or any(setup.overflow for setup in obs.setups):
+            return []
+        reference = study.reference_temperature_K or auto_reference_temperature(obs.temperature_K)
+        centre = prior_centre_draws(study, reference)
+        fastest = np.inf
+        for r, times in enumerate(obs.times):
+            sampled = times[times > 0]
+            if not sampled.size or not np.isfinite(obs.temperature_K[r]):
+                return []  # a run sampled at t = 0 only, or with a temperature history: no simple comparison
+            scale = float(np.max(obs.initial[r])) or 1.0
+            ln_k = centre.ln_k(float(obs.temperature_K[r]))[0]
+            ln_eq = centre.ln_eq(float(obs.temperature_K[r]))[0]
+            forward = network.forward_orders.sum(axis=1) - 1.0
+            reverse = network.reverse_orders.sum(axis=1) - 1.0
+            relaxation = [
+                math.exp(ln_k[j]) * scale ** forward[j] + math.exp(ln_k[j] - ln_eq[e]) * scale ** reverse[j]
+                for e, j in enumerate(reversible)
+            ]
+            fastest = np.minimum(fastest, np.array(relaxation) * float(sampled[0]))
+        return [
+            f"reversible step '{study.reactions[j].name}': at the priors' centre it relaxes about {fastest[e]:.0f} "
+            "times faster than the first sample of any run, so the data can show its equilibrium constant but "
+            "hardly its rate (its k_ref and Ea will follow their priors, and draws of a large k make the profiles "
+            "stiff and sampling slow); narrow its k_ref prior to where the step is fast enough"
+            for e, j in enumerate(reversible)
+            if fastest[e] > FAST_RELAXATION
+        ]
 
     def _factor_notes(self) -> list[str]:
         """Fitted response factors and weights that nothing in the data pins: no calibration point (the quantity
