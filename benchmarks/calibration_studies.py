@@ -18,8 +18,9 @@ Studies (invented designs; T_ref stated in each):
 - ``signal``: A -> B measured as peak areas with both response factors fitted, one standard at t = 0.
 - ``censored``: A -> B with A falling through its detection limit of 0.05 mol/L (values read ``<0.05``).
 
-Run: ``python benchmarks/calibration_studies.py OUT`` writes OUT/<name>/study.yaml and its CSV files, then e.g.
-``python benchmarks/calibration.py OUT/network/study.yaml --simulations 100 --draws 300 --tune 300 --out R``.
+Run: ``python benchmarks/calibration_studies.py OUT`` writes OUT/<name>/study.yaml and its CSV files (the copies
+in ``configs/calibration/`` were written so), then e.g.
+``python benchmarks/calibration.py configs/calibration/network/study.yaml --simulations 100 --out R``.
 """
 
 from __future__ import annotations
@@ -83,7 +84,7 @@ def catalyst(folder: Path) -> None:
             "dH: {mean: -20, sd: 20}": "dH: {mean: -25, sd: 10}",
             "k_ref: {median: 0.05, factor: 10}": "k_ref: {median: 0.06, factor: 5}",
             "Ea: {mean: 70, sd: 30}": "Ea: {mean: 70, sd: 15}",
-            "run_variability: {sd: {scale: 0.5}, by: lot}": "run_variability: {sd: {scale: 0.3}, by: lot}",
+            "sd: {scale: 0.5}, by: lot": "sd: {scale: 0.3}, by: lot",
         },
         ["catalyst_runs.csv", "catalyst_measurements.csv"],
     )

@@ -34,14 +34,23 @@ def test_rank_bins_divide_the_ranks_evenly():
     assert rank_bins(400, 99) == 20 and rank_bins(40, 99) == 5 and rank_bins(6, 99) == 2
 
 
-def test_calibration_of_the_rate_constant_model(tmp_path):
-    # A small real SBC of the rate-constant demo's design and priors: 40 simulated datasets, each fitted with
-    # 2 chains x 150 draws. A failure here means a posterior that is clearly off, not a 1-in-20 fluke: each
-    # test rejects at p < 0.001, and coverage must lie within 3.5 binomial standard errors of its level.
-    settings = CalibrationSettings(simulations=40, draws=150, tune=200, chains=2, ranked_draws=99, seed=3)
-    result = calibrate("data_demo/rate_constants.yaml", settings, workers=2)
-    assert set(result.quantities) == {"ln_k_ref[closure]", "Ea[closure]", "sigma", "log_likelihood"}
-    assert len(result.ranks) == 40
+def test_calibration_of_a_small_network(tmp_path):
+    # A small real SBC of a network (issue #21 item 4): the demo network's design (A + B -> C, C -> D, four runs,
+    # the compiled integrator with sensitivities) with the calibration priors of configs/calibration/network, 20
+    # simulated datasets, each fitted with 2 chains x 150 draws. Twenty simulations catch only gross errors (a
+    # posterior twice too narrow or far off centre): each test rejects at p < 0.001, and coverage must lie
+    # within 3.5 binomial standard errors of its level. The full runs are in docs/calibration.md.
+    settings = CalibrationSettings(simulations=20, draws=150, tune=200, chains=2, ranked_draws=99, seed=3)
+    result = calibrate("configs/calibration/network/study.yaml", settings, workers=2)
+    assert set(result.quantities) == {
+        "ln_k_ref[coupling]",
+        "ln_k_ref[degradation]",
+        "Ea[coupling]",
+        "Ea[degradation]",
+        "sigma",
+        "log_likelihood",
+    }
+    assert len(result.ranks) == 20
     assert (result.uniformity["chi2_p"] > 1e-3).all(), result.uniformity
     assert (result.uniformity["ks_p"] > 1e-3).all(), result.uniformity
     assert (result.coverage["z"].abs() < 3.5).all(), result.coverage

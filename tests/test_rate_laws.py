@@ -334,7 +334,7 @@ def test_hierarchical_model_recovers_a_known_between_run_spread(tmp_path):
         equation: A -> B
         k_ref: {median: 0.1, factor: 10}
         Ea: {mean: 60, sd: 20}
-    run_variability: {sd: {scale: 0.5}, by: lot}
+    run_variability: {sd: {scale: 0.5}, by: lot, parameterisation: centred}
     reference_temperature: 330 K
     sampling: {draws: 500, tune: 500, chains: 2, seed: 9, target_accept: 0.95}
     """

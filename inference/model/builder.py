@@ -11,7 +11,8 @@ of about unit scale. Variables in the posterior, with their units:
 - ``ln_K_ads_ref[adsorption_site]``, ``dH_ads[adsorption_site]``: ln of a saturating law's adsorption constant
   at T_ref (K in 1/concentration) and its van 't Hoff enthalpy, J/mol;
 - ``ln_k_spread[varying_reaction]``, ``run_effect[group, varying_reaction]``: between-run sd of ln k and each
-  group's shift of ln k (``run_variability`` only; non-centred);
+  group's shift of ln k (``run_variability`` only; from ``z_run_effect``, or with ``centred`` from
+  ``group_ln_k_ref``, each group's own ln k at T_ref);
 - ``temperature[run]`` (``temperature[set_point]`` for rate constants): true temperatures, K
   (``temperature_uncertainty`` only);
 - ``order[fitted_order]``: fitted reaction orders (power laws only);
@@ -165,15 +166,20 @@ def _adsorption_parameters(study: Study):
 
 
 def _run_effects(study: Study, obs: Observations, ln_k):
-    """ln k plus each group's shift for the reactions that vary from run to run: tau_j z_gj (non-centred) or
-    drawn from N(0, tau_j) directly (centred)."""
+    """ln k plus each group's shift for the reactions that vary from run to run: tau_j z_gj (non-centred), or
+    (centred) each group's own ln k_ref drawn from N(ln k_ref, tau_j), the shift being their difference."""
     spec = study.run_variability
     if spec is None:
         return ln_k
     varying = list(spec.reactions)
     spread = pm.HalfNormal("ln_k_spread", sigma=spec.scale, dims="varying_reaction")
-    if spec.centred:  # data-rich groups: the shifts themselves decorrelate from the spread
-        effect = pm.Normal("run_effect", 0.0, spread, dims=("group", "varying_reaction"))
+    if spec.centred:
+        # Data-rich groups pin each group's ln k_ref; sampled directly, those are near-independent coordinates.
+        # Sampling the shifts instead leaves a narrow ridge (ln k_ref up, every shift down) that a diagonal
+        # mass matrix follows slowly.
+        ln_k_ref = pm.modelcontext(None)["ln_k_ref"][varying]
+        group_ln_k_ref = pm.Normal("group_ln_k_ref", ln_k_ref, spread, dims=("group", "varying_reaction"))
+        effect = pm.Deterministic("run_effect", group_ln_k_ref - ln_k_ref, dims=("group", "varying_reaction"))
     else:
         z = pm.Normal("z_run_effect", 0.0, 1.0, dims=("group", "varying_reaction"))
         effect = pm.Deterministic("run_effect", spread * z, dims=("group", "varying_reaction"))

@@ -358,9 +358,9 @@ def _trends(fit_checks: pd.DataFrame, z: np.ndarray) -> list[dict]:
 
 
 def _location_parameters(posterior) -> int:
-    """Free parameters that move the predictions: the standardised ones (z_*), fitted orders, centred run
-    effects."""
-    names = [n for n in posterior.data_vars if str(n).startswith("z_") or n in ("order", "run_effect")]
+    """Free parameters that move the predictions: the standardised ones (z_*, the non-centred run effects among
+    them), fitted orders and the groups' own ln k_ref (centred run effects)."""
+    names = [n for n in posterior.data_vars if str(n).startswith("z_") or n in ("order", "group_ln_k_ref")]
     return int(sum(posterior[n].isel(chain=0, draw=0).size for n in names))
 
 

@@ -141,7 +141,7 @@ reactions:
       A: {K_ref: {median: 1.0, factor: 10}, dH: {mean: -20, sd: 20}}   # L/mol at T_ref; kJ/mol
     k_ref: {median: 0.05, factor: 10}      # 1/min at T_ref
     Ea: {mean: 70, sd: 30}                 # kJ/mol
-run_variability: {sd: {scale: 0.5}, by: lot}   # ln k varies from lot to lot
+run_variability: {sd: {scale: 0.5}, by: lot, parameterisation: centred}   # ln k varies from lot to lot
 reference_temperature: 60                  # degC
 noise: {model: proportional, sigma: {scale: 0.2}}
 sampling: {draws: 500, tune: 500, chains: 4, seed: 1, target_accept: 0.95}
