@@ -10,7 +10,8 @@ and fitting use the same priors.
 
 Studies (invented designs; T_ref stated in each):
 - ``network``: the demo network's design (``data_demo/study.yaml``: A + B -> C, C -> D, four runs, 60 values).
-- ``catalyst``: the catalyst-lot demo's design (saturating law, three lots with lot-to-lot sd of ln k).
+- ``catalyst``: the catalyst-lot demo's model (saturating law, three lots, lot-to-lot sd of ln k, centred) on
+  half the demo's design (one run at 50 degC from 0.5 mol/L and one at 70 degC from 2 mol/L per lot).
 - ``reversible``: A <=> B at three temperatures, both directions fitted (k_ref, Ea, K_ref, dH).
 - ``ramped``: A -> B, three runs on linear temperature ramps, none isothermal.
 - ``dosed``: A + B -> P, B fed during the run into a 500 mL charge, isothermal at three temperatures.
@@ -76,18 +77,23 @@ def network(folder: Path) -> None:
 
 
 def catalyst(folder: Path) -> None:
-    _demo_copy(
-        folder,
-        "catalyst_study.yaml",
-        {
-            "K_ref: {median: 1.0, factor: 10}": "K_ref: {median: 1.5, factor: 3}",
-            "dH: {mean: -20, sd: 20}": "dH: {mean: -25, sd: 10}",
-            "k_ref: {median: 0.05, factor: 10}": "k_ref: {median: 0.06, factor: 5}",
-            "Ea: {mean: 70, sd: 30}": "Ea: {mean: 70, sd: 15}",
-            "sd: {scale: 0.5}, by: lot": "sd: {scale: 0.3}, by: lot",
-        },
-        ["catalyst_runs.csv", "catalyst_measurements.csv"],
-    )
+    """The catalyst demo's model (saturating law, lot-to-lot sd of ln k, centred) on half its design: three lots,
+    each with a run at 50 degC from 0.5 mol/L and one at 70 degC from 2 mol/L, A and P at eight times."""
+    runs, rows = ["run,temperature,A,P,lot"], ["run,time,A,P"]
+    for lot in "ABC":
+        for celsius, a0, last in ((50, 0.5, 130), (70, 2.0, 60)):
+            run = f"lot-{lot}-{celsius}C"
+            runs.append(f"{run},{celsius},{a0},0,lot-{lot}")
+            for t in np.geomspace(last / 20, last, 8):
+                a = a0 * np.exp(-t / last)
+                rows.append(f"{run},{t:.3g},{a:.4f},{a0 - a:.4f}")
+    body = "species: [A, P]\nreactions:\n  - name: conversion\n    equation: A -> P\n    rate_law: saturating\n"
+    body += "    adsorption:\n      A: {K_ref: {median: 1.5, factor: 3}, dH: {mean: -25, sd: 10}}\n"
+    body += "    k_ref: {median: 0.06, factor: 5}\n    Ea: {mean: 70, sd: 15}\n"
+    body += "run_variability: {sd: {scale: 0.3}, by: lot, parameterisation: centred}\n"
+    yaml = f"study: calibration-catalyst\n{UNITS}data: {{runs: runs.csv, measurements: measurements.csv}}\n"
+    yaml += "reference_temperature: 60\n" + body + NOISE + SAMPLING.replace("seed: 1", "seed: 1, target_accept: 0.95")
+    _write(folder, yaml, {"runs.csv": runs, "measurements.csv": rows})
 
 
 def _batch(folder: Path, name: str, body: str, runs: list[str], measurements: list[str]) -> None:
