@@ -378,3 +378,25 @@ def test_check_names_a_reversible_step_that_relaxes_before_the_first_sample(tmp_
     assert len(notes) == int(named)
     if named:
         assert "'binding'" in notes[0] and "equilibrium constant but hardly its rate" in notes[0]
+
+
+@pytest.mark.parametrize("points, centred, named", [(12, False, True), (4, False, False), (12, True, False)])
+def test_check_suggests_centred_run_effects_for_data_rich_groups(tmp_path, points, centred, named):
+    # Two lots of two runs each: with 12 points per run every group holds 24 measurements (data-rich: the
+    # centred form samples faster); with 4 points, 8 per group; a study already centred gets no note.
+    from inference.inputs.config import load_study
+    from inference.workflows.kinds import open_problem
+
+    runs = ["run,temperature,A,B,lot"] + [f"r{i},{50 + 10 * i},1.0,0,L{i % 2}" for i in range(4)]
+    rows = [f"r{i},{t},{math.exp(-0.05 * t):.4f}" for i in range(4) for t in range(1, points + 1)]
+    (tmp_path / "runs.csv").write_text("\n".join(runs) + "\n")
+    (tmp_path / "measurements.csv").write_text("run,time,A\n" + "\n".join(rows) + "\n")
+    form = ", parameterisation: centred" if centred else ""
+    (tmp_path / "study.yaml").write_text(
+        "study: lots\nunits: {time: min, temperature: degC, concentration: mol/L, energy: kJ/mol}\n"
+        "data: {runs: runs.csv, measurements: measurements.csv}\nspecies: [A, B]\n"
+        "reactions:\n  - {name: decay, equation: A -> B, k_ref: {median: 0.05, factor: 10}, Ea: {mean: 60, sd: 20}}\n"
+        f"run_variability: {{sd: {{scale: 0.3}}, by: lot{form}}}\n"
+    )
+    notes = [n for n in open_problem(load_study(tmp_path / "study.yaml")).warnings() if "centred" in n]
+    assert len(notes) == int(named)

@@ -97,6 +97,10 @@ class Problem(Protocol):
 FAST_RELAXATION = 50.0
 
 
+#: Measurements per group above which run effects count as data-rich (each group's ln k pinned; our choice).
+DATA_RICH_GROUP = 10
+
+
 def open_problem(study: Study) -> Problem:
     """Read and check the study's data and return the kind of study that fits it (``KINDS``)."""
     return KINDS[study.mode].open(study)
@@ -362,7 +366,21 @@ class NetworkProblem:
                     "their priors alone"
                 )
         notes += self._multiplicity_notes() + self._factor_notes() + self._fast_equilibrium_notes()
+        notes += self._parameterisation_notes()
         return notes + plausibility.network_warnings(study, obs, self.measurement_label)
+
+    def _parameterisation_notes(self) -> list[str]:
+        """Non-centred run effects where every group holds many measurements: the centred form samples faster."""
+        spec = self.study.run_variability
+        if spec is None or spec.centred:
+            return []
+        per_group = np.bincount(self.obs.group_index[self.obs.run_index], minlength=len(self.obs.group_names))
+        if per_group.min() < DATA_RICH_GROUP:
+            return []
+        return [
+            f"every group of run_variability holds {per_group.min()} or more measurements: "
+            "'parameterisation: centred' samples such data-rich groups much faster (see README, run_variability)"
+        ]
 
     def _fast_equilibrium_notes(self) -> list[str]:
         """Reversible steps that, at the priors' centre, relax far faster than the first sample of every run:
