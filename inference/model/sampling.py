@@ -155,6 +155,10 @@ def prior_centre(model: pm.Model) -> dict:
     return point
 
 
+#: Fresh BFGS searches after one that stopped without converging (our choice).
+RESTARTS = 5
+
+
 def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], QuadPotential] | None:
     """Starting points and an initial mass matrix from the posterior mode and its curvature.
 
@@ -179,8 +183,21 @@ def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], Quad
             return 1e300, np.zeros_like(x)
         return -value, -np.asarray(dlogp(point(x)), dtype=float)
 
-    with np.errstate(all="ignore"):
-        found = minimize(objective, mapped.data, jac=True, method="BFGS", options={"maxiter": 400, "gtol": 1e-6})
+    def search(x0: np.ndarray):
+        with np.errstate(all="ignore"):
+            return minimize(objective, x0, jac=True, method="BFGS", options={"maxiter": 400, "gtol": 1e-6})
+
+    found = search(mapped.data)
+    for _ in range(RESTARTS):
+        # BFGS stops early when its line search meets draws the integrator cannot solve (the first steps from
+        # the priors' centre can be long: data far from the predictions there). A fresh search from where it
+        # stopped (its Hessian estimate reset) usually goes on; stop when one no longer improves.
+        if found.success or not np.isfinite(found.fun):
+            break
+        again = search(found.x)
+        if not again.fun < found.fun - 1e-6 * abs(found.fun):
+            break
+        found = again
     if not np.all(np.isfinite(found.x)) or found.fun >= 1e300:
         return None
     covariance = _clipped_covariance(np.atleast_2d(found.hess_inv))
