@@ -91,3 +91,27 @@ def test_the_mode_search_goes_on_after_bfgs_stops_early():
     at_truth = float(logp(_value_point(model, truths[8])))
     # Chains start one approximate posterior sd from the mode: each start is within d of the mode's log density.
     assert max(float(logp(start)) for start in starts) > at_truth - len(model.value_vars) - 2
+
+
+@pytest.mark.parametrize("simulation", [12, 22])
+def test_every_chain_starts_near_the_best_mode(simulation):
+    # Found by calibration (docs/calibration.md): in simulations 12 and 22 of configs/calibration/catalyst (priors'
+    # draws with seed 1, 100 simulations) the search from the priors' centre ends in a lesser mode (12) or the
+    # chains' starts, one poorly estimated sd from the mode, fall far down the density (22); both fits then
+    # ranked every truth 0 or 99. Each start must now lie within d + 2 of the truth's log density (a draw from
+    # the posterior lies about d/2 below the mode, which is above the truth; no reference value needed).
+    from inference.inputs.config import load_study
+    from inference.model.sampling import laplace_start
+    from inference.workflows.calibrate import _value_point, simulate
+    from inference.workflows.kinds import open_problem
+
+    path = "configs/calibration/catalyst/study.yaml"
+    temperature_ref, truths, data = simulate(path, CalibrationSettings(simulations=100, seed=1))
+    study = load_study(path)
+    model = open_problem(study).with_measurements(data[simulation]).build_model(temperature_ref)
+    logp = model.compile_logp()
+    with model:
+        starts, _ = laplace_start(model, study.sampling)
+    at_truth = float(logp(_value_point(model, truths[simulation])))
+    dimension = sum(np.size(value) for value in model.initial_point().values())
+    assert min(float(logp(start)) for start in starts) > at_truth - dimension - 2
