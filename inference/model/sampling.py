@@ -157,9 +157,6 @@ def prior_centre(model: pm.Model) -> dict:
 
 #: Fresh BFGS searches after one that stopped without converging (our choice).
 RESTARTS = 5
-#: Searches from points scattered about the priors' centre besides the one from the centre; the best mode wins
-#: (our choice: calibration found saturating-law data sets whose search from the centre ended in a local mode).
-SCATTERED_SEARCHES = 3
 
 
 def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], QuadPotential] | None:
@@ -190,28 +187,22 @@ def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], Quad
         with np.errstate(all="ignore"):
             return minimize(objective, x0, jac=True, method="BFGS", options={"maxiter": 400, "gtol": 1e-6})
 
-    def search_on(x0: np.ndarray):
-        found = search(x0)
-        for _ in range(RESTARTS):
-            # BFGS stops early when its line search meets draws the integrator cannot solve (the first steps from
-            # the priors' centre can be long: data far from the predictions there). A fresh search from where it
-            # stopped (its Hessian estimate reset) usually goes on; stop when one no longer improves.
-            if found.success or not np.isfinite(found.fun):
-                break
-            again = search(found.x)
-            if not again.fun < found.fun - 1e-6 * abs(found.fun):
-                break
-            found = again
-        return found
-
-    rng = np.random.default_rng(settings.seed)
-    # One unit on the unconstrained scale is one prior sd of a standardised z, a factor e of sigma.
-    origins = [mapped.data] + [mapped.data + rng.standard_normal(mapped.data.size) for _ in range(SCATTERED_SEARCHES)]
-    found = min((search_on(x0) for x0 in origins), key=lambda result: result.fun if np.isfinite(result.fun) else 1e300)
+    found = search(mapped.data)
+    for _ in range(RESTARTS):
+        # BFGS stops early when its line search meets draws the integrator cannot solve (the first steps from
+        # the priors' centre can be long: data far from the predictions there). A fresh search from where it
+        # stopped (its Hessian estimate reset) usually goes on; stop when one no longer improves.
+        if found.success or not np.isfinite(found.fun):
+            break
+        again = search(found.x)
+        if not again.fun < found.fun - 1e-6 * abs(found.fun):
+            break
+        found = again
     if not np.all(np.isfinite(found.x)) or found.fun >= 1e300:
         return None
     covariance = _clipped_covariance(np.atleast_2d(found.hess_inv))
     variance = np.diag(covariance)
+    rng = np.random.default_rng(settings.seed)
     starts = []
     # A draw from the Laplace approximation lies about d/2 below the mode's log density (chi-square with d
     # degrees of freedom, halved); a start much further down means the curvature estimate is poor there, and a
