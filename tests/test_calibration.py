@@ -98,8 +98,9 @@ def test_every_chain_starts_near_the_mode(simulation):
     # Found by calibration (docs/calibration.md): in simulations 12 and 22 of configs/calibration/catalyst (priors'
     # draws with seed 1, 100 simulations) the chains' starts, one sd of BFGS's curvature estimate from the mode,
     # lay 9-17 (12) and about 300 (22) log-density units below the truth's; both chains sank to a tiny lot spread
-    # (its truth above every draw) and most truths ranked 0 or 99. Each start must lie within d + 2 of the truth's log density (a posterior
-    # draw lies about d/2 below the mode, which lies above the truth; no reference value needed).
+    # (its truth above every draw) and most truths ranked 0 or 99. Each start must lie within d + 2 of the
+    # truth's log density (a posterior draw lies about d/2 below the mode, which lies above the truth; no
+    # reference value needed).
     from inference.inputs.config import load_study
     from inference.model.sampling import laplace_start
     from inference.workflows.calibrate import _value_point, simulate
