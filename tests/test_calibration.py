@@ -71,26 +71,32 @@ def test_coverage_uses_the_binomial_standard_error(level):
     assert row["binomial_se"] == pytest.approx(np.sqrt(level / 100 * (1 - level / 100) / 100))
 
 
-def test_the_mode_search_goes_on_after_bfgs_stops_early():
-    # Found by calibration (docs/calibration.md): simulation 8 of configs/calibration/signal (priors' draws with
-    # seed 1) has values far below the predictions at the priors' centre, and a single BFGS search stopped after
-    # one step there, leaving one chain in a basin of negligible mass. The search must end at a point at least
-    # as probable as the true parameters (a lower bound on the mode's log density that needs no reference).
+def _starts_and_truth(path: str, simulations: int, index: int) -> tuple[list[float], float, int]:
+    """Log densities of the chains' starts for simulated data set ``index`` of ``path`` (priors' draws, seed 1),
+    the log density at its true parameters, and the number of free parameters d."""
     from inference.inputs.config import load_study
     from inference.model.sampling import laplace_start
     from inference.workflows.calibrate import _value_point, simulate
     from inference.workflows.kinds import open_problem
 
-    path = "configs/calibration/signal/study.yaml"
-    temperature_ref, truths, data = simulate(path, CalibrationSettings(simulations=9, seed=1))
+    temperature_ref, truths, data = simulate(path, CalibrationSettings(simulations=simulations, seed=1))
     study = load_study(path)
-    model = open_problem(study).with_measurements(data[8]).build_model(temperature_ref)
+    model = open_problem(study).with_measurements(data[index]).build_model(temperature_ref)
     logp = model.compile_logp()
     with model:
         starts, _ = laplace_start(model, study.sampling)
-    at_truth = float(logp(_value_point(model, truths[8])))
+    dimension = sum(np.size(value) for value in model.initial_point().values())
+    return [float(logp(start)) for start in starts], float(logp(_value_point(model, truths[index]))), dimension
+
+
+def test_the_mode_search_goes_on_after_bfgs_stops_early():
+    # Found by calibration (docs/calibration.md): simulation 8 of configs/calibration/signal (priors' draws with
+    # seed 1) has values far below the predictions at the priors' centre, and a single BFGS search stopped after
+    # one step there, leaving one chain in a basin of negligible mass. The search must end at a point at least
+    # as probable as the true parameters (a lower bound on the mode's log density that needs no reference).
+    starts, at_truth, dimension = _starts_and_truth("configs/calibration/signal/study.yaml", 9, 8)
     # Chains start one approximate posterior sd from the mode: each start is within d of the mode's log density.
-    assert max(float(logp(start)) for start in starts) > at_truth - len(model.value_vars) - 2
+    assert max(starts) > at_truth - dimension - 2
 
 
 @pytest.mark.parametrize("simulation", [12, 22])
@@ -101,18 +107,5 @@ def test_every_chain_starts_near_the_mode(simulation):
     # (its truth above every draw) and most truths ranked 0 or 99. Each start must lie within d + 2 of the
     # truth's log density (a posterior draw lies about d/2 below the mode, which lies above the truth; no
     # reference value needed).
-    from inference.inputs.config import load_study
-    from inference.model.sampling import laplace_start
-    from inference.workflows.calibrate import _value_point, simulate
-    from inference.workflows.kinds import open_problem
-
-    path = "configs/calibration/catalyst/study.yaml"
-    temperature_ref, truths, data = simulate(path, CalibrationSettings(simulations=100, seed=1))
-    study = load_study(path)
-    model = open_problem(study).with_measurements(data[simulation]).build_model(temperature_ref)
-    logp = model.compile_logp()
-    with model:
-        starts, _ = laplace_start(model, study.sampling)
-    at_truth = float(logp(_value_point(model, truths[simulation])))
-    dimension = sum(np.size(value) for value in model.initial_point().values())
-    assert min(float(logp(start)) for start in starts) > at_truth - dimension - 2
+    starts, at_truth, dimension = _starts_and_truth("configs/calibration/catalyst/study.yaml", 100, simulation)
+    assert min(starts) > at_truth - dimension - 2
