@@ -92,6 +92,20 @@ def test_log_density_gradient_matches_finite_differences(tmp_path, noise):
     _gradient_check(problem.build_model(T_REF))
 
 
+@pytest.mark.parametrize("noise", ["proportional", "absolute", "robust"])
+def test_noise_on_the_log_scale_resolves_the_smallest_value(tmp_path, noise):
+    # Noise on the log of values compares every value in relative terms, however small, so the solver's relative
+    # floor is the smallest measured concentration; absolute noise needs no such floor (the default tolerances).
+    from inference.model.builder import network_solver
+
+    runs = "run,temperature,A,B,C\nr1,50,1.0,0,0\n"
+    meas = "run,time,A,B,C\nr1,2,0.85,0.14,0.01\nr1,60,2e-9,0.3,0.7\n"
+    body = CONSECUTIVE.replace("model: proportional", f"model: {noise}")
+    problem = open_problem(load_study(write_study(tmp_path, body, runs, meas)))
+    floor = network_solver(problem.study, problem.obs).settings.relative_floor
+    assert floor == (0.0 if noise == "absolute" else 2e-9)
+
+
 def test_closed_form_model_gradient_matches_finite_differences(tmp_path):
     runs = "run,temperature,A,B,C\nr1,50,1.0,1.4,0\nr2,70,0.8,0.8,0\n"
     meas = "run,time,A,C\nr1,2,0.7,0.3\nr1,6,0.45,0.55\nr2,1,0.5,0.3\nr2,4,0.25,0.55\n"

@@ -633,7 +633,7 @@ def _set_aside_restated_zeros(study: Study, records: list[Record], initial: np.n
     """Under noise on the log of values, the records that restate a zero initial condition (a species' value 0 at
     t = 0 in a run whose stated initial concentration of it is 0, such as a product not charged) are no measurement
     to fit: they are left out. Returns the records kept and how many were set aside."""
-    if study.noise.model not in ("proportional", "robust"):
+    if not study.noise.on_log_scale:
         return records, 0
     n_species = len(study.species)
     kept = [
@@ -649,7 +649,7 @@ def _check_positive_values(
 ) -> None:
     """Noise models on the log of values need every measured value positive (zeros that restate a zero initial
     condition are set aside before, by ``_set_aside_restated_zeros``)."""
-    if study.noise.model not in ("proportional", "robust"):
+    if not study.noise.on_log_scale:
         return
     names = _measured_names(study)
     for _, time, index, value, line, _, _ in records:

@@ -177,6 +177,11 @@ class Noise(Strict):
     per_species: bool = False
     nu: Annotated[float, Field(gt=1.0, le=1000.0)] = 4.0
 
+    @property
+    def on_log_scale(self) -> bool:
+        """Whether the noise acts on the log of the values (so every value must be positive)."""
+        return self.model != "absolute"
+
 
 class Sampling(Strict):
     """NUTS settings. One integer seed drives every random number of a run; the numbers do not depend on

@@ -38,7 +38,7 @@ from ..inputs.study import Study
 from ..physics import closed_form
 from ..physics.arrhenius import R, ln_rate_constant
 from ..physics.parameters import BLOCKS, KineticInputs
-from ..physics.solution import NetworkSolver
+from ..physics.solution import NetworkSolver, SolverSettings
 from .ops import NetworkPrediction
 
 #: Predictions are floored here before their log is taken (a concentration of exactly zero has no log).
@@ -128,8 +128,20 @@ def build_rate_constant_model(study: Study, data: RateConstantData, temperature_
 
 
 def network_solver(study: Study, obs: Observations) -> NetworkSolver:
-    """The solver for this study's network, runs, their conditions and sampling times (free parameters marked)."""
-    return NetworkSolver(study.network, list(obs.times), layout=study.sensitivity_layout(), conditions=obs.conditions)
+    """The solver for this study's network, runs, their conditions and sampling times (free parameters marked).
+
+    Under noise on the log scale every measured concentration must be predicted to a small share of itself,
+    however small it is: the smallest one sets the solver's relative floor (declared quantities are on their own
+    scale, not a concentration's, and keep the default tolerances)."""
+    settings = SolverSettings()
+    if study.noise.on_log_scale and obs.quantity_index is None:
+        concentration = obs.value / (obs.factor if obs.factor is not None else 1.0)
+        positive = concentration[concentration > 0]
+        if positive.size:
+            settings = SolverSettings(relative_floor=float(positive.min()))
+    return NetworkSolver(
+        study.network, list(obs.times), layout=study.sensitivity_layout(), conditions=obs.conditions, settings=settings
+    )
 
 
 def _van_t_hoff_pair(ln_name: str, dh_name: str, dims: str, priors: np.ndarray):

@@ -28,13 +28,28 @@ class SolverFailure(RuntimeError):
         self.run = run
 
 
+#: Resolve ``SolverSettings.relative_floor`` to this share of itself (0.1 %: well inside any plausible noise).
+FLOOR_RESOLUTION = 1e-3
+#: The absolute tolerance is never set below this share of the largest initial concentration (near round-off:
+#: at 1e-18 the demo network's integration fails).
+ATOL_SHARE_LIMIT = 1e-14
+
+
 @dataclass(frozen=True)
 class SolverSettings:
-    """Tolerances of the integration: relative, and absolute as a share of the largest initial concentration."""
+    """Tolerances of the integration: relative, and absolute as a share of the largest initial concentration.
+
+    ``relative_floor`` (concentration unit; 0: none) is the smallest concentration that must be accurate in
+    relative terms: a measured value under noise on the log scale. Below the absolute tolerance a prediction is
+    only as good as that tolerance, so the log-likelihood turns rough and its gradient no longer matches it
+    (NUTS then shrinks its step a hundredfold); the absolute tolerance is lowered to ``FLOOR_RESOLUTION`` of the
+    floor where that is tighter.
+    """
 
     rtol: float = 1e-6
     atol_share: float = 1e-9
     max_steps: int = 20_000
+    relative_floor: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -144,9 +159,14 @@ class NetworkSolver:
         return self.conditions
 
     def tolerances(self, initial: np.ndarray) -> Tolerances:
-        """The settings' tolerances, the absolute one scaled by the largest initial concentration."""
+        """The settings' tolerances, the absolute one scaled by the largest initial concentration and kept
+        below the relative floor's resolution."""
+        settings = self.settings
         scale = float(np.max(initial)) if np.max(initial) > 0 else 1.0
-        return Tolerances(self.settings.rtol, self.settings.atol_share * scale, self.settings.max_steps)
+        atol = settings.atol_share * scale
+        if settings.relative_floor > 0:
+            atol = max(min(atol, FLOOR_RESOLUTION * settings.relative_floor), ATOL_SHARE_LIMIT * scale)
+        return Tolerances(settings.rtol, atol, settings.max_steps)
 
     def solve(self, inputs: KineticInputs, *, sensitivities: bool = True) -> Solution:
         """Integrate all runs of ``inputs`` (solver form: full orders and initial concentrations).

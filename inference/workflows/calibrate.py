@@ -45,6 +45,10 @@ def simulate(study_path: str | Path, settings: CalibrationSettings) -> tuple[flo
     quiet_backend_logs()
     study = load_study(study_path)
     problem = open_problem(study)
+    # Each fit resolves its data set's smallest value (``model.builder.network_solver``), which can lie far below
+    # the study's own; so the simulation resolves every prediction down to the solver's limit, and the data
+    # come from the model the fits use.
+    problem = problem.with_measurements(np.full(len(problem.measurement_groups()), np.finfo(float).tiny))
     temperature_ref = study.reference_temperature_K or auto_reference_temperature(problem.temperatures_K)
     model = problem.build_model(temperature_ref)
     with model:
