@@ -158,6 +158,25 @@ def prior_centre(model: pm.Model) -> dict:
 #: Fresh BFGS searches after one that stopped without converging (our choice).
 RESTARTS = 5
 
+#: Scales held at their priors' centre in the mode search, keyed by the variable whose presence makes them a
+#: funnel's: with centred group effects (``group_ln_k_ref``) the joint density grows without bound as their
+#: spread goes to zero with every group alike, a spike of negligible mass that BFGS finds instead of the bulk
+#: wherever the data do not pull the groups apart (docs/calibration.md, fix 5).
+HELD_IN_MODE_SEARCH = {"group_ln_k_ref": "ln_k_spread"}
+#: Variance given to a held scale in the initial mass matrix and the starts' spread (log scale; a half-normal
+#: prior's log has a sd of about 1).
+HELD_VARIANCE = 1.0
+
+
+def _held_mask(model: pm.Model, mapped: RaveledVars) -> np.ndarray:
+    """True for the elements of the raveled value vector that the mode search holds (``HELD_IN_MODE_SEARCH``)."""
+    scales = [scale for marker, scale in HELD_IN_MODE_SEARCH.items() if marker in model.named_vars]
+    held = {model.rvs_to_values[model[scale]].name for scale in scales}
+    mask = []
+    for name, _, size, _ in mapped.point_map_info:
+        mask.extend([name in held] * size)
+    return np.array(mask, dtype=bool)
+
 
 def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], QuadPotential] | None:
     """Starting points and an initial mass matrix from the posterior mode and its curvature.
@@ -166,28 +185,36 @@ def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], Quad
     most of its tuning shrinking its step to that scale. So the mode is found with BFGS (exact gradients) and
     its inverse-Hessian approximation seeds the mass matrix (dense, or its diagonal); each chain starts from
     the mode moved by one approximate posterior sd in a random direction (seeded), so chains still start apart.
+    Scales in ``HELD_IN_MODE_SEARCH`` stay at their priors' centre in the search (a conditional mode).
     Returns None when the optimiser fails, and PyMC's default initialisation is used instead.
     """
     start = prior_centre(model)
     names = [v.name for v in model.value_vars]
     mapped = DictToArrayBijection.map({name: start[name] for name in names})
+    held = _held_mask(model, mapped)
     logp = model.compile_logp()
     dlogp = model.compile_dlogp()
 
     def point(x: np.ndarray) -> dict:
         return DictToArrayBijection.rmap(RaveledVars(x, mapped.point_map_info))
 
-    def objective(x: np.ndarray) -> tuple[float, np.ndarray]:
+    def full(free: np.ndarray) -> np.ndarray:
+        x = mapped.data.copy()
+        x[~held] = free
+        return x
+
+    def objective(free: np.ndarray) -> tuple[float, np.ndarray]:
+        x = full(free)
         value = float(logp(point(x)))
         if not np.isfinite(value):
-            return 1e300, np.zeros_like(x)
-        return -value, -np.asarray(dlogp(point(x)), dtype=float)
+            return 1e300, np.zeros_like(free)
+        return -value, -np.asarray(dlogp(point(x)), dtype=float)[~held]
 
     def search(x0: np.ndarray):
         with np.errstate(all="ignore"):
             return minimize(objective, x0, jac=True, method="BFGS", options={"maxiter": 400, "gtol": 1e-6})
 
-    found = search(mapped.data)
+    found = search(mapped.data[~held])
     for _ in range(RESTARTS):
         # BFGS stops early when its line search meets draws the integrator cannot solve (the first steps from
         # the priors' centre can be long: data far from the predictions there). A fresh search from where it
@@ -200,26 +227,28 @@ def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], Quad
         found = again
     if not np.all(np.isfinite(found.x)) or found.fun >= 1e300:
         return None
-    covariance = _clipped_covariance(np.atleast_2d(found.hess_inv))
+    mode = full(found.x)
+    covariance = np.diag(np.full(mode.size, HELD_VARIANCE))
+    covariance[np.ix_(~held, ~held)] = _clipped_covariance(np.atleast_2d(found.hess_inv))
     variance = np.diag(covariance)
     rng = np.random.default_rng(settings.seed)
     starts = []
     # A draw from the Laplace approximation lies about d/2 below the mode's log density (chi-square with d
     # degrees of freedom, halved); a start much further down means the curvature estimate is poor there, and a
     # chain started so far out can settle in another basin. Such starts are pulled towards the mode.
-    lowest = -found.fun - found.x.size - 2.0
+    lowest = -found.fun - mode.size - 2.0
     for _ in range(settings.chains):
         for shrink in (1.0, 0.3, 0.1, 0.0):
-            x = found.x + shrink * np.sqrt(variance) * rng.standard_normal(found.x.size)
+            x = mode + shrink * np.sqrt(variance) * rng.standard_normal(mode.size)
             value = float(logp(point(x)))
             if np.isfinite(value) and value >= lowest:
                 break
         starts.append(point(x))
     potential: QuadPotential
     if settings.mass_matrix == "dense":
-        potential = QuadPotentialFullAdapt(found.x.size, found.x, covariance, LAPLACE_WEIGHT)
+        potential = QuadPotentialFullAdapt(mode.size, mode, covariance, LAPLACE_WEIGHT)
     else:
-        potential = QuadPotentialDiagAdapt(found.x.size, found.x, variance, LAPLACE_WEIGHT)
+        potential = QuadPotentialDiagAdapt(mode.size, mode, variance, LAPLACE_WEIGHT)
     return starts, potential
 
 
