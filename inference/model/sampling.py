@@ -158,14 +158,17 @@ def prior_centre(model: pm.Model) -> dict:
 #: Fresh BFGS searches after one that stopped without converging (our choice).
 RESTARTS = 5
 
-#: Scales held at their priors' centre in the mode search, keyed by the variable whose presence makes them a
-#: funnel's: with centred group effects (``group_ln_k_ref``) the joint density grows without bound as their
+#: Scales held at their priors' centre in a first mode search, keyed by the variable whose presence makes them
+#: a funnel's: with centred group effects (``group_ln_k_ref``) the joint density grows without bound as their
 #: spread goes to zero with every group alike, a spike of negligible mass that BFGS finds instead of the bulk
 #: wherever the data do not pull the groups apart (docs/calibration.md, fix 5).
 HELD_IN_MODE_SEARCH = {"group_ln_k_ref": "ln_k_spread"}
 #: Variance given to a held scale in the initial mass matrix and the starts' spread (log scale; a half-normal
 #: prior's log has a sd of about 1).
 HELD_VARIANCE = 1.0
+#: A held scale that falls this far (log units: a factor of 1000) below its prior's centre once freed has slid
+#: into the spike (our choice; a posterior that far into a half-normal's tail has negligible mass).
+SPIKE_DEPTH = np.log(1e3)
 
 
 def _held_mask(model: pm.Model, mapped: RaveledVars) -> np.ndarray:
@@ -185,7 +188,8 @@ def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], Quad
     most of its tuning shrinking its step to that scale. So the mode is found with BFGS (exact gradients) and
     its inverse-Hessian approximation seeds the mass matrix (dense, or its diagonal); each chain starts from
     the mode moved by one approximate posterior sd in a random direction (seeded), so chains still start apart.
-    Scales in ``HELD_IN_MODE_SEARCH`` stay at their priors' centre in the search (a conditional mode).
+    Scales in ``HELD_IN_MODE_SEARCH`` are first held at their priors' centre (a conditional mode), then freed;
+    the free mode is kept unless a scale slid into the spike of a funnel (``SPIKE_DEPTH``).
     Returns None when the optimiser fails, and PyMC's default initialisation is used instead.
     """
     start = prior_centre(model)
@@ -198,38 +202,51 @@ def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], Quad
     def point(x: np.ndarray) -> dict:
         return DictToArrayBijection.rmap(RaveledVars(x, mapped.point_map_info))
 
-    def full(free: np.ndarray) -> np.ndarray:
-        x = mapped.data.copy()
-        x[~held] = free
-        return x
+    def search(x0: np.ndarray, free: np.ndarray):
+        """BFGS over the ``free`` elements from ``x0`` (the rest held); the mode as a full vector, and the result."""
 
-    def objective(free: np.ndarray) -> tuple[float, np.ndarray]:
-        x = full(free)
-        value = float(logp(point(x)))
-        if not np.isfinite(value):
-            return 1e300, np.zeros_like(free)
-        return -value, -np.asarray(dlogp(point(x)), dtype=float)[~held]
+        def objective(y: np.ndarray) -> tuple[float, np.ndarray]:
+            x = x0.copy()
+            x[free] = y
+            value = float(logp(point(x)))
+            if not np.isfinite(value):
+                return 1e300, np.zeros_like(y)
+            return -value, -np.asarray(dlogp(point(x)), dtype=float)[free]
 
-    def search(x0: np.ndarray):
-        with np.errstate(all="ignore"):
-            return minimize(objective, x0, jac=True, method="BFGS", options={"maxiter": 400, "gtol": 1e-6})
+        def bfgs(y0: np.ndarray):
+            with np.errstate(all="ignore"):
+                return minimize(objective, y0, jac=True, method="BFGS", options={"maxiter": 400, "gtol": 1e-6})
 
-    found = search(mapped.data[~held])
-    for _ in range(RESTARTS):
-        # BFGS stops early when its line search meets draws the integrator cannot solve (the first steps from
-        # the priors' centre can be long: data far from the predictions there). A fresh search from where it
-        # stopped (its Hessian estimate reset) usually goes on; stop when one no longer improves.
-        if found.success or not np.isfinite(found.fun):
-            break
-        again = search(found.x)
-        if not again.fun < found.fun - 1e-6 * abs(found.fun):
-            break
-        found = again
-    if not np.all(np.isfinite(found.x)) or found.fun >= 1e300:
+        found = bfgs(x0[free])
+        for _ in range(RESTARTS):
+            # BFGS stops early when its line search meets draws the integrator cannot solve (the first steps
+            # from the priors' centre can be long: data far from the predictions there). A fresh search from
+            # where it stopped (its Hessian estimate reset) usually goes on; stop when one no longer improves.
+            if found.success or not np.isfinite(found.fun):
+                break
+            again = bfgs(found.x)
+            if not again.fun < found.fun - 1e-6 * abs(found.fun):
+                break
+            found = again
+        x = x0.copy()
+        x[free] = found.x
+        return x, found
+
+    def usable(x: np.ndarray, found) -> bool:
+        return bool(np.all(np.isfinite(x)) and found.fun < 1e300)
+
+    free = ~held
+    mode, found = search(mapped.data, free)
+    if held.any() and usable(mode, found):
+        # Then everything free, from there: where the data pull the groups apart the centred model has a proper
+        # mode; where they do not, the search slides into the spike and the conditional mode is kept.
+        unheld, found_unheld = search(mode, np.ones_like(held))
+        if usable(unheld, found_unheld) and np.all(unheld[held] > mode[held] - SPIKE_DEPTH):
+            mode, found, free = unheld, found_unheld, np.ones_like(held)
+    if not usable(mode, found):
         return None
-    mode = full(found.x)
     covariance = np.diag(np.full(mode.size, HELD_VARIANCE))
-    covariance[np.ix_(~held, ~held)] = _clipped_covariance(np.atleast_2d(found.hess_inv))
+    covariance[np.ix_(free, free)] = _clipped_covariance(np.atleast_2d(found.hess_inv))
     variance = np.diag(covariance)
     rng = np.random.default_rng(settings.seed)
     starts = []
