@@ -83,13 +83,16 @@ def _gradient_check(model):
     np.testing.assert_allclose(gradient, numeric, rtol=1e-4, atol=1e-3)
 
 
+def _consecutive_problem(folder, noise, runs, measurements):
+    body = CONSECUTIVE.replace("model: proportional", f"model: {noise}")
+    return open_problem(load_study(write_study(folder, body, runs, measurements)))
+
+
 @pytest.mark.parametrize("noise", ["proportional", "absolute", "robust"])
 def test_log_density_gradient_matches_finite_differences(tmp_path, noise):
     runs = "run,temperature,A,B,C\nr1,50,1.0,0,0\nr2,70,0.8,0.05,0\n"
     meas = "run,time,A,B,C\nr1,2,0.85,0.14,0.01\nr1,6,0.6,0.3,0.08\nr2,1,0.6,0.3,0.02\nr2,4,0.3,0.4,0.15\n"
-    body = CONSECUTIVE.replace("model: proportional", f"model: {noise}")
-    problem = open_problem(load_study(write_study(tmp_path, body, runs, meas)))
-    _gradient_check(problem.build_model(T_REF))
+    _gradient_check(_consecutive_problem(tmp_path, noise, runs, meas).build_model(T_REF))
 
 
 @pytest.mark.parametrize("noise", ["proportional", "absolute", "robust"])
@@ -100,8 +103,7 @@ def test_noise_on_the_log_scale_resolves_the_smallest_value(tmp_path, noise):
 
     runs = "run,temperature,A,B,C\nr1,50,1.0,0,0\n"
     meas = "run,time,A,B,C\nr1,2,0.85,0.14,0.01\nr1,60,2e-9,0.3,0.7\n"
-    body = CONSECUTIVE.replace("model: proportional", f"model: {noise}")
-    problem = open_problem(load_study(write_study(tmp_path, body, runs, meas)))
+    problem = _consecutive_problem(tmp_path, noise, runs, meas)
     floor = network_solver(problem.study, problem.obs).settings.relative_floor
     assert floor == (0.0 if noise == "absolute" else 2e-9)
 
