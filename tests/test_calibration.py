@@ -106,8 +106,9 @@ def test_every_chain_starts_near_the_mode(simulation):
     # lay 9-17 (12) and about 300 (22) log-density units below the truth's; both chains sank to a tiny lot spread
     # (its truth above every draw) and most truths ranked 0 or 99. In simulation 4 (noisy data that hardly
     # separate the lots) BFGS itself ran into the spike of the centred lot effects (spread 8e-8, every lot alike,
-    # log density 23 above the truth's); both chains started there and every truth ranked 0 or 99. The spread is
-    # now held at its prior's centre in the mode search. Each start must lie within d + 2 of the
+    # log density 23 above the truth's); both chains started there and every truth ranked 0 or 99. The mode search
+    # now holds the spread at its prior's centre first and keeps the freed mode only if the spread did not
+    # collapse. Each start must lie within d + 2 of the
     # truth's log density (a posterior draw lies about d/2 below the mode, which lies above the truth; no
     # reference value needed).
     starts, at_truth, dimension = _starts_and_truth("configs/calibration/catalyst/study.yaml", 100, simulation)
