@@ -11,7 +11,8 @@ and fitting use the same priors.
 Studies (invented designs; T_ref stated in each):
 - ``network``: the demo network's design (``data_demo/study.yaml``: A + B -> C, C -> D, four runs, 60 values).
 - ``catalyst``: the catalyst-lot demo's model (saturating law, three lots, lot-to-lot sd of ln k, centred) on
-  half the demo's design (one run at 50 degC from 0.5 mol/L and one at 70 degC from 2 mol/L per lot).
+  half the demo's design (one run at 50 degC from 0.5 mol/L and one at 70 degC from 2 mol/L per lot), with a
+  detection limit of 0.001 mol/L on every value.
 - ``reversible``: A <=> B at three temperatures, both directions fitted (k_ref, Ea, K_ref, dH).
 - ``ramped``: A -> B, three runs on linear temperature ramps, none isothermal.
 - ``dosed``: A + B -> P, B fed during the run into a 500 mL charge, isothermal at three temperatures.
@@ -78,15 +79,17 @@ def network(folder: Path) -> None:
 
 def catalyst(folder: Path) -> None:
     """The catalyst demo's model (saturating law, lot-to-lot sd of ln k, centred) on half its design: three lots,
-    each with a run at 50 degC from 0.5 mol/L and one at 70 degC from 2 mol/L, A and P at eight times."""
-    runs, rows = ["run,temperature,A,P,lot"], ["run,time,A,P"]
+    each with a run at 50 degC from 0.5 mol/L and one at 70 degC from 2 mol/L, A and P at eight times, every value
+    with a detection limit of 0.001 mol/L (the long layout's ``limit`` column): without it, a fast or slow lot
+    drawn from the priors yields values down to 1e-15 mol/L, which no assay reports (docs/calibration.md)."""
+    runs, rows = ["run,temperature,A,P,lot"], ["run,time,species,value,limit"]
     for lot in "ABC":
         for celsius, a0, last in ((50, 0.5, 130), (70, 2.0, 60)):
             run = f"lot-{lot}-{celsius}C"
             runs.append(f"{run},{celsius},{a0},0,lot-{lot}")
             for t in np.geomspace(last / 20, last, 8):
                 a = a0 * np.exp(-t / last)
-                rows.append(f"{run},{t:.3g},{a:.4f},{a0 - a:.4f}")
+                rows += [f"{run},{t:.3g},A,{a:.4f},0.001", f"{run},{t:.3g},P,{a0 - a:.4f},0.001"]
     body = "species: [A, P]\nreactions:\n  - name: conversion\n    equation: A -> P\n    rate_law: saturating\n"
     body += "    adsorption:\n      A: {K_ref: {median: 1.5, factor: 3}, dH: {mean: -25, sd: 10}}\n"
     body += "    k_ref: {median: 0.06, factor: 5}\n    Ea: {mean: 70, sd: 15}\n"

@@ -63,6 +63,18 @@ def test_long_and_wide_layouts_give_the_same_observations(tmp_path):
     assert [t.tolist() for t in wide_obs.times] == [[1.0, 2.0], [1.5]]
 
 
+def test_a_limit_column_censors_its_row_at_and_below_the_limit(tmp_path):
+    # The long layout's limit belongs to its row: a value above it is exact, one at or below it (or blank) is
+    # known only to lie below it; every row with a limit keeps it, so a simulation censors there too.
+    runs = "run,temperature,A,B,C\nr1,50,1.0,0,0\n"
+    long = "run,time,species,value,limit\nr1,1,A,0.9,0.01\nr1,2,A,0.01,0.01\nr1,3,A,0.004,0.01\nr1,4,A,,0.01\n"
+    long += "r1,4,B,0.3,\n"
+    obs = read_observations(load_study(write_study(tmp_path, CONSECUTIVE, runs, long)))
+    np.testing.assert_array_equal(obs.value, [0.9, 0.01, 0.01, 0.01, 0.3])
+    np.testing.assert_array_equal(obs.lower, [0.01, 0.01, 0.01, 0.01, -np.inf])
+    assert obs.censored.tolist() == ["", "below", "below", "below", ""]
+
+
 def _gradient_check(model):
     start = model.initial_point()
     names = [v.name for v in model.value_vars]

@@ -53,6 +53,27 @@ def test_censored_likelihood_matches_scipy_for_every_noise_model():
     np.testing.assert_allclose(robust, expected, rtol=1e-8)
 
 
+def test_a_limit_above_which_a_value_lies_leaves_its_density_and_censors_draws():
+    # A row's detection limit applies to whatever is measured there: a value above it keeps the plain density
+    # (scipy.stats.lognorm.logpdf), one at it is censored (logcdf), and draws from the node never fall below it.
+    import pymc as pm
+
+    from inference.model.builder import _likelihood
+
+    predicted, observed, limit = np.array([0.05, 0.05]), np.array([0.08, 0.01]), np.array([0.01, 0.01])
+    logp = _pointwise_logp(Noise(model="proportional"), predicted, 0.5, observed, limit)
+    expected = [stats.lognorm.logpdf(0.08, 0.5, scale=0.05), stats.lognorm.logcdf(0.01, 0.5, scale=0.05)]
+    np.testing.assert_allclose(logp, expected, rtol=1e-7)
+
+    with pm.Model(coords={"measurement": np.arange(2)}) as model:
+        _likelihood(Noise(model="proportional"), np.array([0.012, 0.012]), 0.5, observed, limit)
+    draws = pm.draw(model["observation"], draws=2000, random_seed=1)
+    assert draws.min() == 0.01  # clipped at the limit, not below it
+    # P(lognormal(ln 0.012, 0.5) <= 0.01) from scipy; 2000 x 2 draws give an se of about 0.008.
+    share = stats.lognorm.cdf(0.01, 0.5, scale=0.012)
+    assert abs((draws == 0.01).mean() - share) < 0.04
+
+
 def test_uncensored_likelihood_unchanged():
     # Without limits the node is the plain density (scipy.stats.norm.logpdf).
     predicted, observed = np.array([1.0, 2.0]), np.array([1.1, 1.7])

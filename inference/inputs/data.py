@@ -299,8 +299,8 @@ class Observations:
     quantities: tuple[QuantitySpec, ...] = ()
     quantity_index: np.ndarray | None = None
     design: MeasurementDesign | None = None
-    #: Censoring: a value below ``lower[m]`` (detection limit) or above ``upper[m]`` (saturation) is known only to
-    #: lie there (its ``value`` is the limit); -inf / inf where a value is exact. None: nothing censored.
+    #: Censoring: a value at or below ``lower[m]`` (detection limit) or at or above ``upper[m]`` (saturation) is
+    #: known only to lie there (its ``value`` is the limit); -inf / inf where no limit applies. None: no limits.
     lower: np.ndarray | None = None
     upper: np.ndarray | None = None
     #: Rows of the measurements file set aside as no measurement: a value 0 at t = 0 where the run's stated initial
@@ -312,9 +312,9 @@ class Observations:
         """Per measurement: "below", "above" or "" (exact)."""
         flags = np.full(self.value.size, "", dtype=object)
         if self.lower is not None:
-            flags[np.isfinite(self.lower)] = "below"
+            flags[self.value <= self.lower] = "below"
         if self.upper is not None:
-            flags[np.isfinite(self.upper)] = "above"
+            flags[self.value >= self.upper] = "above"
         return flags
 
     def measured_names(self, species: tuple[str, ...]) -> np.ndarray:
@@ -563,7 +563,7 @@ def _measured_column(
 def _read_measurements(study: Study, runs: Runs) -> tuple[list[Record], Path, bool]:
     """The measurements file's values as records, its path, and whether it has the long layout. Columns (wide)
     or ``species`` cells (long) name a species or a declared quantity; an optional ``limit`` column (long) gives a
-    detection limit: a blank value, or one below it, is a value below that limit."""
+    detection limit for its row: a blank value, or one at or below it, is a value below that limit."""
     path = study.data_file("measurements")
     where = str(path)
     species = study.species
@@ -608,9 +608,11 @@ def _read_measurements(study: Study, runs: Runs) -> tuple[list[Record], Path, bo
                     raise StudyError(
                         f"{where}: line {lines[row]}, column 'value'", "cell is blank", "or give a 'limit'"
                     )
-            below = np.isnan(values) | (np.isfinite(limit) & (values < limit))
+            # The limit belongs to the row, not only to the values found below it: a simulation from the model
+            # (posterior predictive, calibration) censors that row wherever its draw falls at or below the limit.
+            below = np.isnan(values) | (np.isfinite(limit) & (values <= limit))
             values = np.where(below, limit, values)
-            lower = np.where(below, limit, lower)
+            lower = np.where(np.isfinite(limit), limit, lower)
         for row, name in enumerate(with_header["species"]):
             what = _position(name, names, "species", f"{where}: line {lines[row]}")
             records.append((run_of[row], time[row], what, values[row], lines[row], lower[row], upper[row]))
