@@ -84,7 +84,7 @@ def _starts_and_truth(path: str, simulations: int, index: int) -> tuple[list[flo
     model = open_problem(study).with_measurements(data[index]).build_model(temperature_ref)
     logp = model.compile_logp()
     with model:
-        starts, _ = laplace_start(model, study.sampling)
+        starts, _, _ = laplace_start(model, study.sampling)
     dimension = sum(np.size(value) for value in model.initial_point().values())
     return [float(logp(start)) for start in starts], float(logp(_value_point(model, truths[index]))), dimension
 

@@ -21,6 +21,7 @@ import arviz as az
 import numpy as np
 import pymc as pm
 from pymc.blocking import DictToArrayBijection, RaveledVars
+from pymc.model.core import ValueGradFunction
 from pymc.step_methods.hmc.quadpotential import QuadPotential, QuadPotentialDiagAdapt, QuadPotentialFullAdapt
 from scipy.optimize import minimize
 
@@ -181,7 +182,7 @@ def _held_mask(model: pm.Model, mapped: RaveledVars) -> np.ndarray:
     return np.array(mask, dtype=bool)
 
 
-def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], QuadPotential] | None:
+def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], QuadPotential, ValueGradFunction] | None:
     """Starting points and an initial mass matrix from the posterior mode and its curvature.
 
     Priors are standardised, but posteriors are often hundreds of times narrower than priors; NUTS would spend
@@ -190,17 +191,23 @@ def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], Quad
     the mode moved by one approximate posterior sd in a random direction (seeded), so chains still start apart.
     Scales in ``HELD_IN_MODE_SEARCH`` are first held at their priors' centre (a conditional mode), then freed;
     the free mode is kept unless a scale slid into the spike of a funnel (``SPIKE_DEPTH``).
+    Also returns the compiled log-density-with-gradient (PyMC's ``ValueGradFunction`` of the raveled free
+    variables), which NUTS then uses as it is: compiling it once instead of three times saves seconds a fit.
     Returns None when the optimiser fails, and PyMC's default initialisation is used instead.
     """
     start = prior_centre(model)
-    names = [v.name for v in model.value_vars]
+    names = [v.name for v in model.continuous_value_vars]  # the order the compiled function ravels them in
     mapped = DictToArrayBijection.map({name: start[name] for name in names})
     held = _held_mask(model, mapped)
-    logp = model.compile_logp()
-    dlogp = model.compile_dlogp()
+    value_and_gradient = model.logp_dlogp_function(ravel_inputs=True, initial_point=start)
+    value_and_gradient.trust_input = True  # as NUTS sets it: inputs are float64 vectors of the right size
+    value_and_gradient.set_extra_values({})
 
     def point(x: np.ndarray) -> dict:
         return DictToArrayBijection.rmap(RaveledVars(x, mapped.point_map_info))
+
+    def logp(x: np.ndarray) -> float:
+        return float(value_and_gradient(np.ascontiguousarray(x, dtype=float))[0])
 
     def search(x0: np.ndarray, free: np.ndarray):
         """BFGS over the ``free`` elements from ``x0`` (the rest held); the mode as a full vector, and the result."""
@@ -208,10 +215,10 @@ def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], Quad
         def objective(y: np.ndarray) -> tuple[float, np.ndarray]:
             x = x0.copy()
             x[free] = y
-            value = float(logp(point(x)))
+            value, gradient = value_and_gradient(x)
             if not np.isfinite(value):
                 return 1e300, np.zeros_like(y)
-            return -value, -np.asarray(dlogp(point(x)), dtype=float)[free]
+            return -float(value), -np.asarray(gradient, dtype=float)[free]
 
         def bfgs(y0: np.ndarray):
             with np.errstate(all="ignore"):
@@ -257,7 +264,7 @@ def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], Quad
     for _ in range(settings.chains):
         for shrink in (1.0, 0.3, 0.1, 0.0):
             x = mode + shrink * np.sqrt(variance) * rng.standard_normal(mode.size)
-            value = float(logp(point(x)))
+            value = logp(x)
             if np.isfinite(value) and value >= lowest:
                 break
         starts.append(point(x))
@@ -266,7 +273,7 @@ def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], Quad
         potential = QuadPotentialFullAdapt(mode.size, mode, covariance, LAPLACE_WEIGHT)
     else:
         potential = QuadPotentialDiagAdapt(mode.size, mode, variance, LAPLACE_WEIGHT)
-    return starts, potential
+    return starts, potential, value_and_gradient
 
 
 def _clipped_covariance(inverse_hessian: np.ndarray) -> np.ndarray:
@@ -320,8 +327,11 @@ def sample_posterior(
         init = "jitter+adapt_full" if settings.mass_matrix == "dense" else "jitter+adapt_diag"
         extra: dict = {"target_accept": settings.target_accept, "init": init}
         if laplace is not None:
-            starts, potential = laplace
-            extra = {"initvals": starts, "step": pm.NUTS(potential=potential, target_accept=settings.target_accept)}
+            starts, potential, value_and_gradient = laplace
+            step = pm.NUTS(
+                potential=potential, target_accept=settings.target_accept, logp_dlogp_func=value_and_gradient
+            )
+            extra = {"initvals": starts, "step": step}
             clock.lap("compile NUTS step")
         try:
             idata = pm.sample(
