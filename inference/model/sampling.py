@@ -182,7 +182,22 @@ def _held_mask(model: pm.Model, mapped: RaveledVars) -> np.ndarray:
     return np.array(mask, dtype=bool)
 
 
-def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], QuadPotential, ValueGradFunction] | None:
+def log_density_function(model: pm.Model, start: dict | None = None) -> ValueGradFunction:
+    """The model's log density with its gradient, a function of the free variables raveled in PyMC's order
+    (``model.continuous_value_vars``), compiled once per fit: the start check, the mode search and NUTS share it."""
+    log_density = model.logp_dlogp_function(ravel_inputs=True, initial_point=start or prior_centre(model))
+    log_density.trust_input = True  # as NUTS sets it: inputs are float64 vectors of the right size
+    log_density.set_extra_values({})
+    return log_density
+
+
+def _raveled(model: pm.Model, point: dict) -> RaveledVars:
+    return DictToArrayBijection.map({v.name: point[v.name] for v in model.continuous_value_vars})
+
+
+def laplace_start(
+    model: pm.Model, settings: Sampling, log_density: ValueGradFunction | None = None
+) -> tuple[list[dict], QuadPotential, ValueGradFunction] | None:
     """Starting points and an initial mass matrix from the posterior mode and its curvature.
 
     Priors are standardised, but posteriors are often hundreds of times narrower than priors; NUTS would spend
@@ -191,17 +206,13 @@ def laplace_start(model: pm.Model, settings: Sampling) -> tuple[list[dict], Quad
     the mode moved by one approximate posterior sd in a random direction (seeded), so chains still start apart.
     Scales in ``HELD_IN_MODE_SEARCH`` are first held at their priors' centre (a conditional mode), then freed;
     the free mode is kept unless a scale slid into the spike of a funnel (``SPIKE_DEPTH``).
-    Also returns the compiled log-density-with-gradient (PyMC's ``ValueGradFunction`` of the raveled free
-    variables), which NUTS then uses as it is: compiling it once instead of three times saves seconds a fit.
-    Returns None when the optimiser fails, and PyMC's default initialisation is used instead.
+    Also returns the compiled log density (``log_density``, or ``log_density_function``'s), which NUTS then
+    uses as it is. Returns None when the optimiser fails, and PyMC's default initialisation is used instead.
     """
     start = prior_centre(model)
-    names = [v.name for v in model.continuous_value_vars]  # the order the compiled function ravels them in
-    mapped = DictToArrayBijection.map({name: start[name] for name in names})
+    mapped = _raveled(model, start)
     held = _held_mask(model, mapped)
-    value_and_gradient = model.logp_dlogp_function(ravel_inputs=True, initial_point=start)
-    value_and_gradient.trust_input = True  # as NUTS sets it: inputs are float64 vectors of the right size
-    value_and_gradient.set_extra_values({})
+    value_and_gradient = log_density or log_density_function(model, start)
 
     def point(x: np.ndarray) -> dict:
         return DictToArrayBijection.rmap(RaveledVars(x, mapped.point_map_info))
@@ -284,12 +295,16 @@ def _clipped_covariance(inverse_hessian: np.ndarray) -> np.ndarray:
     return (vectors * np.clip(values, 1e-10, 10.0)) @ vectors.T
 
 
-def non_finite_start(model: pm.Model) -> tuple[list[str], np.ndarray]:
+def non_finite_start(model: pm.Model, log_density: ValueGradFunction | None = None) -> tuple[list[str], np.ndarray]:
     """At the initial point (every prior at its centre): the names of terms whose log-density is not finite,
-    and the indices of measurements whose log-likelihood is not finite."""
+    and the indices of measurements whose log-likelihood is not finite. Where the whole log density
+    (``log_density``, or one compiled here) is finite there are none, and nothing else is compiled."""
     quiet_backend_logs()
     start = prior_centre(model)
+    log_density = log_density or log_density_function(model, start)
     with np.errstate(all="ignore"):
+        if np.isfinite(log_density(_raveled(model, start).data)[0]):
+            return [], np.array([], dtype=int)
         terms = model.point_logps(start)
         bad = [name for name, value in terms.items() if not np.isfinite(value)]
         if not bad and not np.isfinite(float(model.compile_logp()(start))):
@@ -309,6 +324,7 @@ def sample_posterior(
     failure_log: Path | None = None,
     predictive: bool = True,
     timings: dict[str, float] | None = None,
+    log_density: ValueGradFunction | None = None,
 ) -> tuple[az.InferenceData, int]:
     """Run NUTS and add the pointwise log-likelihood and (unless ``predictive`` is False) the posterior
     predictive of the observations.
@@ -316,11 +332,12 @@ def sample_posterior(
     Chains get seeds derived by PyMC from ``settings.seed``; the predictive draws use ``seed + 1``, so one
     integer fixes every number. Returns the InferenceData and the number of failed integrations during
     sampling (counted from ``failure_log``, to which every process appends a line per failure).
+    ``log_density``: the model's ``log_density_function`` where the caller compiled it already.
     """
     quiet_backend_logs()
     clock = _Clock(timings if timings is not None else {})
     with model:
-        laplace = laplace_start(model, settings)
+        laplace = laplace_start(model, settings, log_density)
         clock.lap("mode search (compiles log-density and gradient)")
         if failure_log is not None:
             failure_log.write_text("")  # failures while finding the mode are part of the search, not of sampling

@@ -10,6 +10,7 @@ from __future__ import annotations
 import json
 from dataclasses import replace
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -20,7 +21,7 @@ from ..errors import StudyError
 from ..inputs.config import load_study
 from ..inputs.schema import Sampling
 from ..inputs.study import Study
-from ..model.sampling import sample_posterior, scratch_folder
+from ..model.sampling import log_density_function, non_finite_start, sample_posterior, scratch_folder
 from ..outputs import plots, report
 from ..outputs.records import FitResult
 from ..outputs.reporting import CAUTION, Steps, process_age_s
@@ -45,6 +46,9 @@ from ..posterior.summaries import (
     summary_table,
 )
 from .kinds import Problem, open_problem
+
+if TYPE_CHECKING:
+    from pymc.model.core import ValueGradFunction
 
 
 def default_results_dir(study: Study, root: Path = Path("results")) -> Path:
@@ -125,10 +129,15 @@ def _fit(
     with scratch_folder() as scratch:
         failure_log = scratch / "solver-failures"
         model = problem.build_model(temperature_ref, failure_log)
-        _check_start(model, problem, temperature_ref)
+        log_density = _check_start(model, problem, temperature_ref)
         steps.done("built model")
         idata, failures = sample_posterior(
-            model, sampling, progress=not quiet, failure_log=failure_log, timings=steps.timings
+            model,
+            sampling,
+            progress=not quiet,
+            failure_log=failure_log,
+            timings=steps.timings,
+            log_density=log_density,
         )
     steps.done("sampled", f"{sampling.chains} chains x {sampling.draws} draws after {sampling.tune} tuning")
 
@@ -166,13 +175,13 @@ def _fit(
     return result
 
 
-def _check_start(model, problem: Problem, temperature_ref: float) -> None:
-    """A log-density that is not finite where sampling starts is the study's fault: say which term."""
-    from ..model.sampling import non_finite_start
-
-    terms, measurements = non_finite_start(model)
+def _check_start(model, problem: Problem, temperature_ref: float) -> ValueGradFunction:
+    """A log-density that is not finite where sampling starts is the study's fault: say which term. Returns the
+    compiled log density (``model.sampling.log_density_function``) for the sampler."""
+    log_density = log_density_function(model)
+    terms, measurements = non_finite_start(model, log_density)
     if not terms:
-        return
+        return log_density
     where = str(problem.study.path)
     if "solver_guard" in terms:
         run = problem.failing_run_at_prior_centre(temperature_ref)
