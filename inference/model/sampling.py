@@ -338,7 +338,7 @@ def sample_posterior(
     clock = _Clock(timings if timings is not None else {})
     with model:
         laplace = laplace_start(model, settings, log_density)
-        clock.lap("mode search (compiles log-density and gradient)")
+        clock.lap("mode search" if log_density is not None else "mode search (compiles log-density and gradient)")
         if failure_log is not None:
             failure_log.write_text("")  # failures while finding the mode are part of the search, not of sampling
         init = "jitter+adapt_full" if settings.mass_matrix == "dense" else "jitter+adapt_diag"
