@@ -35,6 +35,7 @@ from pydantic import Field, PositiveFloat, model_validator
 
 from ..errors import StudyError
 from ..physics.conditions import Feed, RunSetup
+from ..physics.network import HELD_START_HINT, held_start_blocked
 from . import units
 from .config import format_validation_error, lists_to_tuples, read_yaml
 from .scenarios import check_scenario
@@ -276,6 +277,8 @@ def parse_target(
     if reaction not in names:
         raise StudyError(where, f"'{reaction}' is not a reaction of the study ({', '.join(names)})", hint)
     spec = study.reactions[names.index(reaction)]
+    if spec.held and name in ("k", "ln_k", "Ea", "k_ref", "ln_k_ref", "n"):
+        raise StudyError(where, f"'{reaction}' is held at equilibrium and has no rate constant", "K_ref and dH are")
     if name in ("k", "ln_k"):
         if not rest:
             raise StudyError(where, f"'{text}' needs a temperature", "write e.g. k[step, 85 degC]")
@@ -493,6 +496,9 @@ def _batch(
         )
     t, c = factors.time, factors.concentration
     initial = _vector(candidate.initial or {}, study, f"{where}.initial", c)
+    blocked = held_start_blocked(study.network, initial) if study.network is not None else None
+    if blocked is not None:
+        raise StudyError(f"{where}.initial", f"{blocked[0]} and {blocked[1]} both start at zero", HELD_START_HINT)
     times = np.array(candidate.times) * t
     feeds = tuple(
         Feed(
@@ -526,6 +532,12 @@ def _flow(
     kelvin = float(units.to_kelvin(candidate.temperature, factors.temperature, f"{where}.temperature")[0])
     taus = np.array(candidate.residence_times) * factors.time
     if candidate.reactor == "cstr":
+        if study.network is not None and study.network.held >= 0:
+            raise StudyError(
+                f"{where}.reactor",
+                "a CSTR steady state is not computed for a network with a step held at equilibrium",
+                "propose batch or pfr runs",
+            )
         setups = tuple(
             RunSetup.isothermal(kelvin, volume=1.0, feeds=(Feed(0.0, math.inf, 1.0 / float(tau), feed),), overflow=True)
             for tau in taus

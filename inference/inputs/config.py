@@ -21,6 +21,7 @@ from .rate_laws import LAW_KEYS, REGISTRY, Z95, missing_keys, undeclared_keys, v
 from .scenarios import check_scenario
 from .schema import ExponentPrior, OrderPrior, Reaction, StudyFile
 from .study import (
+    HELD_PLACEHOLDER,
     ArrheniusPrior,
     EquilibriumPrior,
     FittedOrder,
@@ -383,11 +384,18 @@ def _reaction_spec(reaction: Reaction, energy: str, key: str, k_unit: str, **par
     """The resolved reaction common to both kinds of study: its Arrhenius prior and temperature exponent, with the
     ``parts`` of ``ReactionSpec`` only its kind knows (equilibrium, fitted orders, saturation, molecularity)."""
     exponent, exponent_sd = _temperature_exponent(reaction)
+    if reaction.fast_equilibrium:
+        prior = HELD_PLACEHOLDER
+    else:
+        for absent in ("k_ref", "Ea"):
+            if getattr(reaction, absent) is None:
+                raise StudyError(f"{key}.{absent}", "required key is missing")
+        prior = _arrhenius_prior(reaction, energy, key)
     return ReactionSpec(
         reaction.name,
         reaction.equation,
         reaction.rate_law,
-        _arrhenius_prior(reaction, energy, key),
+        prior,
         k_unit,
         temperature_exponent=exponent,
         exponent_sd=exponent_sd,
@@ -406,8 +414,8 @@ def _resolve_rate_constant_reactions(file: StudyFile, where: str) -> tuple[React
     order = units.rate_constant_order(file.units.rate_constant or "1/s")
     for index, reaction in enumerate(file.reactions):
         key = f"{where}: reactions[{index}]"
-        for extra in ("K_ref", "dH", *sorted(_given_keys(reaction) & LAW_KEYS)):
-            if getattr(reaction, extra) is not None:
+        for extra in ("K_ref", "dH", "fast_equilibrium", *sorted(_given_keys(reaction) & LAW_KEYS)):
+            if getattr(reaction, extra) not in (None, False):
                 raise StudyError(f"{key}.{extra}", "is for reaction networks fitted to concentration data")
         if REGISTRY[reaction.rate_law].network_only:
             raise StudyError(
@@ -434,16 +442,50 @@ def _parse_network_equation(reaction: Reaction, species: tuple[str, ...], key: s
     return equation
 
 
+def _check_held(reaction: Reaction, equation: Equation, key: str, held_before: int) -> None:
+    """A step held at equilibrium is reversible, has no rate constant and no rate law of its own, and is the
+    only one of its study."""
+    if not equation.reversible:
+        raise StudyError(
+            f"{key}.fast_equilibrium",
+            "only a reversible step ('<=>') can be held at equilibrium",
+            "write it with '<=>'",
+        )
+    for extra in ("k_ref", "Ea", "temperature_exponent"):
+        if getattr(reaction, extra) is not None:
+            raise StudyError(
+                f"{key}.{extra}",
+                "a step held at equilibrium (fast_equilibrium) has no rate constant",
+                "remove it: K_ref and dH describe the step",
+            )
+    if reaction.rate_law != "mass_action":
+        raise StudyError(
+            f"{key}.rate_law",
+            "a step held at equilibrium has no rate law",
+            "remove rate_law: its K_ref ties the species' activities (mass action) at every instant",
+        )
+    if held_before >= 0:
+        raise StudyError(
+            f"{key}.fast_equilibrium",
+            f"reactions[{held_before}] is already held at equilibrium; one such step per study is supported",
+            "give the other steps rates (a large k_ref) or combine the equilibria into one step",
+        )
+
+
 def _resolve_network(file: StudyFile, where: str) -> tuple[tuple[ReactionSpec, ...], Network, tuple[str, ...]]:
     species = file.species
     if not species:
         raise StudyError(f"{where}: species", "required key is missing", "list every species, e.g. [A, B, C]")
     conc, time, energy = file.units.concentration, file.units.time, file.units.energy
     specs, equations, order_maps, notes, saturation = [], [], [], [], []
+    held = -1
     for index, reaction in enumerate(file.reactions):
         key = f"{where}: reactions[{index}]"
         equation = _parse_network_equation(reaction, species, key)
         equations.append(equation)
+        if reaction.fast_equilibrium:
+            _check_held(reaction, equation, key, held)
+            held = index
         reactant_orders = dict(equation.reactants)
         fitted_orders = []
         _check_law_keys(reaction, key)
@@ -488,11 +530,12 @@ def _resolve_network(file: StudyFile, where: str) -> tuple[tuple[ReactionSpec, .
                 fitted_orders=tuple(fitted_orders),
                 inhibition_exponent=inhibition,
                 adsorption=sites,
-                molecularity=None if fitted_orders or sites else overall,
+                molecularity=None if fitted_orders or sites or reaction.fast_equilibrium else overall,
+                held=reaction.fast_equilibrium,
             )
         )
     network = build_network(
-        species, tuple(r.name for r in file.reactions), tuple(equations), tuple(order_maps), tuple(saturation)
+        species, tuple(r.name for r in file.reactions), tuple(equations), tuple(order_maps), tuple(saturation), held
     )
     for name in species:
         if (
@@ -552,7 +595,14 @@ def _run_variability(file: StudyFile, where: str) -> RunVariabilitySpec | None:
     if given is None:
         return None
     names = [r.name for r in file.reactions]
-    chosen = given.reactions if given.reactions is not None else tuple(names)
+    rated = tuple(r.name for r in file.reactions if not r.fast_equilibrium)
+    chosen = given.reactions if given.reactions is not None else rated
+    for position, name in enumerate(chosen):
+        if name in names and name not in rated:
+            raise StudyError(
+                f"{where}: run_variability.reactions[{position}]",
+                f"'{name}' is held at equilibrium and has no rate constant to vary",
+            )
     for position, name in enumerate(chosen):
         if name not in names:
             close = closest(name, names)

@@ -19,6 +19,7 @@ import pandas as pd
 
 from ..errors import StudyError
 from ..physics.conditions import Conditions, Feed, RunSetup, build_conditions, isothermal_conditions
+from ..physics.network import HELD_START_HINT, held_start_blocked
 from . import units
 from .files import excerpt, read_text, shown_path
 from .measured import MeasurementDesign, QuantitySpec, default_quantity, measurement_design
@@ -482,6 +483,15 @@ def _read_batch(study: Study) -> Observations:
     for r, total in enumerate(runs.initial.sum(axis=1)):
         if total <= 0 and r not in feeds:
             raise StudyError(f"{runs.path}: line {runs.lines[r]}", "every initial concentration is zero")
+    uncertain = tuple(study.species.index(name) for name, _ in study.initial_uncertainty)
+    for r, initial in enumerate(runs.initial):
+        blocked = held_start_blocked(study.network, initial, uncertain)
+        if blocked is not None:
+            raise StudyError(
+                f"{runs.path}: line {runs.lines[r]}, columns '{blocked[0]}' and '{blocked[1]}'",
+                "both are zero, so the step held at equilibrium cannot start at its equilibrium",
+                HELD_START_HINT,
+            )
     volume = _initial_volumes(study, runs, feeds)
     records, path, long_layout = _read_measurements(study, runs)
     records, restated = _set_aside_restated_zeros(study, records, runs.initial)
@@ -908,6 +918,12 @@ def _read_steady_states(study: Study) -> Observations:
         if cell.lower() not in FLOW_REACTORS:
             problem = "cell is blank" if cell == "" else f"'{excerpt(cell)}' is not a flow reactor"
             raise StudyError(f"{where}: line {lines[row]}, column 'reactor'", problem, "write cstr or pfr")
+        if cell.lower() == "cstr" and study.network is not None and study.network.held >= 0:
+            raise StudyError(
+                f"{where}: line {lines[row]}, column 'reactor'",
+                "a CSTR steady state is not computed for a network with a step held at equilibrium",
+                "give that step a rate (k_ref and Ea instead of fast_equilibrium), or leave out the CSTR rows",
+            )
         reactors.append(cell.lower())
     kelvin = _kelvin_column(frame, "temperature", study.units.temperature, where)
     tau = numeric_column(frame, "residence_time", where, positive=True)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import StudyError
+from ..physics.network import HELD_START_HINT, held_start_blocked
 from . import units
 from .schema import QUESTIONS, Scenario
 from .study import Study
@@ -41,6 +42,16 @@ def check_scenario(scenario: Scenario, study: Study, where: str) -> None:
             raise StudyError(f"{where}.{key}", f"'{name}' is not a species of the study ({', '.join(species)})")
     if scenario.reactor == "dosed_batch":
         _check_dosing(scenario, where)
+    initial = np.array([scenario.initial.get(name, 0.0) for name in species], dtype=float)
+    blocked = held_start_blocked(study.network, initial) if study.network is not None else None
+    if blocked is not None:
+        raise StudyError(f"{where}.initial", f"{blocked[0]} and {blocked[1]} both start at zero", HELD_START_HINT)
+    if scenario.reactor == "cstr" and study.network is not None and study.network.held >= 0:
+        raise StudyError(
+            f"{where}.reactor",
+            "a CSTR steady state is not computed for a network with a step held at equilibrium",
+            "predict batch, dosed_batch or pfr",
+        )
     reactant = scenario.key_reactant
     fed = any(feed.concentration.get(reactant, 0.0) > 0 for feed in scenario.feeds or ())
     if reactant is not None and scenario.initial.get(reactant, 0.0) <= 0 and not fed:

@@ -149,14 +149,17 @@ class Reaction(Strict):
     rate by (1 + sum_j K_j c_j)^inhibition_exponent with one ``adsorption`` entry per species j;
     ``michaelis_menten`` is its one-substrate case with exponent 1, given by ``K_M`` (concentration) and
     ``K_M_dH``. ``temperature_exponent`` (any law): n of (T/T_ref)^n, a fixed number or ``{mean, sd}``.
-    Every law, and which keys it takes, is declared in ``inference.inputs.rate_laws``.
+    Every law, and which keys it takes, is declared in ``inference.inputs.rate_laws``. ``fast_equilibrium``: a
+    reversible step so fast that it stays at equilibrium (quasi-equilibrium); it takes ``K_ref`` and ``dH`` and no
+    ``k_ref`` or ``Ea``, which every other reaction requires.
     """
 
     name: Name
     equation: str | None = None
     rate_law: Literal[RATE_LAWS] = "mass_action"  # type: ignore[valid-type]
-    k_ref: LogNormalPrior
-    Ea: PositiveNormalPrior
+    k_ref: LogNormalPrior | None = None
+    Ea: PositiveNormalPrior | None = None
+    fast_equilibrium: bool = False
     K_ref: LogNormalPrior | None = None
     dH: NormalPrior | None = None
     orders: dict[str, Order] | None = None

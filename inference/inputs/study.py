@@ -63,7 +63,8 @@ class ReactionSpec:
     ``temperature_exponent`` is n of (T/T_ref)^n (its prior mean when fitted); ``exponent_sd`` its prior sd,
     or None when n is fixed. ``inhibition_exponent`` is the power of a saturating law's denominator (0: none)
     and ``adsorption`` its adsorption constants. ``molecularity`` is the overall forward order when it is a
-    fixed number (None for fitted orders).
+    fixed number (None for fitted orders). ``held``: the step is held at equilibrium (``fast_equilibrium``); it
+    has no rate, and its ``prior`` is ``HELD_PLACEHOLDER``, which no data inform and no output reports.
     """
 
     name: str
@@ -79,6 +80,13 @@ class ReactionSpec:
     inhibition_exponent: float = 0.0
     adsorption: tuple[AdsorptionSite, ...] = ()
     molecularity: float | None = None
+    held: bool = False
+
+
+#: The Arrhenius prior a step held at equilibrium carries in the parameter vector (its k and Ea have no effect
+#: on any prediction, so their posterior is this prior; summaries leave them out): ln k ~ N(0, 1), Ea ~ N(50, 10)
+#: kJ/mol.
+HELD_PLACEHOLDER = ArrheniusPrior(0.0, 1.0, 50_000.0, 10_000.0)
 
 
 @dataclass(frozen=True)

@@ -52,6 +52,8 @@ def arrhenius_plot(
     inverse = np.linspace(1.0 / high - 0.05 * span, 1.0 / low + 0.05 * span, 80)
     handles, labels = [], []
     for index, spec in enumerate(study.reactions):
+        if spec.held:  # held at equilibrium: no rate constant to plot
+            continue
         name, colour = spec.name, colours[index % len(colours)]
         q05, median, q95 = _arrhenius_band(posterior, spec, 1.0 / inverse, temperature_ref)
         band = ax.fill_between(1000 * inverse, q05, q95, color=colour, alpha=0.25, linewidth=0)
@@ -575,10 +577,11 @@ def prior_posterior_plot(study: Study, posterior: xr.Dataset, path: Path, temper
     from ..inputs.units import joule_per_mol_to
 
     energy = study.units.energy
-    rows = len(study.reactions)
+    rated = [spec for spec in study.reactions if not spec.held]  # a step held at equilibrium has no k_ref or Ea
+    rows = len(rated)
     fig, axes = plt.subplots(rows, 2, figsize=(8.4, 2.7 * rows + 0.7), squeeze=False)
     at = f" at T_ref = {temperature_ref:.1f} K" if temperature_ref is not None else ""
-    for row, spec in enumerate(study.reactions):
+    for row, spec in enumerate(rated):
         prior = spec.prior
         ln_k = posterior["ln_k_ref"].sel(reaction=spec.name).values.ravel()
         ea = joule_per_mol_to(posterior["Ea"].sel(reaction=spec.name).values.ravel(), energy)

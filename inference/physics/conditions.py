@@ -104,6 +104,27 @@ def temperature_terms(cond, t):
 
 
 @numba.njit(cache=True)
+def temperature_rate(cond, t, start):
+    """dx/dt = -T'(t) / T(t)^2 (1/(K time)) at time t within a step that starts at ``start``: at a point of the
+    programme, T' is the slope on the step's side of it; zero for an isothermal run and outside the programme."""
+    if not cond.ramped:
+        return 0.0
+    times, kelvin = cond.knot_time, cond.knot_kelvin
+    last = times.shape[0] - 1
+    if t > start:
+        if t <= times[0] or t > times[last]:
+            return 0.0
+        upper = np.searchsorted(times, t, side="left")
+    else:
+        if t < times[0] or t >= times[last]:
+            return 0.0
+        upper = np.searchsorted(times, t, side="right")
+    slope = (kelvin[upper] - kelvin[upper - 1]) / (times[upper] - times[upper - 1])
+    now = temperature_at(cond, t)
+    return -slope / (now * now)
+
+
+@numba.njit(cache=True)
 def dose_piece(cond, t):
     """The dosing interval a step starting at t lies in (the last one that starts at or before t)."""
     piece = np.searchsorted(cond.dose_time, t, side="right") - 1

@@ -11,8 +11,7 @@ import numba
 import numpy as np
 
 from .conditions import dose_piece, next_stop
-from .kinetics import INITIAL, parameter_rate
-from .stepping import DONE, FAILED, STIFF, evaluate, initial_sensitivities, record_start
+from .stepping import DONE, FAILED, STIFF, evaluate, parameter_source, record_start, start_state
 
 #: Dormand-Prince 5(4): nodes, stage coefficients, 5th-order weights, and 5th minus 4th order weights
 #: (the last weight belongs to f at the new point).
@@ -52,23 +51,33 @@ DP_P = np.array(
 
 
 @numba.njit(cache=True)
-def _augmented_rhs(u, t, piece, n, net, cond, params, out, work):
-    """d/dt of [c, s_1, ..., s_P] at time t: f(c) and J(c) s_p + d f / d theta_p."""
-    jac, rate, forward_rate, reverse_rate, dr_dc, c = work
-    stoichiometry = net.stoichiometry
+def _augmented_rhs(u, t, start, piece, n, net, cond, params, out, work):
+    """d/dt of [c, s_1, ..., s_P] at time t of a step from ``start``: f(c) and J(c) s_p + d f / d theta_p."""
+    jac, rate, forward_rate, reverse_rate, dr_dc, c, hold, source = work
     kinds, param_reaction, param_species = params.kind, params.reaction, params.species
-    x, log_ratio = evaluate(u[:n], t, piece, net, cond, out[:n], jac, rate, forward_rate, reverse_rate, dr_dc, c)
+    x, log_ratio = evaluate(
+        u[:n], t, start, piece, net, cond, out[:n], jac, rate, forward_rate, reverse_rate, dr_dc, c, hold
+    )
     for p in range(kinds.shape[0]):
         offset = n * (1 + p)
-        kind = kinds[p]
-        j = param_reaction[p]
-        theta = parameter_rate(kind, j, param_species[p], c, net, rate, forward_rate, reverse_rate, x, log_ratio)
+        parameter_source(
+            kinds[p],
+            param_reaction[p],
+            param_species[p],
+            c,
+            net,
+            rate,
+            forward_rate,
+            reverse_rate,
+            x,
+            log_ratio,
+            hold,
+            source,
+        )
         for i in range(n):
-            total = 0.0
+            total = source[i]
             for m in range(n):
                 total += jac[i, m] * u[offset + m]
-            if kind != INITIAL:
-                total += stoichiometry[j, i] * theta
             out[offset + i] = total
 
 
@@ -85,8 +94,9 @@ def dopri_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
     n_params = kinds.shape[0]
     size = n * (1 + n_params)
     u = np.zeros(size)
-    u[:n] = y0
-    u[n:] = initial_sensitivities(params, n).ravel()
+    start, start_s = start_state(y0, net, cond, params)
+    u[:n] = start
+    u[n:] = start_s.ravel()
     stages = np.empty((7, size))
     trial = np.empty(size)
     new = np.empty(size)
@@ -97,11 +107,13 @@ def dopri_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
         np.empty(n_reactions),
         np.empty((n_reactions, n)),
         np.empty(n),
+        np.empty(n + 2),
+        np.empty(n),
     )
     out_index = record_start(times, u[:n], u[n:].reshape((n_params, n)), out_c, out_s)
     if out_index == times.shape[0]:
         return DONE
-    _augmented_rhs(u, 0.0, 0, n, net, cond, params, stages[0], work)
+    _augmented_rhs(u, 0.0, 0.0, 0, n, net, cond, params, stages[0], work)
     # Initial step (Hairer, Norsett and Wanner, "Solving Ordinary Differential Equations I", sec. II.4).
     d0 = 0.0
     d1 = 0.0
@@ -117,7 +129,7 @@ def dopri_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
         return FAILED
     for i in range(size):
         trial[i] = u[i] + h * stages[0, i]
-    _augmented_rhs(trial, h, 0, n, net, cond, params, stages[1], work)
+    _augmented_rhs(trial, h, 0.0, 0, n, net, cond, params, stages[1], work)
     d2 = 0.0
     for i in range(size):
         scale = atol + rtol * abs(u[i])
@@ -150,13 +162,13 @@ def dopri_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
                 for q in range(st):
                     total += DP_A[st, q] * stages[q, i]
                 trial[i] = u[i] + h * total
-            _augmented_rhs(trial, t + DP_C[st] * h, piece, n, net, cond, params, stages[st], work)
+            _augmented_rhs(trial, t + DP_C[st] * h, t, piece, n, net, cond, params, stages[st], work)
         for i in range(size):
             total = 0.0
             for q in range(6):
                 total += DP_B[q] * stages[q, i]
             new[i] = u[i] + h * total
-        _augmented_rhs(new, t + h, piece, n, net, cond, params, stages[6], work)
+        _augmented_rhs(new, t + h, t, piece, n, net, cond, params, stages[6], work)
         error = 0.0
         finite = True
         for i in range(size):
@@ -215,6 +227,6 @@ def dopri_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
         if t >= stop:  # the inflow (or dT/dt) jumps here: the next step starts from the new derivative
             piece = dose_piece(cond, t)
             stop = next_stop(cond, t)
-            _augmented_rhs(u, t, piece, n, net, cond, params, stages[0], work)
+            _augmented_rhs(u, t, t, piece, n, net, cond, params, stages[0], work)
         h *= 10.0 if error == 0.0 else min(10.0, 0.9 * error**-0.2)
     return DONE

@@ -19,6 +19,9 @@ K_j exp(-(dH_j/R) x) and K_ji exp(-(dH_ji/R) x), with x = 1/T(t) - 1/T_n and l =
 Rates: r_j = [k_j prod_i c_i^a_ji - (k_j / K_j) prod_i c_i^b_ji] / D_j^n_j (second term only for reversible
 steps), with D_j = 1 + sum_i K_ji c_i for saturating laws (n_j > 0) and D_j = 1 otherwise;
 dc/dt = stoichiometry^T r. Negative concentrations (solver overshoot) are read as zero by the callers.
+
+A reaction held at equilibrium (``Kernel.held``; quasi-equilibrium) has no rate here: r_j = 0, and
+``stepping.hold_equilibrium`` keeps its reaction quotient at K_j instead.
 """
 
 from __future__ import annotations
@@ -39,7 +42,8 @@ class Kernel(NamedTuple):
     temperature exponents n_j (R,), dH_j/R (R,; zero for irreversible steps) and dH_ji/R (R, N) of the
     adsorption constants (all in K but n). For one run ``k``, ``inv_eq`` and the slopes are (R,)
     and ``ads`` and ``ads_enthalpy`` (R, N); for a study (``network_kernel``) they carry a leading run axis (the
-    slopes too, so that draws can be runs), and ``run_kernel`` takes one run's view."""
+    slopes too, so that draws can be runs), and ``run_kernel`` takes one run's view. ``held``: the reaction held at
+    equilibrium, -1 for none."""
 
     k: np.ndarray
     inv_eq: np.ndarray
@@ -53,6 +57,7 @@ class Kernel(NamedTuple):
     exponent: np.ndarray
     eq_enthalpy: np.ndarray
     ads_enthalpy: np.ndarray
+    held: int = -1
 
 
 class Sensitivities(NamedTuple):
@@ -80,6 +85,7 @@ def run_kernel(kernel, r):
         kernel.exponent[r],
         kernel.eq_enthalpy[r],
         kernel.ads_enthalpy[r],
+        kernel.held,
     )
 
 
@@ -148,6 +154,10 @@ def rates_and_jacobian(c, net, x, log_ratio, rate, forward_rate, reverse_rate, d
     forward, reverse, inhibition = net.forward, net.reverse, net.inhibition
     n_reactions, n_species = forward.shape
     for j in range(n_reactions):
+        if j == net.held:
+            rate[j] = forward_rate[j] = reverse_rate[j] = 0.0
+            dr_dc[j, :] = 0.0
+            continue
         k = net.k[j]
         inv_eq = net.inv_eq[j]
         if x != 0.0 or log_ratio != 0.0:

@@ -77,7 +77,9 @@ class Network:
     reverse_orders[j, i]: order of the reverse rate (mass action: product coefficients);
     reversible[j]: whether reaction j has a reverse rate k_j / K_j;
     inhibition[j]: exponent n of the saturation term (1 + sum_m K_jm c_m)^n dividing reaction j's rate, 0 for
-    laws without one; adsorption_sites: the (reaction j, species m) pairs with an adsorption constant K_jm.
+    laws without one; adsorption_sites: the (reaction j, species m) pairs with an adsorption constant K_jm;
+    held: the reversible reaction held at equilibrium (quasi-equilibrium: it has no rate, its K_c ties its species
+    together at every instant), -1 for none.
     """
 
     species: tuple[str, ...]
@@ -88,6 +90,7 @@ class Network:
     reversible: np.ndarray
     inhibition: np.ndarray | None = None
     adsorption_sites: tuple[tuple[int, int], ...] = ()
+    held: int = -1
 
     def __post_init__(self) -> None:
         if self.inhibition is None:
@@ -115,12 +118,14 @@ def build_network(
     equations: tuple[Equation, ...],
     orders: tuple[dict[str, float], ...] | None = None,
     saturation: tuple[tuple[float, tuple[str, ...]], ...] | None = None,
+    held: int = -1,
 ) -> Network:
     """Matrices from parsed equations; every species named must be in ``species`` (checked by the caller).
 
     ``orders`` optionally gives each reaction's forward orders by species (power laws); by default they are
     the reactants' stoichiometric coefficients (mass action). ``saturation`` gives, per reaction, the
-    inhibition exponent and the species with adsorption constants (exponent 0 and no species: none).
+    inhibition exponent and the species with adsorption constants (exponent 0 and no species: none). ``held`` is
+    the index of a reversible reaction held at equilibrium (-1: none).
     """
     index = {name: i for i, name in enumerate(species)}
     shape = (len(equations), len(species))
@@ -146,7 +151,28 @@ def build_network(
         sites += [(j, index[name]) for name in adsorbed]
     for matrix in (stoichiometry, forward, reverse, reversible, inhibition):
         matrix.setflags(write=False)
-    return Network(species, reactions, stoichiometry, forward, reverse, reversible, inhibition, tuple(sites))
+    if held >= 0 and not reversible[held]:
+        raise EquationError("only a reversible step ('<=>') can be held at equilibrium")
+    return Network(species, reactions, stoichiometry, forward, reverse, reversible, inhibition, tuple(sites), held)
+
+
+#: What to do when a run cannot start at the held reaction's equilibrium (``held_start_blocked``).
+HELD_START_HINT = "a step held at equilibrium needs one side of it present at the start (or give it a rate instead)"
+
+
+def held_start_blocked(network: Network, initial: np.ndarray, present: tuple[int, ...] = ()) -> tuple[str, str] | None:
+    """(a reactant, a product) of the held reaction that both start at zero in ``initial`` (N,), ignoring the
+    species in ``present`` (their initial concentration is fitted, so positive): no extent of the reaction then
+    reaches its equilibrium. None where it can start, or where no reaction is held."""
+    if network.held < 0:
+        return None
+    row = network.stoichiometry[network.held]
+    absent = [i for i in range(len(network.species)) if initial[i] <= 0 and i not in present]
+    reactants = [i for i in absent if row[i] < 0]
+    products = [i for i in absent if row[i] > 0]
+    if reactants and products:
+        return network.species[reactants[0]], network.species[products[0]]
+    return None
 
 
 _FORMULA_TOKEN = re.compile(r"([A-Z][a-z]?|\(|\)|\d+)")

@@ -15,8 +15,7 @@ import numba
 import numpy as np
 
 from .conditions import dose_piece, next_stop
-from .kinetics import INITIAL, parameter_rate
-from .stepping import DONE, FAILED, evaluate, initial_sensitivities, lu_factor, lu_solve, record_start, rms
+from .stepping import DONE, FAILED, evaluate, lu_factor, lu_solve, parameter_source, record_start, rms, start_state
 
 _S6 = math.sqrt(6.0)
 #: Radau IIA(5) nodes and coefficient matrix (Hairer and Wanner, table IV.5.6).
@@ -36,13 +35,28 @@ NEWTON_MAX = 7
 
 
 @numba.njit(cache=True)
-def _evaluate_stage(y, z, bi, t, piece, net, cond, stage, fz, jz, rate, forward_rate, reverse_rate, dr_dc, c):
+def _evaluate_stage(
+    y, z, bi, t, start, piece, net, cond, stage, fz, jz, rate, forward_rate, reverse_rate, dr_dc, c, hold
+):
     """Rates and Jacobian at stage ``bi`` of a Radau step (the state y + z[bi] at time t), into that stage's
     slots; returns the temperature terms there."""
     for i in range(y.shape[0]):
         stage[i] = y[i] + z[bi, i]
     return evaluate(
-        stage, t, piece, net, cond, fz[bi], jz[bi], rate[bi], forward_rate[bi], reverse_rate[bi], dr_dc, c[bi]
+        stage,
+        t,
+        start,
+        piece,
+        net,
+        cond,
+        fz[bi],
+        jz[bi],
+        rate[bi],
+        forward_rate[bi],
+        reverse_rate[bi],
+        dr_dc,
+        c[bi],
+        hold[bi],
     )
 
 
@@ -56,7 +70,7 @@ def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
     Returns DONE, or FAILED when the step count or step size runs out or a value stops being finite.
     """
     rtol, atol, max_steps = tolerances.rtol, tolerances.atol, tolerances.max_steps
-    stoichiometry, forward = net.stoichiometry, net.forward
+    forward = net.forward
     kinds, param_reaction, param_species = params.kind, params.reaction, params.species
     n_reactions, n = forward.shape
     n_params = kinds.shape[0]
@@ -64,8 +78,7 @@ def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
     for i in range(3):
         for j in range(3):
             a[i, j] = A[i, j]
-    y = y0.copy()
-    s = initial_sensitivities(params, n)
+    y, s = start_state(y0, net, cond, params)
     f0 = np.empty(n)
     jac0 = np.empty((n, n))
     fz = np.empty((3, n))
@@ -75,6 +88,8 @@ def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
     reverse_rate = np.empty((3, n_reactions))
     dr_dc = np.empty((n_reactions, n))
     c = np.empty((3, n))
+    hold = np.empty((3, n + 2))
+    theta = np.empty(n)
     newton_tol = max(10.0 * 2.220446049250313e-16 / rtol, min(0.03, math.sqrt(rtol)))
     newton = np.empty((3 * n, 3 * n))
     newton_piv = np.empty(3 * n, dtype=np.int64)
@@ -95,7 +110,7 @@ def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
     if out_index == times.shape[0]:
         return DONE
 
-    evaluate(y, 0.0, 0, net, cond, f0, jac0, rate[0], forward_rate[0], reverse_rate[0], dr_dc, c[0])
+    evaluate(y, 0.0, 0.0, 0, net, cond, f0, jac0, rate[0], forward_rate[0], reverse_rate[0], dr_dc, c[0], hold[0])
     for i in range(n):
         scale[i] = atol + rtol * abs(y[i])
     d0 = rms(y, scale)
@@ -120,7 +135,7 @@ def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
             landing = True
         if not (h > 1e-14 * max(target, 1.0)):
             return FAILED
-        evaluate(y, t, piece, net, cond, f0, jac0, rate[0], forward_rate[0], reverse_rate[0], dr_dc, c[0])
+        evaluate(y, t, t, piece, net, cond, f0, jac0, rate[0], forward_rate[0], reverse_rate[0], dr_dc, c[0], hold[0])
         # Simplified Newton on Z = h (A x I) F(y + Z), matrix I - h A x J(y).
         for bi in range(3):
             for bj in range(3):
@@ -146,7 +161,23 @@ def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
             finite = True
             for bi in range(3):
                 _evaluate_stage(
-                    y, z, bi, t + C[bi] * h, piece, net, cond, stage, fz, jz, rate, forward_rate, reverse_rate, dr_dc, c
+                    y,
+                    z,
+                    bi,
+                    t + C[bi] * h,
+                    t,
+                    piece,
+                    net,
+                    cond,
+                    stage,
+                    fz,
+                    jz,
+                    rate,
+                    forward_rate,
+                    reverse_rate,
+                    dr_dc,
+                    c,
+                    hold,
                 )
                 for i in range(n):
                     if not math.isfinite(fz[bi, i]):
@@ -212,7 +243,23 @@ def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
         if n_params > 0:
             for bi in range(3):
                 temperature_x[bi], temperature_l[bi] = _evaluate_stage(
-                    y, z, bi, t + C[bi] * h, piece, net, cond, stage, fz, jz, rate, forward_rate, reverse_rate, dr_dc, c
+                    y,
+                    z,
+                    bi,
+                    t + C[bi] * h,
+                    t,
+                    piece,
+                    net,
+                    cond,
+                    stage,
+                    fz,
+                    jz,
+                    rate,
+                    forward_rate,
+                    reverse_rate,
+                    dr_dc,
+                    c,
+                    hold,
                 )
             for bi in range(3):
                 for bj in range(3):
@@ -224,12 +271,10 @@ def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
             if not lu_factor(newton, newton_piv):
                 return FAILED
             for p in range(n_params):
-                kind = kinds[p]
-                j = param_reaction[p]
                 for bj in range(3):
-                    theta = parameter_rate(
-                        kind,
-                        j,
+                    parameter_source(
+                        kinds[p],
+                        param_reaction[p],
                         param_species[p],
                         c[bj],
                         net,
@@ -238,13 +283,13 @@ def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
                         reverse_rate[bj],
                         temperature_x[bj],
                         temperature_l[bj],
+                        hold[bj],
+                        theta,
                     )
                     for i in range(n):
-                        total = 0.0
+                        total = theta[i]
                         for m in range(n):
                             total += jz[bj, i, m] * s[p, m]
-                        if kind != INITIAL:
-                            total += stoichiometry[j, i] * theta
                         source[bj, i] = total
                 for bi in range(3):
                     for i in range(n):

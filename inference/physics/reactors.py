@@ -42,7 +42,17 @@ def _rate_terms(network: Network, one: ParameterDraws, kelvin: float, c: np.ndar
     scratch = (np.empty(n_reactions), np.empty(n_reactions), np.empty(n_reactions), np.empty((n_reactions, n)))
     conditions = run_conditions(isothermal_conditions(np.array([kelvin]), n), 0)
     evaluate(
-        np.ascontiguousarray(c, dtype=float), 0.0, 0, run_kernel(kernel, 0), conditions, f, jac, *scratch, np.empty(n)
+        np.ascontiguousarray(c, dtype=float),
+        0.0,
+        0.0,
+        0,
+        run_kernel(kernel, 0),
+        conditions,
+        f,
+        jac,
+        *scratch,
+        np.empty(n),
+        np.empty(n + 2),
     )
     return f, jac
 

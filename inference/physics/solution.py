@@ -112,6 +112,7 @@ def network_kernel(network: Network, inputs: KineticInputs) -> Kernel:
         ads,
         network.inhibition,
         *_slope_arrays(network, inputs, k.shape[0]),
+        network.held,
     )
 
 

@@ -29,8 +29,10 @@ NEWTON_TOLERANCE = 1e-13
 @numba.njit(cache=True)
 def _residual(y, feed, horizon, piece, net, cond, f, jac, work):
     """g(y) and dg/dc at y; the inflow is taken from ``feed`` (the run's feed, which may be a fitted value)."""
-    rate, forward_rate, reverse_rate, dr_dc, c = work
-    x, log_ratio = evaluate(y, horizon, piece, net, cond, f, jac, rate, forward_rate, reverse_rate, dr_dc, c)
+    rate, forward_rate, reverse_rate, dr_dc, c, hold = work
+    x, log_ratio = evaluate(
+        y, horizon, horizon, piece, net, cond, f, jac, rate, forward_rate, reverse_rate, dr_dc, c, hold
+    )
     flow, volume = cond.dose_flow[piece], cond.dose_volume[piece]
     for i in range(y.shape[0]):
         f[i] += (flow * feed[i] - cond.dose_inflow[piece, i]) / volume
@@ -56,7 +58,10 @@ def steady_state_run(feed, start, times, net, cond, params, tolerances, out_c, o
         np.empty(n_reactions),
         np.empty((n_reactions, n)),
         np.empty(n),
+        np.empty(n + 2),
     )
+    if net.held >= 0:  # a reaction held at equilibrium is not part of the steady-state equations (refused upstream)
+        return FAILED
     scale = max(np.max(feed), 1e-300)
     converged = False
     for _ in range(NEWTON_ITERATIONS):

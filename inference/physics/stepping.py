@@ -1,5 +1,13 @@
-"""What the compiled integrators share: outcome codes, dense LU, the network's right-hand side with its Jacobian,
-error norms, and the start of a run. Compiled with numba; plain arrays only.
+"""What the compiled integrators share: outcome codes, dense LU, the network's right-hand side with its Jacobian
+and its parameter derivatives, error norms, and the start of a run. Compiled with numba; plain arrays only.
+
+A reaction held at equilibrium (``Kernel.held``, the quasi-equilibrium approximation: P. Atkins and J. de Paula,
+"Atkins' Physical Chemistry", 8th ed., Oxford University Press, 2006, sec. 22.7, "Pre-equilibria"; the section
+number is from memory) has its reaction quotient kept at K(T): with s its stoichiometry row and
+g(c) = sum_i s_i ln c_i - ln K, the state moves on g = 0. The right-hand side v of the other reactions (and the
+dosing) is projected along s, f = v + s xi with xi = (d ln K/dt - w.v) / (w.s), w_i = s_i / c_i, so that
+dg/dt = 0 (a projected index-1 system; its drift off g = 0 is of the order of the integration tolerance), and
+the start is brought onto g = 0 by the extent of that reaction (``start_state``).
 """
 
 from __future__ import annotations
@@ -10,8 +18,8 @@ from typing import NamedTuple
 import numba
 import numpy as np
 
-from .conditions import temperature_terms, volume_at
-from .kinetics import INITIAL, rates_and_jacobian
+from .conditions import temperature_rate, temperature_terms, volume_at
+from .kinetics import EQ_ENTHALPY, INITIAL, LN_EQ, parameter_rate, rates_and_jacobian
 
 #: Outcomes of a run's integration; STIFF: the explicit pair stopped because the run is stiff.
 FAILED, DONE, STIFF = 0, 1, 2
@@ -70,10 +78,74 @@ def lu_solve(lu, pivots, b):
         b[i] = total / lu[i, i]
 
 
+#: Concentrations of a held reaction's species are read as at least this in its projection (w_i = s_i / c_i).
+HELD_FLOOR = 1e-30
+
+
 @numba.njit(cache=True)
-def evaluate(y, t, piece, net, cond, f, jac, rate, forward_rate, reverse_rate, dr_dc, c):
+def hold_equilibrium(y, t, start, net, cond, f, jac, hold):
+    """Project f and jac (the right-hand side without the held reaction, and its Jacobian) so that reaction
+    ``net.held`` stays at equilibrium; ``hold`` (N + 2) receives w (N), w.s and dx/dt for ``parameter_source``."""
+    held = net.held
+    n = y.shape[0]
+    s = net.stoichiometry[held]
+    ws = 0.0
+    wf = 0.0
+    for i in range(n):
+        hold[i] = s[i] / max(y[i], HELD_FLOOR) if s[i] != 0.0 else 0.0
+        ws += hold[i] * s[i]
+        wf += hold[i] * f[i]
+    dx_dt = temperature_rate(cond, t, start)
+    hold[n] = ws
+    hold[n + 1] = dx_dt
+    xi = (-net.eq_enthalpy[held] * dx_dt - wf) / ws
+    for m in range(n):
+        d_wf = 0.0
+        for k in range(n):
+            d_wf += hold[k] * jac[k, m]
+        d_ws = 0.0
+        if s[m] != 0.0 and y[m] > HELD_FLOOR:
+            d_w = -hold[m] / y[m]  # d w_m / d c_m
+            d_wf += f[m] * d_w
+            d_ws = s[m] * d_w
+        d_xi = (-d_wf - xi * d_ws) / ws
+        for i in range(n):
+            jac[i, m] += s[i] * d_xi
+    for i in range(n):
+        f[i] += s[i] * xi
+
+
+@numba.njit(cache=True)
+def parameter_source(kind, j, species, c, net, rate, forward_rate, reverse_rate, x, log_ratio, hold, out):
+    """d f / d theta (N,) into ``out`` for the sensitivity parameter (``kind``, reaction j, ``species``), from
+    the rates of ``evaluate`` at concentrations c (and ``hold`` where a reaction is held); zero for ``INITIAL``."""
+    n = out.shape[0]
+    stoichiometry = net.stoichiometry
+    held = net.held
+    if kind == INITIAL:
+        out[:] = 0.0
+        return
+    if j == held and kind == EQ_ENTHALPY:  # ln K moves with T: d xi / d(dH/R) = -dx/dt / (w.s)
+        for i in range(n):
+            out[i] = -stoichiometry[held, i] * hold[n + 1] / hold[n]
+        return
+    theta = parameter_rate(kind, j, species, c, net, rate, forward_rate, reverse_rate, x, log_ratio)
+    for i in range(n):
+        out[i] = stoichiometry[j, i] * theta
+    if held >= 0:
+        along = 0.0
+        for i in range(n):
+            along += hold[i] * out[i]
+        along /= hold[n]
+        for i in range(n):
+            out[i] -= stoichiometry[held, i] * along
+
+
+@numba.njit(cache=True)
+def evaluate(y, t, start, piece, net, cond, f, jac, rate, forward_rate, reverse_rate, dr_dc, c, hold):
     """f = dc/dt and jac = d f / d c at concentrations y (negative values read as zero in the rates) and time t,
-    within dosing interval ``piece`` of the run's conditions; returns the temperature terms (x, log_ratio) at t."""
+    in a step from ``start`` within dosing interval ``piece`` of the run's conditions, projected where a reaction
+    is held at equilibrium (``hold``: N + 2 of scratch); returns the temperature terms (x, log_ratio) at t."""
     stoichiometry = net.stoichiometry
     n_reactions, n_species = net.forward.shape
     for i in range(n_species):
@@ -97,6 +169,8 @@ def evaluate(y, t, piece, net, cond, f, jac, rate, forward_rate, reverse_rate, d
         for i in range(n_species):
             f[i] += (inflow[i] - flow * y[i]) / volume
             jac[i, i] -= flow / volume
+    if net.held >= 0:
+        hold_equilibrium(c, t, start, net, cond, f, jac, hold)
     return x, log_ratio
 
 
@@ -110,13 +184,77 @@ def rms(values, scale):
 
 
 @numba.njit(cache=True)
-def initial_sensitivities(params, n):
-    """d c(0) / d parameter (P, N): a unit vector for each uncertain initial concentration, zero otherwise."""
+def _held_extent(y0, s, ln_eq):
+    """The extent xi with sum_i s_i ln(y0_i + s_i xi) = ln_eq, all concentrations positive (Newton's method
+    kept inside a shrinking bracket); 0 when no such extent exists (a reactant and a product both absent)."""
+    low, high = -math.inf, math.inf
+    for i in range(y0.shape[0]):
+        if s[i] > 0.0:
+            low = max(low, -y0[i] / s[i])
+        elif s[i] < 0.0:
+            high = min(high, y0[i] / -s[i])
+    if not low < high:
+        return 0.0
+    xi = 0.5 * (low + high)
+    for _ in range(200):
+        g = -ln_eq
+        slope = 0.0
+        for i in range(y0.shape[0]):
+            if s[i] != 0.0:
+                value = y0[i] + s[i] * xi
+                g += s[i] * math.log(value)
+                slope += s[i] * s[i] / value
+        if g > 0.0:
+            high = xi
+        else:
+            low = xi
+        step = g / slope
+        proposal = xi - step
+        if not (low < proposal < high):
+            proposal = 0.5 * (low + high)
+        if proposal == xi or abs(proposal - xi) <= 1e-15 * (abs(xi) + abs(high - low)):
+            return proposal
+        xi = proposal
+    return xi
+
+
+@numba.njit(cache=True)
+def start_state(y0, net, cond, params):
+    """The state at t = 0 and d c(0) / d parameter (P, N): a unit vector for each uncertain initial
+    concentration; where a reaction is held, y0 brought to its equilibrium, with the sensitivities of that."""
+    n = y0.shape[0]
+    y = y0.copy()
     s = np.zeros((params.kind.shape[0], n))
     for p in range(params.kind.shape[0]):
         if params.kind[p] == INITIAL:
             s[p, params.species[p]] = 1.0
-    return s
+    held = net.held
+    if held < 0:
+        return y, s
+    row = net.stoichiometry[held]
+    x, _ = temperature_terms(cond, 0.0)
+    ln_eq = -math.log(net.inv_eq[held]) - net.eq_enthalpy[held] * x
+    xi = _held_extent(y0, row, ln_eq)
+    w = np.zeros(n)
+    ws = 0.0
+    for i in range(n):
+        y[i] = y0[i] + row[i] * xi
+        if row[i] != 0.0:
+            w[i] = row[i] / max(y[i], HELD_FLOOR)
+            ws += w[i] * row[i]
+    for p in range(params.kind.shape[0]):
+        kind = params.kind[p]
+        if kind == INITIAL:  # d xi / d y0_m = -w_m / (w.s)
+            d_xi = -w[params.species[p]] / ws
+        elif kind == LN_EQ and params.reaction[p] == held:
+            d_xi = 1.0 / ws
+        elif kind == EQ_ENTHALPY and params.reaction[p] == held:
+            d_xi = -x / ws
+        else:
+            continue
+        for i in range(n):
+            s[p, i] += row[i] * d_xi
+    return y, s
 
 
 @numba.njit(cache=True)

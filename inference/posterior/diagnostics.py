@@ -163,7 +163,8 @@ def assess(
         )
 
     advice += confounded_factors(idata.posterior)
-    advice += unpinned_fast_steps(idata.posterior)
+    held = tuple(spec.name for spec in problem.study.reactions if spec.held) if problem is not None else ()
+    advice += unpinned_fast_steps(idata.posterior, held)
     if solver_failures > 0.01 * chains * draws:
         advice.append(
             f"{solver_failures} integrations failed during sampling (those proposals were rejected): "
@@ -228,14 +229,17 @@ def _scalar_draws(posterior, names: tuple[str, ...], logged: tuple[str, ...]) ->
 UNPINNED_SHARE, PINNED_SHARE = 0.7, 0.5
 
 
-def unpinned_fast_steps(posterior) -> list[str]:
+def unpinned_fast_steps(posterior, held: tuple[str, ...] = ()) -> list[str]:
     """Advice naming each reversible step whose equilibrium constant the data pin but whose rate they do not:
     the step equilibrates faster than the runs were sampled. The standardised variables (z_ln_k_ref,
-    z_ln_K_ref; N(0, 1) priors) give the posterior-to-prior sd ratios directly."""
+    z_ln_K_ref; N(0, 1) priors) give the posterior-to-prior sd ratios directly. Steps already ``held`` at
+    equilibrium have no rate and are not named."""
     if "z_ln_K_ref" not in posterior or "z_ln_k_ref" not in posterior:
         return []
     advice = []
     for step in posterior["z_ln_K_ref"].coords["reversible"].values:
+        if step in held:
+            continue
         rate = float(posterior["z_ln_k_ref"].sel(reaction=step).std())
         equilibrium = float(posterior["z_ln_K_ref"].sel(reversible=step).std())
         if rate >= UNPINNED_SHARE and equilibrium <= PINNED_SHARE:
@@ -243,8 +247,8 @@ def unpinned_fast_steps(posterior) -> list[str]:
                 f"the data pin the equilibrium constant of '{step}' (posterior sd of ln K_ref {equilibrium:.2f} of "
                 f"its prior's) but not its rate (posterior sd of ln k_ref {rate:.2f} of its prior's): the step "
                 "equilibrates faster than the runs were sampled, so its k_ref and Ea are the priors'. Report K, "
-                "not k; a narrower prior on k_ref (upper end where the step is fast enough) shortens sampling, "
-                "since large draws of k make the profiles stiff."
+                "not k; declare the step 'fast_equilibrium: true' (held at equilibrium: K_ref and dH only, no "
+                "stiff profiles), or narrow its k_ref prior to where the step is fast enough."
             )
     return advice
 
@@ -429,7 +433,7 @@ def _piled_against_bounds(problem: Problem, posterior) -> list[dict]:
     energy = study.units.energy
     findings = []
     for spec in study.reactions:
-        if "Ea" in posterior:
+        if "Ea" in posterior and not spec.held:
             mean, sd = spec.prior.ea_mean, spec.prior.ea_sd
             draws = posterior["Ea"].sel(reaction=spec.name).values
             prior_q = float(stats.truncnorm(-mean / sd, np.inf, loc=mean, scale=sd).ppf(q))

@@ -335,6 +335,7 @@ def per_temperature_fits(
     exact = obs.censored == ""
     valid = exact & (obs.value > 0 if log else np.isfinite(obs.value))
     names = study.reaction_names
+    rated = [spec.name for spec in study.reactions if not spec.held]
     records, dropped, missing = [], [], []
     for kelvin, runs in levels:
         rows = np.flatnonzero(np.isin(obs.run_index, runs) & valid)
@@ -360,17 +361,19 @@ def per_temperature_fits(
         at = f"{kelvin:.2f} K"
         if rows.size == 0:
             dropped.append(f"No point at {at}: its runs have no exact measured values.")
-            missing += [(name, kelvin) for name in names]
+            missing += [(name, kelvin) for name in rated]
             continue
         observed = obs.value[rows] if not log else np.log(obs.value[rows])
         try:
             ln_k, fisher, informed = _fit_level(level, start, observed, sigma_all[rows], study)
         except SolverFailure:
             dropped.append(f"No point at {at}: its runs cannot be integrated at the posterior median.")
-            missing += [(name, kelvin) for name in names]
+            missing += [(name, kelvin) for name in rated]
             continue
         sd = _laplace_sd(fisher, informed)
         for j, name in enumerate(names):
+            if study.reactions[j].held:  # held at equilibrium: no rate constant
+                continue
             at_edge = abs(ln_k[j] - start[j]) > SEARCH_HALF_WIDTH - 1e-6
             if not np.isfinite(sd[j]) or sd[j] > MAX_SD or at_edge:
                 why = "no information" if not np.isfinite(sd[j]) else f"sd of ln k {sd[j]:.2g}"
@@ -382,7 +385,7 @@ def per_temperature_fits(
             records.append((name, kelvin, float(ln_k[j]), float(sd[j]), int(runs.size), study.reactions[j].k_unit))
     table = pd.DataFrame.from_records(records, columns=list(COLUMNS))
     curvature, untested = [], []
-    for name in names:
+    for name in rated:
         rows = table[table["step"] == name]
         if len(rows) < 3:
             untested.append(name)

@@ -67,6 +67,10 @@ def derived_quantities(
     quantities: dict[str, tuple[str, xr.DataArray]] = {}
     for j, spec in enumerate(study.reactions):
         name = spec.name
+        if spec.equilibrium is not None:
+            quantities |= _equilibrium_quantities(spec, posterior, energy)
+        if spec.held:  # no rate: its k_ref and Ea are placeholders no data inform
+            continue
         ln_k_ref = posterior["ln_k_ref"].sel(reaction=name, drop=True)
         ea = posterior["Ea"].sel(reaction=name, drop=True)
         exponent = (
@@ -87,12 +91,6 @@ def derived_quantities(
             quantities[k_at_label(name, kelvin, study.units.temperature)] = (
                 spec.k_unit,
                 np.exp(ln_rate_constant(kelvin, ln_k_ref, ea, temperature_ref, exponent)),
-            )
-        if spec.equilibrium is not None:
-            quantities[f"K_ref[{name}]"] = (spec.eq_unit, np.exp(posterior["ln_K_ref"].sel(reversible=name, drop=True)))
-            quantities[f"dH[{name}]"] = (
-                energy,
-                units.joule_per_mol_to(posterior["dH"].sel(reversible=name, drop=True), energy),
             )
         for fitted in spec.fitted_orders:
             label = f"{name}:{fitted.species}"
@@ -134,6 +132,15 @@ def derived_quantities(
         else:
             quantities["sigma"] = (unit or "", sigma)
     return quantities
+
+
+def _equilibrium_quantities(spec: ReactionSpec, posterior: xr.Dataset, energy: str) -> dict:
+    """K_ref (K_c at T_ref) and dH of a reversible step."""
+    name = spec.name
+    return {
+        f"K_ref[{name}]": (spec.eq_unit, np.exp(posterior["ln_K_ref"].sel(reversible=name, drop=True))),
+        f"dH[{name}]": (energy, units.joule_per_mol_to(posterior["dH"].sel(reversible=name, drop=True), energy)),
+    }
 
 
 def _law_quantities(study: Study, spec: ReactionSpec, posterior: xr.Dataset, ln_k_ref: xr.DataArray) -> dict:
@@ -228,7 +235,7 @@ def correlation_table(study: Study, posterior: xr.Dataset, temperature_ref: floa
     The first is typically close to 1: that is why Arrhenia samples ln k_ref at T_ref rather than ln A.
     """
     rows = []
-    for name in study.reaction_names:
+    for name in (spec.name for spec in study.reactions if not spec.held):
         ln_k_ref = posterior["ln_k_ref"].sel(reaction=name).values.ravel()
         ea = posterior["Ea"].sel(reaction=name).values.ravel()
         ln_a = ln_pre_exponential(ln_k_ref, ea, temperature_ref)

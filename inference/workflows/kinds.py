@@ -111,11 +111,14 @@ def _prior_lines(study: Study) -> list[str]:
     lines = []
     for spec in study.reactions:
         p = spec.prior
-        line = (
-            f"    {spec.name}: {spec.equation + ', ' if spec.equation else ''}{spec.rate_law}; "
-            f"k_ref ~ {lognormal_text(p.ln_k_ref_mean, p.ln_k_ref_sd, spec.k_unit)}; "
-            f"Ea ~ {normal_text(p.ea_mean, p.ea_sd, energy)} truncated > 0"
-        )
+        line = f"    {spec.name}: {spec.equation + ', ' if spec.equation else ''}"
+        if spec.held:
+            line += "held at equilibrium (fast_equilibrium; quasi-equilibrium, no rate constant)"
+        else:
+            line += (
+                f"{spec.rate_law}; k_ref ~ {lognormal_text(p.ln_k_ref_mean, p.ln_k_ref_sd, spec.k_unit)}; "
+                f"Ea ~ {normal_text(p.ea_mean, p.ea_sd, energy)} truncated > 0"
+            )
         if spec.equilibrium is not None:
             q = spec.equilibrium
             line += (
@@ -413,9 +416,10 @@ class NetworkProblem:
             f"reversible step '{study.reactions[j].name}': at the priors' centre it relaxes about {fastest[e]:.0f} "
             "times faster than the first sample of any run, so the data can show its equilibrium constant but "
             "hardly its rate (its k_ref and Ea will follow their priors, and draws of a large k make the profiles "
-            "stiff and sampling slow); narrow its k_ref prior to where the step is fast enough"
+            "stiff and sampling slow); declare it 'fast_equilibrium: true' (held at equilibrium: K_ref and dH "
+            "only), or narrow its k_ref prior to where the step is fast enough"
             for e, j in enumerate(reversible)
-            if fastest[e] > FAST_RELAXATION
+            if fastest[e] > FAST_RELAXATION and j != network.held
         ]
 
     def _factor_notes(self) -> list[str]:

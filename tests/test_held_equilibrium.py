@@ -1,0 +1,154 @@
+"""A reversible step held at equilibrium (the quasi-equilibrium approximation) against a closed form, the full
+stiff network solved by scipy's Radau, and finite differences of its own solver."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy.integrate import solve_ivp
+
+from inference.physics.conditions import Feed, RunSetup, build_conditions
+from inference.physics.network import EquationError, build_network, parse_equation
+from inference.physics.parameters import KineticInputs, SensitivityLayout
+from inference.physics.solution import NetworkSolver, SolverSettings
+
+BINDING = ("S + Cat <=> SCat", "SCat -> P + Cat")
+SPECIES = ("S", "Cat", "SCat", "P")
+
+
+def held_network(species, equations, held):
+    parsed = tuple(parse_equation(e) for e in equations)
+    return build_network(tuple(species), tuple(f"r{j}" for j in range(len(parsed))), parsed, held=held)
+
+
+def inputs(ln_k, ln_eq, initial, orders, slopes=None):
+    ln_k, ln_eq, initial = (np.atleast_2d(np.asarray(v, dtype=float)) for v in (ln_k, ln_eq, initial))
+    return KineticInputs(ln_k, ln_eq, np.zeros((1, 0)), orders, initial, *(slopes or ()))
+
+
+def test_a_held_step_follows_the_closed_form_of_the_pre_equilibrium():
+    # A <=> B held at K = c_B / c_A, B -> C with k: c_A + c_B = X0 exp(-k K t / (1 + K)) and c_B = K/(1 + K) of it
+    # (follows from the two definitions; the pre-equilibrium result of Atkins' Physical Chemistry, sec. 22.7).
+    net = held_network("ABC", ("A <=> B", "B -> C"), held=0)
+    times = np.array([0.0, 0.5, 2.0, 5.0, 10.0])
+    k, big_k = 0.3, 4.0
+    solver = NetworkSolver(net, [times])
+    result = solver.solve(inputs([[0.0, np.log(k)]], [[np.log(big_k)]], [[1.0, 0.0, 0.0]], net.forward_orders))
+    total = np.exp(-k * big_k / (1 + big_k) * times)
+    c = result.concentrations[0]
+    np.testing.assert_allclose(c[:, 0], total / (1 + big_k), rtol=1e-6)
+    np.testing.assert_allclose(c[:, 1], total * big_k / (1 + big_k), rtol=1e-6)
+    np.testing.assert_allclose(c[:, 2], 1.0 - total, rtol=1e-6, atol=1e-9)
+    # The rate constant of the held step plays no part.
+    other = solver.solve(inputs([[9.0, np.log(k)]], [[np.log(big_k)]], [[1.0, 0.0, 0.0]], net.forward_orders))
+    np.testing.assert_array_equal(other.concentrations[0], c)
+
+
+def full_binding_model(k_on, big_k, k_cat, kelvin_at=None, enthalpy_over_r=0.0, activation_over_r=0.0, t_n=None):
+    """The stiff network written out for scipy: S + Cat <=> SCat (k_on, k_on / K), SCat -> P + Cat (k_cat), with
+    K and k_cat moving with T(t) when ``kelvin_at`` is given (van 't Hoff and Arrhenius about T_n)."""
+
+    def rhs(t, y):
+        s, cat, scat, _ = y
+        x = 0.0 if kelvin_at is None else 1.0 / kelvin_at(t) - 1.0 / t_n
+        eq = big_k * np.exp(-enthalpy_over_r * x)
+        slow = k_cat * np.exp(-activation_over_r * x)
+        bind = k_on * (s * cat - scat / eq)
+        turn = slow * scat
+        return [-bind, -bind + turn, bind - turn, turn]
+
+    return rhs
+
+
+def test_a_held_step_matches_the_full_stiff_network_it_stands_for():
+    # Binding 1e6 times faster than turnover: after the first instants the full network sits on the equilibrium
+    # manifold and both descriptions give the same profiles (to the size of the neglected relaxation, ~1e-5).
+    net = held_network(SPECIES, BINDING, held=0)
+    k_on, big_k, k_cat = 5e5, 50.0, 0.5
+    c0 = np.array([1.0, 0.02, 0.0, 0.0])
+    times = np.array([1.0, 5.0, 20.0, 60.0, 150.0])
+    reference = solve_ivp(
+        full_binding_model(k_on, big_k, k_cat),
+        (0.0, times[-1]),
+        c0,
+        method="Radau",
+        t_eval=times,
+        rtol=1e-10,
+        atol=1e-14,
+    )
+    solver = NetworkSolver(net, [times], settings=SolverSettings(rtol=1e-8))
+    result = solver.solve(inputs([[0.0, np.log(k_cat)]], [[np.log(big_k)]], [c0], net.forward_orders))
+    np.testing.assert_allclose(result.concentrations[0], reference.y.T, rtol=2e-4, atol=2e-7)
+
+
+def test_a_held_step_follows_its_constant_through_a_temperature_ramp_and_a_dose():
+    # A heat-up moves K (van 't Hoff) and k_cat (Arrhenius) while substrate is dosed: the held equilibrium
+    # follows K(T(t)) as the full stiff network does (scipy's Radau, dosing written out by hand).
+    net = held_network(SPECIES, BINDING, held=0)
+    k_on, big_k, k_cat, t_n = 5e5, 50.0, 0.2, 320.0
+    enthalpy_over_r, activation_over_r = -4000.0, 6000.0
+    programme = np.array([[0.0, 300.0], [40.0, 340.0], [120.0, 340.0]])
+    rate, feed_s, volume0 = 0.01, 2.0, 1.0
+    feeds = (Feed(10.0, 60.0, rate, np.array([feed_s, 0.0, 0.0, 0.0])),)
+    setup = RunSetup(programme, nominal_kelvin=t_n, volume=volume0, feeds=feeds)
+    kelvin_at = lambda t: float(np.interp(t, programme[:, 0], programme[:, 1]))  # noqa: E731
+    stiff = full_binding_model(k_on, big_k, k_cat, kelvin_at, enthalpy_over_r, activation_over_r, t_n)
+
+    def dosed(t, y):
+        flow = rate if 10.0 <= t < 60.0 else 0.0
+        volume = volume0 + rate * min(max(t - 10.0, 0.0), 50.0)
+        inflow = np.array([feed_s * flow, 0, 0, 0])
+        return np.asarray(stiff(t, y)) + (inflow - flow * y) / volume
+
+    c0 = np.array([0.5, 0.02, 0.0, 0.0])
+    times = np.array([5.0, 20.0, 40.0, 60.0, 90.0, 120.0])
+    reference = solve_ivp(dosed, (0.0, 120.0), c0, method="Radau", t_eval=times, rtol=1e-10, atol=1e-14, max_step=1.0)
+    layout = SensitivityLayout(net, temperature_varies=True)
+    solver = NetworkSolver(
+        net, [times], layout=layout, conditions=build_conditions([setup], 4), settings=SolverSettings(rtol=1e-8)
+    )
+    slopes = (np.array([0.0, activation_over_r]), np.array([enthalpy_over_r]), np.zeros(0), np.zeros(0))
+    free = inputs([[0.0, np.log(k_cat)]], [[np.log(big_k)]], np.zeros((1, 0)), np.zeros(0), slopes)
+    result = solver.solve(layout.expand(free, net.forward_orders, c0[None]))
+    np.testing.assert_allclose(result.concentrations[0], reference.y.T, rtol=5e-4, atol=2e-7)
+
+
+@pytest.mark.parametrize("ramped", [False, True])
+def test_sensitivities_of_a_held_step_match_finite_differences(ramped):
+    # ln k of the slow step, ln K of the held one, an uncertain initial concentration, and with a ramp Ea/R and dH/R.
+    net = held_network(SPECIES, BINDING, held=0)
+    times = np.array([0.0, 2.0, 10.0, 30.0])
+    programme = np.array([[0.0, 310.0], [30.0, 330.0]]) if ramped else np.array([[0.0, 320.0]])
+    setup = RunSetup(programme, nominal_kelvin=320.0)
+    layout = SensitivityLayout(net, free_initial=(1,), temperature_varies=ramped)
+    solver = NetworkSolver(
+        net, [times], layout=layout, conditions=build_conditions([setup], 4), settings=SolverSettings(rtol=1e-10)
+    )
+    base = np.array([np.log(0.3), np.log(40.0), 0.03, 5000.0, -3000.0])  # ln k_cat, ln K, Cat0, Ea/R, dH/R
+
+    def run(x, sensitivities=False):
+        slopes = (np.array([0.0, x[3]]), np.array([x[4]]), np.zeros(0), np.zeros(0)) if ramped else None
+        free = inputs([[0.0, x[0]]], [[x[1]]], [[x[2]]], np.zeros(0), slopes)
+        nominal = np.array([[0.8, 0.03, 0.0, 0.0]])
+        return solver.solve(layout.expand(free, net.forward_orders, nominal), sensitivities=sensitivities)
+
+    exact = run(base, sensitivities=True).sensitivities[0]
+    names = solver.parameter_names
+    used = [names.index(name) for name in ("ln_k[r1]", "ln_K[r0]", "c0[Cat]")]
+    steps = [1e-5, 1e-5, 1e-8]
+    if ramped:
+        used += [names.index("Ea/R[r1]"), names.index("dH/R[r0]")]
+        steps += [1e-2, 1e-2]
+    for column, (index, step) in enumerate(zip(used, steps, strict=True)):
+        up, down = base.copy(), base.copy()
+        up[column] += step
+        down[column] -= step
+        numeric = (run(up).concentrations[0] - run(down).concentrations[0]) / (2 * step)
+        np.testing.assert_allclose(exact[:, :, index], numeric, rtol=1e-4, atol=1e-8, err_msg=names[index])
+    # The held step's rate constant is no parameter of the profiles.
+    assert np.all(exact[:, :, names.index("ln_k[r0]")] == 0.0)
+
+
+def test_only_a_reversible_step_can_be_held():
+    with pytest.raises(EquationError, match="reversible"):
+        held_network("AB", ("A -> B",), held=0)
