@@ -513,7 +513,7 @@ def print_ratios(results: dict[str, dict[str, dict]], cores: int) -> None:
         against = ""
         if network_fit_row and network_fit_row.get("finished"):
             ratio = held["total_s"] / network_fit_row["total_s"]
-            against = f"; over the non-stiff network problem's whole fit {ratio:.2f} (target <= 1: {_verdict(ratio, 1)})"
+            against = f"; over the non-stiff network problem's whole fit {ratio:.2f} (<= 1: {_verdict(ratio, 1)})"
         print(f"  stiff, binding held at equilibrium: whole fit {held['total_s']:.0f} s{against}")
     for way, row in results.get("stiff", {}).items():
         if row.get("finished"):

@@ -17,6 +17,12 @@ def replace(old: str, new: str, text: str = BASE_STUDY) -> str:
 # (id, study text or None for the base, table text or None for the base, expected fragments of the message)
 CASES = [
     (
+        "held-step-in-a-rate-constant-study",
+        replace("    k_ref:", "    fast_equilibrium: true\n    k_ref:"),
+        None,
+        ["reactions[0].fast_equilibrium", "is for reaction networks"],
+    ),
+    (
         "yaml-syntax",
         replace("Ea: {mean: 80, sd: 30}", "Ea: {mean: 80, sd: 30"),
         None,
@@ -204,8 +210,68 @@ def net_replace(old: str, new: str) -> str:
     return replace(old, new, NETWORK_STUDY)
 
 
+HELD_STUDY = net_replace(
+    "    equation: A + B -> C\n    k_ref: {median: 0.1, factor: 10}\n    Ea: {mean: 60, sd: 20}\n",
+    "    equation: A + B <=> C\n    fast_equilibrium: true\n    K_ref: {median: 1, factor: 10}\n"
+    "    dH: {mean: 0, sd: 10}\n  - name: slow\n    equation: C -> D\n    k_ref: {median: 0.1, factor: 10}\n"
+    "    Ea: {mean: 60, sd: 20}\n",
+).replace("[A, B, C]", "[A, B, C, D]")
+HELD_RUNS = "run,temperature,A,B,C,D\nr1,50,1.0,1.2,0,0\nr2,60,0.8,1.0,0,0\n"
+
+
+def held_replace(old: str, new: str) -> str:
+    return replace(old, new, HELD_STUDY)
+
+
 # (id, study, runs, measurements, expected fragments)
 NETWORK_CASES = [
+    (
+        "held-irreversible",
+        held_replace("A + B <=> C", "A + B -> C"),
+        HELD_RUNS,
+        MEASUREMENTS,
+        ["reactions[0].fast_equilibrium", "only a reversible step"],
+    ),
+    (
+        "held-with-k_ref",
+        held_replace(
+            "    fast_equilibrium: true\n", "    fast_equilibrium: true\n    k_ref: {median: 1, factor: 10}\n"
+        ),
+        HELD_RUNS,
+        MEASUREMENTS,
+        ["reactions[0].k_ref", "has no rate constant"],
+    ),
+    (
+        "held-with-a-rate-law",
+        held_replace("    fast_equilibrium: true\n", "    fast_equilibrium: true\n    rate_law: power_law\n"),
+        HELD_RUNS,
+        MEASUREMENTS,
+        ["reactions[0].rate_law", "no rate law"],
+    ),
+    (
+        "two-held-steps",
+        held_replace(
+            "C -> D\n    k_ref: {median: 0.1, factor: 10}\n    Ea: {mean: 60, sd: 20}\n",
+            "C <=> D\n    fast_equilibrium: true\n    K_ref: {median: 1, factor: 10}\n    dH: {mean: 0, sd: 10}\n",
+        ),
+        HELD_RUNS,
+        MEASUREMENTS,
+        ["reactions[1].fast_equilibrium", "already held"],
+    ),
+    (
+        "rated-step-without-k_ref",
+        held_replace("    k_ref: {median: 0.1, factor: 10}\n", ""),
+        HELD_RUNS,
+        MEASUREMENTS,
+        ["reactions[1].k_ref", "required key is missing"],
+    ),
+    (
+        "held-step-cannot-start",
+        HELD_STUDY,
+        "run,temperature,A,B,C,D\nr1,50,1.0,0,0,0\nr2,60,0.8,1.0,0,0\n",
+        MEASUREMENTS,
+        ["runs.csv: line 2, columns 'B' and 'C'", "cannot start at its equilibrium"],
+    ),
     (
         "unknown-species",
         net_replace("A + B -> C", "A + D -> C"),
