@@ -11,7 +11,8 @@ import numba
 import numpy as np
 
 from .conditions import dose_piece, next_stop
-from .stepping import DONE, FAILED, STIFF, evaluate, parameter_source, record_start, start_state
+from .kinetics import INITIAL, parameter_rate
+from .stepping import DONE, FAILED, STIFF, evaluate, held_share, record_start, start_state
 
 #: Dormand-Prince 5(4): nodes, stage coefficients, 5th-order weights, and 5th minus 4th order weights
 #: (the last weight belongs to f at the new point).
@@ -53,31 +54,26 @@ DP_P = np.array(
 @numba.njit(cache=True)
 def _augmented_rhs(u, t, start, piece, n, net, cond, params, out, work):
     """d/dt of [c, s_1, ..., s_P] at time t of a step from ``start``: f(c) and J(c) s_p + d f / d theta_p."""
-    jac, rate, forward_rate, reverse_rate, dr_dc, c, hold, source = work
+    jac, rate, forward_rate, reverse_rate, dr_dc, c, hold = work
+    stoichiometry = net.stoichiometry
+    held = net.held
+    held_row = max(held, 0)
     kinds, param_reaction, param_species = params.kind, params.reaction, params.species
     x, log_ratio = evaluate(
         u[:n], t, start, piece, net, cond, out[:n], jac, rate, forward_rate, reverse_rate, dr_dc, c, hold
     )
     for p in range(kinds.shape[0]):
         offset = n * (1 + p)
-        parameter_source(
-            kinds[p],
-            param_reaction[p],
-            param_species[p],
-            c,
-            net,
-            rate,
-            forward_rate,
-            reverse_rate,
-            x,
-            log_ratio,
-            hold,
-            source,
-        )
+        kind = kinds[p]
+        j = param_reaction[p]
+        theta = parameter_rate(kind, j, param_species[p], c, net, rate, forward_rate, reverse_rate, x, log_ratio)
+        along = held_share(kind, j, theta, net, hold) if held >= 0 else 0.0
         for i in range(n):
-            total = source[i]
+            total = 0.0
             for m in range(n):
                 total += jac[i, m] * u[offset + m]
+            if kind != INITIAL:
+                total += stoichiometry[j, i] * theta - stoichiometry[held_row, i] * along
             out[offset + i] = total
 
 
@@ -108,7 +104,6 @@ def dopri_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
         np.empty((n_reactions, n)),
         np.empty(n),
         np.empty(n + 2),
-        np.empty(n),
     )
     out_index = record_start(times, u[:n], u[n:].reshape((n_params, n)), out_c, out_s)
     if out_index == times.shape[0]:

@@ -15,7 +15,8 @@ import numba
 import numpy as np
 
 from .conditions import dose_piece, next_stop
-from .stepping import DONE, FAILED, evaluate, lu_factor, lu_solve, parameter_source, record_start, rms, start_state
+from .kinetics import INITIAL, parameter_rate
+from .stepping import DONE, FAILED, evaluate, held_share, lu_factor, lu_solve, record_start, rms, start_state
 
 _S6 = math.sqrt(6.0)
 #: Radau IIA(5) nodes and coefficient matrix (Hairer and Wanner, table IV.5.6).
@@ -70,7 +71,9 @@ def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
     Returns DONE, or FAILED when the step count or step size runs out or a value stops being finite.
     """
     rtol, atol, max_steps = tolerances.rtol, tolerances.atol, tolerances.max_steps
-    forward = net.forward
+    stoichiometry, forward = net.stoichiometry, net.forward
+    held = net.held
+    held_row = max(held, 0)
     kinds, param_reaction, param_species = params.kind, params.reaction, params.species
     n_reactions, n = forward.shape
     n_params = kinds.shape[0]
@@ -89,7 +92,6 @@ def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
     dr_dc = np.empty((n_reactions, n))
     c = np.empty((3, n))
     hold = np.empty((3, n + 2))
-    theta = np.empty(n)
     newton_tol = max(10.0 * 2.220446049250313e-16 / rtol, min(0.03, math.sqrt(rtol)))
     newton = np.empty((3 * n, 3 * n))
     newton_piv = np.empty(3 * n, dtype=np.int64)
@@ -271,10 +273,12 @@ def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
             if not lu_factor(newton, newton_piv):
                 return FAILED
             for p in range(n_params):
+                kind = kinds[p]
+                j = param_reaction[p]
                 for bj in range(3):
-                    parameter_source(
-                        kinds[p],
-                        param_reaction[p],
+                    theta = parameter_rate(
+                        kind,
+                        j,
                         param_species[p],
                         c[bj],
                         net,
@@ -283,13 +287,14 @@ def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
                         reverse_rate[bj],
                         temperature_x[bj],
                         temperature_l[bj],
-                        hold[bj],
-                        theta,
                     )
+                    along = held_share(kind, j, theta, net, hold[bj]) if held >= 0 else 0.0
                     for i in range(n):
-                        total = theta[i]
+                        total = 0.0
                         for m in range(n):
                             total += jz[bj, i, m] * s[p, m]
+                        if kind != INITIAL:
+                            total += stoichiometry[j, i] * theta - stoichiometry[held_row, i] * along
                         source[bj, i] = total
                 for bi in range(3):
                     for i in range(n):

@@ -19,7 +19,7 @@ import numba
 import numpy as np
 
 from .conditions import temperature_rate, temperature_terms, volume_at
-from .kinetics import EQ_ENTHALPY, INITIAL, LN_EQ, parameter_rate, rates_and_jacobian
+from .kinetics import EQ_ENTHALPY, INITIAL, LN_EQ, rates_and_jacobian
 
 #: Outcomes of a run's integration; STIFF: the explicit pair stopped because the run is stiff.
 FAILED, DONE, STIFF = 0, 1, 2
@@ -85,7 +85,7 @@ HELD_FLOOR = 1e-30
 @numba.njit(cache=True)
 def hold_equilibrium(y, t, start, net, cond, f, jac, hold):
     """Project f and jac (the right-hand side without the held reaction, and its Jacobian) so that reaction
-    ``net.held`` stays at equilibrium; ``hold`` (N + 2) receives w (N), w.s and dx/dt for ``parameter_source``."""
+    ``net.held`` stays at equilibrium; ``hold`` (N + 2) receives w (N), w.s and dx/dt for ``held_share``."""
     held = net.held
     n = y.shape[0]
     s = net.stoichiometry[held]
@@ -116,29 +116,19 @@ def hold_equilibrium(y, t, start, net, cond, f, jac, hold):
 
 
 @numba.njit(cache=True)
-def parameter_source(kind, j, species, c, net, rate, forward_rate, reverse_rate, x, log_ratio, hold, out):
-    """d f / d theta (N,) into ``out`` for the sensitivity parameter (``kind``, reaction j, ``species``), from
-    the rates of ``evaluate`` at concentrations c (and ``hold`` where a reaction is held); zero for ``INITIAL``."""
-    n = out.shape[0]
-    stoichiometry = net.stoichiometry
-    held = net.held
+def held_share(kind, j, theta, net, hold):
+    """Where a reaction is held: the parameter source S_j theta (``kinetics.parameter_rate``'s theta) loses
+    s * held_share along the held reaction's row s, which keeps it on the equilibrium (``hold`` from
+    ``hold_equilibrium``); for the held reaction's dH/R the source is -s * dx/dt / (w.s) (ln K moves with T)."""
+    n = hold.shape[0] - 2
     if kind == INITIAL:
-        out[:] = 0.0
-        return
-    if j == held and kind == EQ_ENTHALPY:  # ln K moves with T: d xi / d(dH/R) = -dx/dt / (w.s)
-        for i in range(n):
-            out[i] = -stoichiometry[held, i] * hold[n + 1] / hold[n]
-        return
-    theta = parameter_rate(kind, j, species, c, net, rate, forward_rate, reverse_rate, x, log_ratio)
+        return 0.0
+    if j == net.held and kind == EQ_ENTHALPY:
+        return hold[n + 1] / hold[n]
+    along = 0.0
     for i in range(n):
-        out[i] = stoichiometry[j, i] * theta
-    if held >= 0:
-        along = 0.0
-        for i in range(n):
-            along += hold[i] * out[i]
-        along /= hold[n]
-        for i in range(n):
-            out[i] -= stoichiometry[held, i] * along
+        along += hold[i] * net.stoichiometry[j, i]
+    return theta * along / hold[n]
 
 
 @numba.njit(cache=True)
