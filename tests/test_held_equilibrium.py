@@ -3,6 +3,9 @@ stiff network solved by scipy's Radau, and finite differences of its own solver.
 
 from __future__ import annotations
 
+import json
+
+import arviz as az
 import numpy as np
 import pandas as pd
 import pytest
@@ -210,6 +213,13 @@ def test_a_study_with_a_held_step_recovers_what_generated_its_data(run_cli, tmp_
     assert code in (0, 3), stderr
     summary = pd.read_csv(tmp_path / "out" / "summary.csv").set_index("parameter")
     assert not any("binding" in name for name in summary.index if name.startswith(("k_ref", "Ea", "A[")))
+    # The verdict leaves out the held step's placeholder k_ref and Ea (their draws are the prior's, not results):
+    # its R-hat and tail ESS are those of the other kinetic variables (arviz, as the verdict computes them).
+    posterior = az.from_netcdf(tmp_path / "out" / "posterior.nc").posterior
+    kept = posterior[["ln_k_ref", "Ea", "ln_K_ref", "dH", "sigma"]].drop_sel(reaction=["binding"])
+    diagnostics = json.loads((tmp_path / "out" / "diagnostics.json").read_text())
+    assert diagnostics["r_hat_max"] == pytest.approx(float(az.rhat(kept).to_array().max()))
+    assert diagnostics["ess_tail_min"] == pytest.approx(float(az.ess(kept, method="tail").to_array().min()))
     for name, truth in (
         ("K_ref[binding]", 8.0),
         ("dH[binding]", -30.0),

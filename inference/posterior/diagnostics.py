@@ -120,8 +120,12 @@ def assess(
     ``solver_failures`` (integrations that failed during sampling, each a rejected proposal) is reported and,
     when it is more than 1 % of the draws, advised on. With the ``problem`` the posterior came from, the fit
     is also judged against its data (``misfit_findings``, on ``fit_checks`` when the caller has them already);
-    any misfit makes the verdict at least ``warn``."""
+    any misfit makes the verdict at least ``warn``, and a step held at equilibrium has its placeholder k_ref and
+    Ea left out of R-hat and ESS."""
+    held = tuple(spec.name for spec in problem.study.reactions if spec.held) if problem is not None else ()
     posterior = idata.posterior[var_names]
+    if held and "reaction" in posterior.dims:  # a held step's k_ref and Ea are inert placeholders, not results
+        posterior = posterior.drop_sel(reaction=list(held))
     chains, draws = posterior.sizes["chain"], posterior.sizes["draw"]
     # R-hat compares chains: with one there is nothing to compare (NaN, and no call that would warn about it)
     r_hat = float(np.nanmax(az.rhat(posterior).to_array().values)) if chains > 1 else float("nan")
@@ -163,7 +167,6 @@ def assess(
         )
 
     advice += confounded_factors(idata.posterior)
-    held = tuple(spec.name for spec in problem.study.reactions if spec.held) if problem is not None else ()
     advice += unpinned_fast_steps(idata.posterior, held)
     if solver_failures > 0.01 * chains * draws:
         advice.append(
