@@ -173,7 +173,7 @@ def energy_warnings(study: Study) -> list[str]:
     notes = []
     for index, spec in enumerate(study.reactions):
         key = f"{study.path}: reactions[{index}]"
-        priors = [("Ea", spec.prior.ea_mean, spec.prior.ea_sd)]
+        priors = [] if spec.held else [("Ea", spec.prior.ea_mean, spec.prior.ea_sd)]  # held: a placeholder
         if spec.equilibrium is not None:
             priors.append(("dH", spec.equilibrium.dh_mean, spec.equilibrium.dh_sd))
         priors += REGISTRY[spec.rate_law].written_enthalpies(spec)
