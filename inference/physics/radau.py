@@ -36,11 +36,11 @@ NEWTON_MAX = 7
 
 
 @numba.njit(cache=True)
-def _evaluate_stage(
-    y, z, bi, t, start, piece, net, cond, stage, fz, jz, rate, forward_rate, reverse_rate, dr_dc, c, hold
-):
-    """Rates and Jacobian at stage ``bi`` of a Radau step (the state y + z[bi] at time t), into that stage's
-    slots; returns the temperature terms there."""
+def _evaluate_stage(y, z, bi, t, start, piece, net, cond, stage, slots):
+    """Rates and Jacobian at stage ``bi`` of a Radau step from ``start`` (the state y + z[bi] at time t), into
+    that stage's ``slots`` (f, Jacobian, rates, forward and reverse rates, dr/dc, concentrations, hold); returns
+    the temperature terms there."""
+    fz, jz, rate, forward_rate, reverse_rate, dr_dc, c, hold = slots
     for i in range(y.shape[0]):
         stage[i] = y[i] + z[bi, i]
     return evaluate(
@@ -92,6 +92,7 @@ def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
     dr_dc = np.empty((n_reactions, n))
     c = np.empty((3, n))
     hold = np.empty((3, n + 2))
+    slots = (fz, jz, rate, forward_rate, reverse_rate, dr_dc, c, hold)
     newton_tol = max(10.0 * 2.220446049250313e-16 / rtol, min(0.03, math.sqrt(rtol)))
     newton = np.empty((3 * n, 3 * n))
     newton_piv = np.empty(3 * n, dtype=np.int64)
@@ -162,25 +163,7 @@ def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
             iterations = iteration + 1
             finite = True
             for bi in range(3):
-                _evaluate_stage(
-                    y,
-                    z,
-                    bi,
-                    t + C[bi] * h,
-                    t,
-                    piece,
-                    net,
-                    cond,
-                    stage,
-                    fz,
-                    jz,
-                    rate,
-                    forward_rate,
-                    reverse_rate,
-                    dr_dc,
-                    c,
-                    hold,
-                )
+                _evaluate_stage(y, z, bi, t + C[bi] * h, t, piece, net, cond, stage, slots)
                 for i in range(n):
                     if not math.isfinite(fz[bi, i]):
                         finite = False
@@ -245,23 +228,7 @@ def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
         if n_params > 0:
             for bi in range(3):
                 temperature_x[bi], temperature_l[bi] = _evaluate_stage(
-                    y,
-                    z,
-                    bi,
-                    t + C[bi] * h,
-                    t,
-                    piece,
-                    net,
-                    cond,
-                    stage,
-                    fz,
-                    jz,
-                    rate,
-                    forward_rate,
-                    reverse_rate,
-                    dr_dc,
-                    c,
-                    hold,
+                    y, z, bi, t + C[bi] * h, t, piece, net, cond, stage, slots
                 )
             for bi in range(3):
                 for bj in range(3):
