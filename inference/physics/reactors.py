@@ -15,7 +15,7 @@ Pure numerics, no PyMC. Concentrations and times are in the study's units, tempe
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -34,27 +34,21 @@ from .stepping import evaluate
 PROGRAMMED_RTOL = 1e-8
 
 
-def _rate_terms(network: Network, one: ParameterDraws, kelvin: float, c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """dc/dt = S^T r(c) and its Jacobian for a single draw ``one`` at ``kelvin`` (negative c read as zero)."""
-    kernel = network_kernel(network, one.inputs(0, np.array([kelvin]), np.asarray(c, dtype=float)[None]))
+def _rate_terms(network: Network, one: ParameterDraws, kelvin: float) -> Callable[[np.ndarray], tuple]:
+    """c -> (dc/dt = S^T r(c), its Jacobian) for a single draw ``one`` at ``kelvin`` (negative c read as zero);
+    the kernel and scratch are built once, so a Newton search pays only for the compiled evaluation."""
     n_reactions, n = network.forward_orders.shape
-    f, jac = np.empty(n), np.empty((n, n))
-    scratch = (np.empty(n_reactions), np.empty(n_reactions), np.empty(n_reactions), np.empty((n_reactions, n)))
+    kernel = run_kernel(network_kernel(network, one.inputs(0, np.array([kelvin]), np.zeros((1, n)))), 0)
     conditions = run_conditions(isothermal_conditions(np.array([kelvin]), n), 0)
-    evaluate(
-        np.ascontiguousarray(c, dtype=float),
-        0.0,
-        0.0,
-        0,
-        run_kernel(kernel, 0),
-        conditions,
-        f,
-        jac,
-        *scratch,
-        np.empty(n),
-        np.empty(n + 2),
-    )
-    return f, jac
+    scratch = (np.empty(n_reactions), np.empty(n_reactions), np.empty(n_reactions), np.empty((n_reactions, n)))
+    state, hold = np.empty(n), np.empty(n + 2)
+
+    def rates(c: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        f, jac = np.empty(n), np.empty((n, n))
+        evaluate(np.ascontiguousarray(c, dtype=float), 0.0, 0.0, 0, kernel, conditions, f, jac, *scratch, state, hold)
+        return f, jac
+
+    return rates
 
 
 def _draw_profiles(
@@ -141,11 +135,15 @@ def cstr_steady_states(
     scale = max(float(feed.max()), 1e-300)
     reachable = _reachable_guesses(network, feed) if thorough else []
     for d in range(draws.size):
-        one = draws.draw(d)
+        try:
+            rates = _rate_terms(network, draws.draw(d), float(np.broadcast_to(kelvin, (draws.size,))[d]))
+        except SolverFailure:  # a constant overflows: no state for this draw
+            failed[d] = True
+            continue
         for q, tau in enumerate(residence_times):
 
-            def residual(c: np.ndarray, one: ParameterDraws = one, tau: float = tau) -> tuple[np.ndarray, np.ndarray]:
-                f, jac = _rate_terms(network, one, kelvin, c)
+            def residual(c: np.ndarray, rates=rates, tau: float = tau) -> tuple[np.ndarray, np.ndarray]:
+                f, jac = rates(c)
                 return (feed - c) / tau + f, jac - np.eye(n) / tau
 
             found: list[tuple[np.ndarray, bool]] = []
