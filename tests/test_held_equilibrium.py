@@ -11,10 +11,12 @@ import pandas as pd
 import pytest
 from scipy.integrate import solve_ivp
 
+from inference.inputs.schema import Sampling
 from inference.physics.conditions import Feed, RunSetup, build_conditions
 from inference.physics.network import EquationError, build_network, parse_equation
 from inference.physics.parameters import KineticInputs, SensitivityLayout
 from inference.physics.solution import NetworkSolver, SolverSettings
+from inference.workflows.fit import slow_sampling_note
 
 BINDING = ("S + Cat <=> SCat", "SCat -> P + Cat")
 SPECIES = ("S", "Cat", "SCat", "P")
@@ -228,3 +230,13 @@ def test_a_study_with_a_held_step_recovers_what_generated_its_data(run_cli, tmp_
     ):
         row = summary.loc[name]
         assert abs(row["mean"] - truth) < 4 * row["sd"], (name, row["mean"], row["sd"])
+
+
+def test_many_gradients_per_draw_with_the_diagonal_mass_matrix_point_to_the_dense_one():
+    # The stiff benchmark's posterior (ln K and ln k_cat correlated) took 29 gradient evaluations per draw with the
+    # diagonal mass matrix and 7 with the dense one (README, Benchmarks): the fit says so when it happens.
+    slow = az.from_dict(sample_stats={"n_steps": np.full((2, 50), 27.0)})
+    quick = az.from_dict(sample_stats={"n_steps": np.full((2, 50), 7.0)})
+    assert "mass_matrix: dense" in slow_sampling_note(slow, Sampling())
+    assert slow_sampling_note(slow, Sampling(mass_matrix="dense")) is None
+    assert slow_sampling_note(quick, Sampling()) is None

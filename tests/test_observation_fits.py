@@ -16,7 +16,7 @@ study: {name}
 units: {{time: min, temperature: degC, concentration: mol/L, energy: kJ/mol}}
 data: {{runs: runs.csv, measurements: measurements.csv}}
 reference_temperature: 330 K
-sampling: {{draws: 400, tune: 400, chains: 2, seed: 5}}
+sampling: {{draws: 300, tune: 300, chains: 2, seed: 5}}
 """
 
 

@@ -383,7 +383,7 @@ def test_michaelis_menten_fit_recovers_k_m_and_k_cat(tmp_path):
         k_ref: {median: 5, factor: 20}
         Ea: {mean: 50, sd: 25}
     reference_temperature: 323.15 K
-    sampling: {draws: 400, tune: 400, chains: 2, seed: 12}
+    sampling: {draws: 300, tune: 300, chains: 2, seed: 12}
     """
     path = write_study(tmp_path, body, "\n".join(runs) + "\n", "\n".join(meas) + "\n")
     summary = fit_study(path, out=tmp_path / "res", quiet=True).summary.set_index("parameter")

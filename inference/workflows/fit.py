@@ -140,6 +140,8 @@ def _fit(
             log_density=log_density,
         )
     steps.done("sampled", f"{sampling.chains} chains x {sampling.draws} draws after {sampling.tune} tuning")
+    if note := slow_sampling_note(idata, sampling):
+        steps.say(f"note: {note}")
 
     fit_checks = problem.fit_checks(idata)
     diagnostics = assess(
@@ -173,6 +175,25 @@ def _fit(
         result = replace(result, predictions=predicted)
         steps.done("predicted scenarios", str(predicted.results_dir))
     return result
+
+
+#: Mean NUTS gradient evaluations per draw from which a fit with the diagonal mass matrix is told about the
+#: dense one (a well-scaled posterior takes about 3 to 7; our measurements: the demo network 6, the stiff
+#: benchmark 29, which a dense mass matrix brought to 7).
+MANY_STEPS_PER_DRAW = 15
+
+
+def slow_sampling_note(idata, sampling: Sampling) -> str | None:
+    """A note when NUTS needed many gradient evaluations per draw with the diagonal mass matrix, else None."""
+    steps = float(idata.sample_stats["n_steps"].mean()) if "n_steps" in idata.sample_stats else 0.0
+    if sampling.mass_matrix != "diagonal" or steps < MANY_STEPS_PER_DRAW:
+        return None
+    return (
+        f"NUTS took {steps:.0f} gradient evaluations per draw (a well-scaled posterior takes about 3 to 7): "
+        "parameters that correlate strongly (correlations.csv) make the diagonal mass matrix take short steps. "
+        "'sampling: {mass_matrix: dense}' follows such correlations and often samples several times faster; "
+        "where the correlation bends along the posterior it may not."
+    )
 
 
 def _check_start(model, problem: Problem, temperature_ref: float) -> ValueGradFunction:
