@@ -37,11 +37,11 @@ def test_rank_bins_divide_the_ranks_evenly():
 def test_calibration_of_a_small_network(tmp_path):
     # A small real SBC of a network (issue #21 item 4): the demo network's design (A + B -> C, C -> D, four runs,
     # the compiled integrator with sensitivities) with the calibration priors of configs/calibration/network, 20
-    # simulated datasets, each fitted with 2 chains x (150 tuning + 100 draws: 99 of the 200 are ranked). Twenty
-    # simulations catch only gross errors (a posterior twice too narrow or far off centre): each test rejects at
-    # p < 0.001, and coverage must lie within 3.5 binomial standard errors of its level. The full runs are in
-    # docs/calibration.md.
-    settings = CalibrationSettings(simulations=20, draws=100, tune=150, chains=2, ranked_draws=99, seed=3)
+    # simulated datasets, each fitted with one chain of 150 tuning + 200 draws (99 of them ranked: ranks need
+    # draws, not chains, and one chain pays for its tuning once). Twenty simulations catch only gross errors (a
+    # posterior twice too narrow or far off centre): each test rejects at p < 0.001, and coverage must lie within
+    # 3.5 binomial standard errors of its level. The full runs are in docs/calibration.md.
+    settings = CalibrationSettings(simulations=20, draws=200, tune=150, chains=1, ranked_draws=99, seed=3)
     result = calibrate("configs/calibration/network/study.yaml", settings, workers=2)
     assert set(result.quantities) == {
         "ln_k_ref[coupling]",

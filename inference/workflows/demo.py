@@ -173,7 +173,7 @@ reactions:
     Ea: {mean: 90, sd: 30}
 reference_temperature: 60                 # degC
 noise: {model: proportional, sigma: {scale: 0.2}}
-sampling: {draws: 300, tune: 300, chains: 4, seed: 1, target_accept: 0.9}
+sampling: {draws: 500, tune: 300, chains: 4, seed: 1, target_accept: 0.9}
 """
 
 AREA_STUDY_TEXT = """\
@@ -203,7 +203,7 @@ observations:                           # each peak's share of the three, in %
   - {quantity: area_I, kind: composition, species: I, among: [A, P, I], scale: 100}
 reference_temperature: 60               # degC
 noise: {model: proportional, sigma: {scale: 0.2}}
-sampling: {draws: 300, tune: 300, chains: 4, seed: 1, target_accept: 0.9}
+sampling: {draws: 500, tune: 300, chains: 4, seed: 1, target_accept: 0.9}
 """
 
 STUDY_TEXT = """\
@@ -230,7 +230,7 @@ reactions:
     Ea: {mean: 80, sd: 30}
 reference_temperature: auto
 noise: {model: proportional, sigma: {scale: 0.2}}
-sampling: {draws: 300, tune: 300, chains: 4, seed: 1, target_accept: 0.9}
+sampling: {draws: 500, tune: 300, chains: 4, seed: 1, target_accept: 0.9}
 report:
   k_at: [25, 60]                          # degC; 25 degC lies outside the data and is flagged
 """
@@ -259,7 +259,7 @@ reactions:
     Ea: {mean: 80, sd: 30}
 reference_temperature: auto
 noise: {model: proportional, sigma: {scale: 0.2}}
-sampling: {draws: 300, tune: 300, chains: 4, seed: 1, target_accept: 0.9}
+sampling: {draws: 500, tune: 300, chains: 4, seed: 1, target_accept: 0.9}
 """
 
 SCENARIOS_TEXT = """\
