@@ -194,7 +194,12 @@ def _run_options(args: argparse.Namespace) -> dict:
 
 
 def _fit_and_report(study_path: Path, args: argparse.Namespace, out: Path | None) -> int:
+    from .inputs.config import load_study
     from .outputs import reporting
+
+    # Said before PyMC is imported (seconds), so a first fit shows at once what the next minute goes on.
+    if not args.quiet and (notice := reporting.compile_notice(load_study(study_path))):
+        print(notice, flush=True)
     from .workflows.fit import fit_study
 
     result = fit_study(study_path, out=out, **_run_options(args))

@@ -123,6 +123,22 @@ def prediction_report(result: PredictionResult) -> str:
     return "\n".join(lines)
 
 
+#: Whether this process said already that the network solver is being compiled (``compile_notice``).
+_compile_notice_given = False
+
+
+def compile_notice(study: Study) -> str | None:
+    """Once per process: the line saying that this fit compiles the network solver (numba, about a minute); None
+    when the study has no network, numba's cache holds the solver already, or the line was given."""
+    global _compile_notice_given
+    from ..physics.integrator import solver_compiled_on_disk
+
+    if _compile_notice_given or study.network is None or solver_compiled_on_disk() is not False:
+        return None
+    _compile_notice_given = True
+    return "first fit in this installation: compiling the network solver (numba), about a minute; later fits reuse it"
+
+
 class Steps:
     """Prints one line per pipeline step with its wall time, unless quiet."""
 

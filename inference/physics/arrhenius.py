@@ -10,7 +10,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import constants, stats
+from scipy import constants
 
 #: Molar gas constant, J/(mol K) (CODATA, exact since the 2019 SI redefinition), from scipy.constants.
 R = constants.R
@@ -135,6 +135,8 @@ def linearised_fit(temperature_K: np.ndarray, k: np.ndarray) -> LinearisedFit:
         s2 = float(np.sum(residuals**2) / dof)
         se_slope = float(np.sqrt(s2 / sxx))
         se_intercept = float(np.sqrt(s2 * (1.0 / n + x_mean**2 / sxx)))
+        from scipy import stats  # imported here: scipy.stats takes half a second, and few commands need it
+
         t95 = float(stats.t.ppf(0.975, dof))
     else:
         se_slope = se_intercept = t95 = float("nan")

@@ -24,7 +24,7 @@ from ..inputs.study import Study
 from ..model.sampling import log_density_function, non_finite_start, sample_posterior, scratch_folder
 from ..outputs import plots, report
 from ..outputs.records import FitResult
-from ..outputs.reporting import CAUTION, Steps, process_age_s
+from ..outputs.reporting import CAUTION, Steps, compile_notice, process_age_s
 from ..outputs.results import (
     StagedFolder,
     binding_differences,
@@ -34,7 +34,6 @@ from ..outputs.results import (
     sha256_json,
 )
 from ..physics.arrhenius import auto_reference_temperature
-from ..physics.integrator import solver_compiled_on_disk
 from ..posterior.diagnostics import assess
 from ..posterior.per_temperature import POINTS_FILE, TemperaturePoints
 from ..posterior.summaries import (
@@ -122,10 +121,8 @@ def _fit(
     for note in notes:
         steps.say(f"warning: {note}")
 
-    if study.network is not None and solver_compiled_on_disk() is False:
-        steps.say(
-            "first fit in this installation: compiling the network solver (numba), about a minute; later fits reuse it"
-        )
+    if notice := compile_notice(study):
+        steps.say(notice)
     with scratch_folder() as scratch:
         failure_log = scratch / "solver-failures"
         model = problem.build_model(temperature_ref, failure_log)
