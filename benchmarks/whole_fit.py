@@ -455,7 +455,7 @@ def _cell(row: dict, key: str, form: str) -> str:
 
 def print_table(rows: list[tuple[str, str, dict]]) -> None:
     header = (
-        f"{'problem':<12}{'way':<10}{'setup s':>9}{'sampling s':>11}{'after s':>9}{'total s':>9}{'grad evals':>11}"
+        f"{'problem':<17}{'way':<10}{'setup s':>9}{'sampling s':>11}{'after s':>9}{'total s':>9}{'grad evals':>11}"
         f"{'ms/grad':>9}{'in-run ms':>10}{'min ESS':>9}{'ESS/s':>8}  note"
     )
     print(header)
@@ -470,7 +470,7 @@ def print_table(rows: list[tuple[str, str, dict]]) -> None:
         else:
             note = f"{row.get('divergences')} divergent"
         print(
-            f"{problem:<12}{way:<10}{_cell(row, 'setup_s', '9.1f')}{_cell(row, 'sampling_s', '11.1f')}"
+            f"{problem:<17}{way:<10}{_cell(row, 'setup_s', '9.1f')}{_cell(row, 'sampling_s', '11.1f')}"
             f"{_cell(row, 'after_s', '9.1f')}{_cell(row, 'total_s', '9.1f')}{_cell(row, 'evaluations', '11d')}"
             f"{_cell(row, 'gradient_ms', '9.2f')}{_cell(row, 'in_op_ms', '10.2f')}{_cell(row, 'ess', '9.0f')}"
             f"{format(ess_rate, '8.2f') if ess_rate is not None else '       -'}  {note}"
