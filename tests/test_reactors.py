@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
@@ -50,6 +52,21 @@ def test_first_order_cstr_and_pfr():
     pfr = batch_profiles(FIRST, draws, T_REF, feed, np.array([0.0, 5.0]))
     np.testing.assert_allclose(1 - pfr[:, -1, 0] / 2.0, 1 - np.exp(-1.0), rtol=1e-6)
     assert not cstr.multiple.any() and not cstr.unstable.any() and not cstr.failed.any()
+
+
+def test_first_order_cstr_with_a_temperature_per_draw_and_a_draw_that_overflows():
+    # X = k tau / (1 + k tau) for each draw at its own temperature (the same closed form); a draw whose rate
+    # constant overflows has no steady state and is marked failed, the others are unaffected.
+    draws = point_draws(FIRST, [0.2], [50_000.0])
+    kelvin = np.array([330.0, 350.0, 370.0])
+    feed = np.array([2.0, 0.0])
+    cstr = cstr_steady_states(FIRST, draws, kelvin, feed, np.array([5.0]))
+    k = np.exp(draws.ln_k(kelvin)[:, 0])
+    np.testing.assert_allclose(1 - cstr.concentrations[:, 0, 0] / 2.0, k * 5.0 / (1 + k * 5.0), rtol=1e-9)
+    wild = replace(draws, ln_k_ref=np.array([[np.log(0.2)], [800.0], [np.log(0.2)]]))
+    cstr = cstr_steady_states(FIRST, wild, T_REF, feed, np.array([5.0]))
+    assert cstr.failed[:, 0].tolist() == [False, True, False]
+    np.testing.assert_allclose(1 - cstr.concentrations[[0, 2], 0, 0] / 2.0, 0.5, rtol=1e-10)
 
 
 def test_second_order_cstr_and_pfr_at_damkoehler_one():

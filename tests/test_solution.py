@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
@@ -236,3 +238,22 @@ def test_the_cold_start_notice_knows_when_the_solver_is_compiled_on_disk():
     net = network("AB", "A -> B")
     solve(net, np.linspace(0.0, 1.0, 3), [0.3], [1.0, 0.0])
     assert solver_compiled_on_disk() in (True, None)
+
+
+def test_the_cold_start_notice_is_said_once_and_only_for_network_studies(monkeypatch):
+    # Before the first network fit of an installation the CLI says what it compiles; a rate-constant study has
+    # no network solver to compile, and a process that said it once does not say it again.
+    from inference import load_study
+    from inference.outputs import reporting
+    from inference.physics import integrator
+
+    demo = Path(__file__).resolve().parents[1] / "data_demo"
+    monkeypatch.setattr(integrator, "solver_compiled_on_disk", lambda: False)
+    monkeypatch.setattr(reporting, "_compile_notice_given", False)
+    assert reporting.compile_notice(load_study(demo / "rate_constants.yaml")) is None
+    network_study = load_study(demo / "study.yaml")
+    assert "compiling the network solver" in reporting.compile_notice(network_study)
+    assert reporting.compile_notice(network_study) is None
+    monkeypatch.setattr(reporting, "_compile_notice_given", False)
+    monkeypatch.setattr(integrator, "solver_compiled_on_disk", lambda: True)
+    assert reporting.compile_notice(network_study) is None
