@@ -554,7 +554,11 @@ def print_parts(results: dict[str, dict[str, dict]], cores: int) -> None:
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     parser.add_argument("--quick", action="store_true", help="2 x 100 + 100 draws: a smoke check")
-    parser.add_argument("--only", default="", help="comma-separated problems (prefixes) of " + ", ".join(PROBLEMS))
+    parser.add_argument(
+        "--only",
+        default="",
+        help="comma-separated problems of " + ", ".join(PROBLEMS) + " (prefixes: 'stiff' is all four stiff ones)",
+    )
     parser.add_argument("--timeout", type=float, default=600.0, help="seconds before a stiff fit is stopped")
     parser.add_argument("--keep", type=Path, help="write the studies and results here and keep them (a new folder)")
     parser.add_argument("--arrhenia-only", action="store_true", help="leave out the plain way (its fits are slow)")
