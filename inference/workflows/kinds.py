@@ -641,15 +641,23 @@ PARALLEL_FIGURES_FROM = 4
 _figure_job: Callable[[int], None] | None = None
 
 
-def _draw_figure(index: int) -> None:
+def _draw_share(first: int, count: int, step: int) -> None:
+    """In a forked process: figures first, first + step, ... below count."""
     assert _figure_job is not None  # set by the parent before it forks
-    _figure_job(index)
+    for index in range(first, count, step):
+        _figure_job(index)
 
 
 def _draw_in_parallel(draw: Callable[[int], None], count: int) -> None:
     """``draw(i)`` for i < count: in forked processes, one per core, when there are enough figures to pay for
     them (the figures are written to files; nothing comes back), else here. Where fork is not the start method
-    (it is on Linux), or this process may not have children, here."""
+    (it is on Linux), or this process may not have children, here.
+
+    Each process draws a fixed share and exits; nothing is queued and nothing is terminated. (A
+    ``multiprocessing.Pool`` hung here in the test suite, in two fits at once: its work done, the parent waited
+    for a worker that waited for the task queue's lock, whose other worker was gone.) A share whose process fails
+    is drawn here.
+    """
     global _figure_job
     workers = min(os.cpu_count() or 1, count)
     daemon = multiprocessing.current_process().daemon  # a daemonic process (some job runners') may not fork
@@ -659,8 +667,15 @@ def _draw_in_parallel(draw: Callable[[int], None], count: int) -> None:
         return
     _figure_job = draw
     try:
-        with multiprocessing.get_context("fork").Pool(workers) as pool:
-            pool.map(_draw_figure, range(count), chunksize=1)
+        context = multiprocessing.get_context("fork")
+        processes = [context.Process(target=_draw_share, args=(w, count, workers)) for w in range(workers)]
+        for process in processes:
+            process.start()
+        for w, process in enumerate(processes):
+            process.join()
+            if process.exitcode != 0:
+                for index in range(w, count, workers):
+                    draw(index)
     finally:
         _figure_job = None
 
