@@ -197,12 +197,13 @@ def _fit_and_report(study_path: Path, args: argparse.Namespace, out: Path | None
     from .inputs.config import load_study
     from .outputs import reporting
 
+    study = load_study(study_path)
     # Said before PyMC is imported (seconds), so a first fit shows at once what the next minute goes on.
-    if not args.quiet and (notice := reporting.compile_notice(load_study(study_path))):
+    if not args.quiet and (notice := reporting.compile_notice(study)):
         print(notice, flush=True)
     from .workflows.fit import fit_study
 
-    result = fit_study(study_path, out=out, **_run_options(args))
+    result = fit_study(study, out=out, **_run_options(args))
     if not args.quiet:
         print(reporting.fit_report(result))
         if result.predictions is not None:

@@ -134,9 +134,10 @@ def cstr_steady_states(
     at_long = batch[:, np.searchsorted(grid, 20 * residence_times)]
     scale = max(float(feed.max()), 1e-300)
     reachable = _reachable_guesses(network, feed) if thorough else []
+    kelvin_per_draw = np.broadcast_to(np.asarray(kelvin, dtype=float), (draws.size,))
     for d in range(draws.size):
         try:
-            rates = _rate_terms(network, draws.draw(d), float(np.broadcast_to(kelvin, (draws.size,))[d]))
+            rates = _rate_terms(network, draws.draw(d), float(kelvin_per_draw[d]))
         except SolverFailure:  # a constant overflows: no state for this draw
             failed[d] = True
             continue
