@@ -198,9 +198,14 @@ def _fit_and_report(study_path: Path, args: argparse.Namespace, out: Path | None
     from .outputs import reporting
 
     study = load_study(study_path)
-    # Said before PyMC is imported (seconds), so a first fit shows at once what the next minute goes on.
-    if not args.quiet and (notice := reporting.compile_notice(study)):
-        print(notice, flush=True)
+    # Said before PyMC is imported (seconds), so a first fit shows at once what the next minute goes on; the
+    # kernels compile in a forked process meanwhile, which is safe here, before PyMC starts any thread.
+    if notice := reporting.compile_notice(study):
+        from .physics.solution import compile_in_background
+
+        compile_in_background()
+        if not args.quiet:
+            print(notice, flush=True)
     from .workflows.fit import fit_study
 
     result = fit_study(study, out=out, **_run_options(args))

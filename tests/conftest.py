@@ -3,32 +3,11 @@
 from __future__ import annotations
 
 import textwrap
-import time
 from pathlib import Path
 
 import pytest
 
 from inference.cli import main
-from inference.workflows.executor import warm_compiled_kernels
-
-_WARM_SECONDS = pytest.StashKey[float]()
-
-
-def pytest_configure(config: pytest.Config) -> None:
-    """Before xdist starts its workers (here, in the controlling process), compile numba's kernels into its
-    on-disk cache once: on a clean clone each worker, and each process a test starts, would otherwise compile
-    them itself at the same time (about a minute each on a 2-core machine)."""
-    if hasattr(config, "workerinput"):
-        return
-    started = time.perf_counter()
-    warm_compiled_kernels()
-    config.stash[_WARM_SECONDS] = time.perf_counter() - started
-
-
-def pytest_report_header(config: pytest.Config) -> str | None:
-    seconds = config.stash.get(_WARM_SECONDS, None)
-    return None if seconds is None else f"arrhenia: numba kernels compiled or loaded in {seconds:.1f} s"
-
 
 BASE_STUDY = """\
 study: t-study

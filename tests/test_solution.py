@@ -257,3 +257,18 @@ def test_the_cold_start_notice_is_said_once_and_only_for_network_studies(monkeyp
     monkeypatch.setattr(reporting, "_compile_notice_given", False)
     monkeypatch.setattr(integrator, "solver_compiled_on_disk", lambda: True)
     assert reporting.compile_notice(network_study) is None
+
+
+def test_the_kernels_compile_in_a_background_process_that_the_first_solve_waits_for():
+    # A first fit compiles numba's kernels in a forked process while it imports PyMC and compiles the model; one
+    # such process at a time, and the first solve waits for it (here the cache is warm, so it only loads them).
+    from inference.physics import solution
+
+    assert solution.compile_in_background()
+    process = solution._background
+    assert not solution.compile_in_background()
+    net = network("AB", "A -> B")
+    _, result = solve(net, np.linspace(0.0, 1.0, 3), [0.3], [1.0, 0.0])
+    assert solution._background is None and process.exitcode == 0
+    # c_A = c_A0 exp(-k t), the closed form of the first test above.
+    np.testing.assert_allclose(result.concentrations[0][:, 0], np.exp(-0.3 * np.linspace(0.0, 1.0, 3)), rtol=1e-5)

@@ -7,6 +7,7 @@ with its gradient costs one integration with forward sensitivities.
 
 from __future__ import annotations
 
+import copy
 import os
 from pathlib import Path
 
@@ -14,6 +15,8 @@ import numpy as np
 import pytensor.tensor as pt
 from pytensor.graph.basic import Apply
 from pytensor.graph.op import Op
+from pytensor.graph.rewriting.basic import node_rewriter
+from pytensor.tensor.rewriting.basic import register_specialize
 
 from ..inputs.data import Observations
 from ..physics.parameters import BLOCKS, KineticInputs
@@ -28,9 +31,14 @@ class NetworkPrediction(Op):
     d(prediction)/d(inputs, flattened) (M, P).
 
     A failed integration returns NaN predictions (the model turns them into a log-density of -inf), is
-    counted, and, with ``failure_log``, appended to that file as one line."""
+    counted, and, with ``failure_log``, appended to that file as one line.
+
+    Where a compiled function uses only the predictions (the pointwise log-likelihood, the posterior
+    predictive, a log-density without gradient), the rewrite ``predictions_alone`` puts in a copy that
+    integrates the concentrations without their sensitivities and leaves the Jacobian empty (M, 0)."""
 
     __props__ = ()
+    with_jacobian = True
 
     def __init__(
         self,
@@ -94,7 +102,7 @@ class NetworkPrediction(Op):
         free = KineticInputs(*inputs)
         try:
             solver_inputs = self.solver.layout.expand(free, self.fixed_orders, obs.initial, self.fixed_exponents)
-            prediction, jacobian = self.measurements.solve(solver_inputs)
+            prediction, jacobian = self.measurements.solve(solver_inputs, self.with_jacobian)
         except SolverFailure as failure:
             self.failures += 1
             self.last_failure = str(failure)
@@ -103,11 +111,19 @@ class NetworkPrediction(Op):
                 with self.failure_log.open("a") as log:
                     log.write(f"{os.getpid()}\n")
             prediction = np.full(obs.value.size, np.nan)
-            jacobian = np.zeros((obs.value.size, n_total))
+            jacobian = np.zeros((obs.value.size, n_total if self.with_jacobian else 0))
         outputs[0][0] = prediction
         outputs[1][0] = jacobian
 
+    def without_jacobian(self) -> NetworkPrediction:
+        """This Op computing the predictions alone (same solver, observations and failure log)."""
+        alone = copy.copy(self)
+        alone.with_jacobian = False
+        return alone
+
     def grad(self, inputs: list, output_grads: list) -> list:
+        if not self.with_jacobian:
+            raise NotImplementedError("the predictions-alone copy of NetworkPrediction has no gradient")
         _, jacobian = self(*inputs)
         flat = pt.dot(output_grads[0], jacobian)
         grads, start = [], 0
@@ -115,3 +131,12 @@ class NetworkPrediction(Op):
             grads.append(flat[start : start + size].reshape(shape).astype(variable.dtype))
             start += size
         return grads
+
+
+@register_specialize
+@node_rewriter([NetworkPrediction])
+def predictions_alone(fgraph, node):
+    """Where nothing reads an application's Jacobian, use the copy of its Op that does not compute it."""
+    if not node.op.with_jacobian or fgraph.clients.get(node.outputs[1]):
+        return None
+    return node.op.without_jacobian()(*node.inputs, return_list=True)

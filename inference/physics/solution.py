@@ -7,6 +7,9 @@ returning the concentrations and their sensitivities to the blocks of ``paramete
 
 from __future__ import annotations
 
+import multiprocessing
+import signal
+import sys
 from dataclasses import dataclass
 
 import numpy as np
@@ -172,6 +175,7 @@ class NetworkSolver:
     def solve(self, inputs: KineticInputs, *, sensitivities: bool = True) -> Solution:
         """Integrate all runs of ``inputs`` (solver form: full orders and initial concentrations).
         Raises ``SolverFailure``."""
+        finish_background_compile()
         initial = np.asarray(inputs.initial, dtype=float)
         n_runs, n_species = initial.shape
         n_params = self.n_params if sensitivities else 0
@@ -234,14 +238,21 @@ class MeasurementSolver:
         self.n_inputs = n_inputs
         self.factor = np.ones(self.run_index.size) if factor is None else np.asarray(factor, dtype=float)
 
-    def solve(self, inputs: KineticInputs) -> tuple[np.ndarray, np.ndarray]:
-        """(prediction (M,), jacobian (M, inputs)) for ``inputs`` in solver form; raises ``SolverFailure``."""
+    def solve(self, inputs: KineticInputs, with_jacobian: bool = True) -> tuple[np.ndarray, np.ndarray]:
+        """(prediction (M,), jacobian (M, inputs)) for ``inputs`` in solver form; raises ``SolverFailure``.
+        ``with_jacobian=False`` integrates the concentrations alone (1 + P times less work for P sensitivity
+        parameters) and returns an empty (M, 0) Jacobian."""
+        finish_background_compile()
         solver = self.solver
         initial = np.ascontiguousarray(inputs.initial, dtype=float)
         kernel = network_kernel(solver.network, inputs)
         tolerances = solver.tolerances(initial)
         prediction = np.empty(self.run_index.size)
-        jacobian = np.empty((self.run_index.size, self.n_inputs))
+        sensitivities, columns = solver.sensitivities, self.columns
+        if not with_jacobian:
+            sensitivities = Sensitivities(*(kind[:0].copy() for kind in sensitivities))
+            columns = np.zeros((columns.shape[0], 0), dtype=np.int64)
+        jacobian = np.empty((self.run_index.size, self.n_inputs if with_jacobian else 0))
         solver.stats[:] = 0
         try:
             failed = predict_measurements(
@@ -250,12 +261,12 @@ class MeasurementSolver:
                 self.time_offsets,
                 kernel,
                 solver.conditions_for(initial.shape[0]),
-                solver.sensitivities,
+                sensitivities,
                 tolerances,
                 self.run_index,
                 self.time_index,
                 self.species_index,
-                self.columns,
+                columns,
                 self.factor,
                 prediction,
                 jacobian,
@@ -266,3 +277,56 @@ class MeasurementSolver:
         if failed >= 0:
             raise SolverFailure(f"the integration of run {failed} did not reach its last time", failed)
         return prediction, jacobian
+
+
+def compile_kernels() -> None:
+    """Compile (or load from numba's on-disk cache) both entry points of the integrator: a run's profile
+    (``NetworkSolver.solve``) and every run's predictions with their Jacobian (``MeasurementSolver.solve``)."""
+    from .network import build_network, parse_equation
+
+    network = build_network(("A", "B"), ("warm",), (parse_equation("A -> B"),))
+    solver = NetworkSolver(network, [np.array([1.0])])
+    inputs = KineticInputs(
+        np.zeros((1, 1)), np.zeros((1, 0)), np.zeros((1, 0)), network.forward_orders, np.ones((1, 2))
+    )
+    solver.solve(inputs)
+    index = np.zeros(1, dtype=np.int64)
+    columns = np.zeros((1, solver.n_params), dtype=np.int64)
+    MeasurementSolver(solver, index, index, index, columns, max(solver.n_params, 1)).solve(inputs)
+
+
+_background: multiprocessing.Process | None = None
+
+
+def compile_in_background() -> bool:
+    """Start ``compile_kernels`` in a forked process (Linux), so that a first fit compiles numba's kernels on one
+    core while it imports PyMC and compiles the model's C code; the first solve in this process waits for it
+    (``finish_background_compile``) and then loads the kernels from the cache. Call it before threads start
+    (the CLI does, before importing PyMC). Returns whether a process was started."""
+    global _background
+    if _background is not None or not sys.platform.startswith("linux"):
+        return False
+    _background = multiprocessing.get_context("fork").Process(target=_compile_quietly, daemon=True)
+    _background.start()
+    return True
+
+
+def _compile_quietly() -> None:
+    """``compile_kernels`` in the background process: Ctrl-C is the parent's to answer (it ends this daemon
+    process on exit), and a failure only means the parent compiles for itself."""
+    global _background
+    _background = None  # the parent's handle, inherited by the fork: not this process's to wait for
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        compile_kernels()
+    except Exception:  # nothing to report: the parent compiles what is missing
+        sys.exit(1)
+
+
+def finish_background_compile() -> None:
+    """Wait for the compiling process of ``compile_in_background``, if one runs (at once otherwise). Where it
+    failed, the caller compiles the kernels itself, as without it."""
+    global _background
+    if _background is not None:
+        _background.join()
+        _background = None

@@ -25,7 +25,8 @@ from ..errors import ExitCode, StudyError
 from ..inputs.config import load_study
 from ..inputs.options import check_count, sampling_overrides
 from ..outputs.results import check_target, check_writable_parent, write_table
-from .executor import Executor, Outcome, deferred_interrupts, warm_compiled_kernels
+from ..physics.solution import compile_kernels
+from .executor import Executor, Outcome, deferred_interrupts
 
 #: Columns of ``batch_summary.csv``.
 BATCH_COLUMNS = ["study", "status", "verdict", "wall_s", "results", "message"]
@@ -161,7 +162,7 @@ def run_batch(
     started, clock = time.time(), time.perf_counter()
     try:
         if tasks:
-            warm_compiled_kernels()
+            compile_kernels()
             with Executor(min(workers or os.cpu_count() or 1, len(tasks)), scheduler) as executor:
                 used_workers = executor.workers
                 if not quiet:

@@ -111,9 +111,10 @@ def calibrate(
     temperature_ref, truths, data = simulate(study_path, settings)
     arguments = [(study_path, i, truths[i], data[i], temperature_ref, settings) for i in range(settings.simulations)]
     if workers > 1:
-        from .executor import Executor, warm_compiled_kernels
+        from ..physics.solution import compile_kernels
+        from .executor import Executor
 
-        warm_compiled_kernels()
+        compile_kernels()
         with Executor(workers) as executor:
             rows = executor.map(rank_one, arguments, lambda row: None)
     else:

@@ -115,11 +115,11 @@ DOSED_RUNS_FILE = "dosed_runs.csv"
 DOSED_TEMPERATURES_FILE = "dosed_temperatures.csv"
 DOSED_FEEDS_FILE = "dosed_feeds.csv"
 DOSED_MEASUREMENTS_FILE = "dosed_measurements.csv"
-#: The studies ``arrhenia demo`` fits, in order; the first is compared with ``ALTERNATIVE_STUDY_FILE`` and its
-#: posterior runs ``SCENARIOS_FILE``.
 AREA_STUDY_FILE = "area_study.yaml"
 AREA_RUNS_FILE = "area_runs.csv"
 AREA_MEASUREMENTS_FILE = "area_measurements.csv"
+#: The studies ``arrhenia demo`` fits, in order; the first is compared with ``ALTERNATIVE_STUDY_FILE`` and its
+#: posterior runs ``SCENARIOS_FILE``.
 FITTED_STUDY_FILES = (STUDY_FILE, DOSED_STUDY_FILE, AREA_STUDY_FILE)
 
 CATALYST_STUDY_TEXT = """\

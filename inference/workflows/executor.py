@@ -17,26 +17,6 @@ from typing import Any
 from ..errors import StudyError
 
 
-def warm_compiled_kernels() -> None:
-    """Compile (or load from numba's cache) both entry points of the integrator once here (a run's profile, and
-    every run's predictions with their Jacobian at the measurements), so workers do not all compile at once."""
-    import numpy as np
-
-    from ..physics.network import build_network, parse_equation
-    from ..physics.parameters import KineticInputs
-    from ..physics.solution import MeasurementSolver, NetworkSolver
-
-    network = build_network(("A", "B"), ("warm",), (parse_equation("A -> B"),))
-    solver = NetworkSolver(network, [np.array([1.0])])
-    inputs = KineticInputs(
-        np.zeros((1, 1)), np.zeros((1, 0)), np.zeros((1, 0)), network.forward_orders, np.ones((1, 2))
-    )
-    solver.solve(inputs)
-    index = np.zeros(1, dtype=np.int64)
-    columns = np.zeros((1, solver.sensitivities.kind.size), dtype=np.int64)
-    MeasurementSolver(solver, index, index, index, columns, max(columns.shape[1], 1)).solve(inputs)
-
-
 @dataclass(frozen=True)
 class Outcome:
     """How one task of ``Executor.outcomes`` ended: its position in the arguments, the function's value (None
