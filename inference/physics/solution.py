@@ -109,7 +109,7 @@ def network_kernel(network: Network, inputs: KineticInputs) -> Kernel:
         k,
         inv_eq,
         network.stoichiometry,
-        np.ascontiguousarray(inputs.orders, dtype=float),
+        np.array(inputs.orders, dtype=float),  # a fresh writable array: one compiled signature for every caller
         network.reverse_orders,
         network.reversible,
         ads,
@@ -231,12 +231,13 @@ class MeasurementSolver:
         self.solver = solver
         self.all_times = np.concatenate(solver.times)
         self.time_offsets = np.concatenate([[0], np.cumsum([t.size for t in solver.times])]).astype(np.int64)
-        self.run_index = np.asarray(run_index, dtype=np.int64)
-        self.time_index = np.asarray(time_index, dtype=np.int64)
-        self.species_index = np.asarray(species_index, dtype=np.int64)
+        # Contiguous arrays throughout, so that every study calls the one compiled signature.
+        self.run_index = np.ascontiguousarray(run_index, dtype=np.int64)
+        self.time_index = np.ascontiguousarray(time_index, dtype=np.int64)
+        self.species_index = np.ascontiguousarray(species_index, dtype=np.int64)
         self.columns = np.ascontiguousarray(columns, dtype=np.int64)
         self.n_inputs = n_inputs
-        self.factor = np.ones(self.run_index.size) if factor is None else np.asarray(factor, dtype=float)
+        self.factor = np.ones(self.run_index.size) if factor is None else np.ascontiguousarray(factor, dtype=float)
 
     def solve(self, inputs: KineticInputs, with_jacobian: bool = True) -> tuple[np.ndarray, np.ndarray]:
         """(prediction (M,), jacobian (M, inputs)) for ``inputs`` in solver form; raises ``SolverFailure``.
