@@ -272,3 +272,27 @@ def test_the_kernels_compile_in_a_background_process_that_the_first_solve_waits_
     assert solution._background is None and process.exitcode == 0
     # c_A = c_A0 exp(-k t), the closed form of the first test above.
     np.testing.assert_allclose(result.concentrations[0][:, 0], np.exp(-0.3 * np.linspace(0.0, 1.0, 3)), rtol=1e-5)
+
+
+def test_every_study_calls_the_one_compiled_signature_the_warm_up_compiles():
+    # numba compiles the whole solver (about a minute on a fresh install) for each new combination of argument
+    # types; a read-only order array or a strided index view once made a second one. In a fresh process: the
+    # warm-up (batch workers, a first fit's background compile), then the demo studies' log-densities (plain,
+    # dosed with a temperature history, area % with declared quantities): one signature of each entry point.
+    import subprocess
+    import sys
+
+    script = """
+from inference.physics import integrator, solution
+from inference import load_study
+from inference.workflows.kinds import open_problem
+solution.compile_kernels()
+for name in ("study.yaml", "dosed_study.yaml", "area_study.yaml"):
+    model = open_problem(load_study("data_demo/" + name)).build_model(333.15, None)
+    model.compile_logp()(model.initial_point())
+print(len(integrator.predict_measurements.signatures), len(integrator.integrate_run.signatures))
+"""
+    root = Path(__file__).resolve().parents[1]
+    run = subprocess.run([sys.executable, "-c", script], cwd=root, capture_output=True, text=True, timeout=600)
+    assert run.returncode == 0, run.stderr[-2000:]
+    assert run.stdout.split() == ["1", "1"]
