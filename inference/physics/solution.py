@@ -238,6 +238,9 @@ class MeasurementSolver:
         self.columns = np.ascontiguousarray(columns, dtype=np.int64)
         self.n_inputs = n_inputs
         self.factor = np.ones(self.run_index.size) if factor is None else np.ascontiguousarray(factor, dtype=float)
+        #: What the predictions alone integrate with: no sensitivity parameters, no Jacobian columns.
+        self.no_sensitivities = Sensitivities(*(values[:0].copy() for values in solver.sensitivities))
+        self.no_columns = np.zeros((self.columns.shape[0], 0), dtype=np.int64)
 
     def solve(self, inputs: KineticInputs, with_jacobian: bool = True) -> tuple[np.ndarray, np.ndarray]:
         """(prediction (M,), jacobian (M, inputs)) for ``inputs`` in solver form; raises ``SolverFailure``.
@@ -251,8 +254,7 @@ class MeasurementSolver:
         prediction = np.empty(self.run_index.size)
         sensitivities, columns = solver.sensitivities, self.columns
         if not with_jacobian:
-            sensitivities = Sensitivities(*(kind[:0].copy() for kind in sensitivities))
-            columns = np.zeros((columns.shape[0], 0), dtype=np.int64)
+            sensitivities, columns = self.no_sensitivities, self.no_columns
         jacobian = np.empty((self.run_index.size, self.n_inputs if with_jacobian else 0))
         solver.stats[:] = 0
         try:
