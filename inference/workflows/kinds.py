@@ -674,8 +674,7 @@ def _draw_in_parallel(draw: Callable[[int], None], count: int) -> None:
         for w, process in enumerate(processes):
             process.join()
             if process.exitcode != 0:
-                for index in range(w, count, workers):
-                    draw(index)
+                _draw_share(w, count, workers)
     finally:
         _figure_job = None
 
