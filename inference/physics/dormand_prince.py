@@ -108,7 +108,9 @@ def dopri_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
     out_index = record_start(times, u[:n], u[n:].reshape((n_params, n)), out_c, out_s)
     if out_index == times.shape[0]:
         return DONE
-    _augmented_rhs(u, 0.0, 0.0, 0, n, net, cond, params, stages[0], work)
+    t = 0.0
+    piece = dose_piece(cond, t)  # an int64 variable, not the literal 0: one compiled signature of the callees
+    _augmented_rhs(u, t, t, piece, n, net, cond, params, stages[0], work)
     # Initial step (Hairer, Norsett and Wanner, "Solving Ordinary Differential Equations I", sec. II.4).
     d0 = 0.0
     d1 = 0.0
@@ -124,7 +126,7 @@ def dopri_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
         return FAILED
     for i in range(size):
         trial[i] = u[i] + h * stages[0, i]
-    _augmented_rhs(trial, h, 0.0, 0, n, net, cond, params, stages[1], work)
+    _augmented_rhs(trial, h, t, piece, n, net, cond, params, stages[1], work)
     d2 = 0.0
     for i in range(size):
         scale = atol + rtol * abs(u[i])
@@ -135,9 +137,7 @@ def dopri_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
     if not (h > 0.0 and math.isfinite(h)):
         return FAILED
 
-    t = 0.0
     t_end = times[-1]
-    piece = dose_piece(cond, t)
     stop = next_stop(cond, t)
     steps = 0
     stiff_steps = 0

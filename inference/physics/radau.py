@@ -113,7 +113,8 @@ def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
     if out_index == times.shape[0]:
         return DONE
 
-    evaluate(y, 0.0, 0.0, 0, net, cond, f0, jac0, rate[0], forward_rate[0], reverse_rate[0], dr_dc, c[0], hold[0])
+    piece = dose_piece(cond, t)  # an int64 variable, not the literal 0: one compiled signature of evaluate
+    evaluate(y, t, t, piece, net, cond, f0, jac0, rate[0], forward_rate[0], reverse_rate[0], dr_dc, c[0], hold[0])
     for i in range(n):
         scale[i] = atol + rtol * abs(y[i])
     d0 = rms(y, scale)

@@ -11,12 +11,13 @@ import multiprocessing
 import signal
 import sys
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
-from .conditions import Conditions, isothermal_conditions, run_conditions
-from .integrator import DONE, integrate_run, predict_measurements
-from .kinetics import Kernel, Sensitivities, run_kernel
+from .conditions import Conditions, isothermal_conditions
+from .integrator import predict_measurements
+from .kinetics import Kernel, Sensitivities
 from .network import Network
 from .parameters import BLOCKS, KineticInputs, SensitivityLayout
 from .stepping import Tolerances
@@ -119,6 +120,21 @@ def network_kernel(network: Network, inputs: KineticInputs) -> Kernel:
     )
 
 
+class Gather(NamedTuple):
+    """Where ``predict_measurements`` reads the predictions, and what it fills: measurement m is run
+    ``run_index[m]`` at its time ``time_index[m]``, species ``species_index[m]``, times ``factor[m]``;
+    ``columns[r, p]`` is the Jacobian column of run r's sensitivity parameter p; ``prediction`` (M,) and
+    ``jacobian`` (M, inputs) are filled."""
+
+    run_index: np.ndarray
+    time_index: np.ndarray
+    species_index: np.ndarray
+    columns: np.ndarray
+    factor: np.ndarray
+    prediction: np.ndarray
+    jacobian: np.ndarray
+
+
 class NetworkSolver:
     """Solves one network for a fixed set of runs and sampling times.
 
@@ -145,8 +161,11 @@ class NetworkSolver:
         table = np.array(columns, dtype=np.int64).reshape(-1, 3)
         self.sensitivities = Sensitivities(*(np.ascontiguousarray(table[:, c]) for c in range(3)))
         self.times = [np.asarray(t, dtype=float) for t in times]
-        #: Accepted and rejected steps of the last ``solve``, and runs that went to the implicit method.
-        self.stats = np.zeros(3, dtype=np.int64)
+        self.all_times = np.concatenate(self.times)
+        self.time_offsets = np.concatenate([[0], np.cumsum([t.size for t in self.times])]).astype(np.int64)
+        #: Accepted and rejected steps of the last ``solve``, runs that went to the implicit method, and the run
+        #: integrated last (the failing one after an error).
+        self.stats = np.zeros(4, dtype=np.int64)
 
     @property
     def n_params(self) -> int:
@@ -173,42 +192,64 @@ class NetworkSolver:
         return Tolerances(settings.rtol, atol, settings.max_steps)
 
     def solve(self, inputs: KineticInputs, *, sensitivities: bool = True) -> Solution:
-        """Integrate all runs of ``inputs`` (solver form: full orders and initial concentrations).
-        Raises ``SolverFailure``."""
-        finish_background_compile()
-        initial = np.asarray(inputs.initial, dtype=float)
-        n_runs, n_species = initial.shape
+        """Integrate all runs of ``inputs`` (solver form: full orders and initial concentrations) to every one of
+        their times. Raises ``SolverFailure``."""
+        n_runs, n_species = np.shape(inputs.initial)
         n_params = self.n_params if sensitivities else 0
-        kernel = network_kernel(self.network, inputs)
-        conditions = self.conditions_for(n_runs)
         columns = Sensitivities(*(values[:n_params] for values in self.sensitivities))
-        tolerances = self.tolerances(initial)
-        concentrations, sens = [], [] if sensitivities else None
-        self.stats[:] = 0
-        for r in range(n_runs):
-            times = self.times[r]
-            out_c = np.empty((times.size, n_species))
-            out_s = np.empty((times.size, n_species, n_params))
-            try:
-                status = integrate_run(
-                    np.ascontiguousarray(initial[r]),
-                    times,
-                    run_kernel(kernel, r),
-                    run_conditions(conditions, r),
-                    columns,
-                    tolerances,
-                    out_c,
-                    out_s,
-                    self.stats,
-                )
-            except ArithmeticError:  # numba raises Python's errors (x / 0) where extreme parameters lead
-                status = -1
-            if status != DONE or not np.all(np.isfinite(out_c)):
-                raise SolverFailure(f"the integration of run {r} did not reach t = {times[-1]:g}", r)
-            concentrations.append(out_c)
-            if sens is not None:
-                sens.append(out_s)
+        profile_c = np.empty((self.all_times.size, n_species))
+        profile_s = np.empty((self.all_times.size, n_species, n_params))
+        self.integrate(inputs, columns, self.no_measurements(n_runs, n_params), profile_c, profile_s)
+        bounds = self.time_offsets
+        concentrations = [profile_c[bounds[r] : bounds[r + 1]] for r in range(n_runs)]
+        for r, values in enumerate(concentrations):
+            if not np.all(np.isfinite(values)):
+                raise SolverFailure(f"the integration of run {r} did not reach t = {self.times[r][-1]:g}", r)
+        sens = [profile_s[bounds[r] : bounds[r + 1]] for r in range(n_runs)] if sensitivities else None
         return Solution(concentrations, sens)
+
+    def no_measurements(self, n_runs: int, n_params: int) -> Gather:
+        """What ``integrate`` gathers when only the profiles are wanted: nothing."""
+        empty = np.empty(0, dtype=np.int64)
+        columns = np.zeros((n_runs, n_params), dtype=np.int64)
+        return Gather(empty, empty, empty, columns, np.empty(0), np.empty(0), np.empty((0, 0)))
+
+    def integrate(
+        self,
+        inputs: KineticInputs,
+        params: Sensitivities,
+        gather: Gather,
+        profile_c: np.ndarray | None = None,
+        profile_s: np.ndarray | None = None,
+    ) -> None:
+        """Integrate every run of ``inputs`` (solver form) with the sensitivities ``params`` in one compiled call,
+        filling ``gather``'s prediction and Jacobian and, where given, the profiles (all times, N) and
+        (all times, N, P). Raises ``SolverFailure`` naming the failing run."""
+        finish_background_compile()
+        initial = np.ascontiguousarray(inputs.initial, dtype=float)
+        n_species = initial.shape[1]
+        if profile_c is None:
+            profile_c, profile_s = np.empty((0, n_species)), np.empty((0, n_species, params.kind.size))
+        self.stats[:] = 0
+        try:
+            failed = predict_measurements(
+                initial,
+                self.all_times,
+                self.time_offsets,
+                network_kernel(self.network, inputs),
+                self.conditions_for(initial.shape[0]),
+                params,
+                self.tolerances(initial),
+                *gather,
+                profile_c,
+                profile_s,
+                self.stats,
+            )
+        except ArithmeticError as error:  # numba raises Python's errors (x / 0) where extreme parameters lead
+            run = int(self.stats[3])
+            raise SolverFailure(f"the integration of run {run} failed ({type(error).__name__})", run) from None
+        if failed >= 0:
+            raise SolverFailure(f"the integration of run {failed} did not reach t = {self.times[failed][-1]:g}", failed)
 
 
 class MeasurementSolver:
@@ -229,8 +270,6 @@ class MeasurementSolver:
         factor: np.ndarray | None = None,
     ) -> None:
         self.solver = solver
-        self.all_times = np.concatenate(solver.times)
-        self.time_offsets = np.concatenate([[0], np.cumsum([t.size for t in solver.times])]).astype(np.int64)
         # Contiguous arrays throughout, so that every study calls the one compiled signature.
         self.run_index = np.ascontiguousarray(run_index, dtype=np.int64)
         self.time_index = np.ascontiguousarray(time_index, dtype=np.int64)
@@ -246,45 +285,20 @@ class MeasurementSolver:
         """(prediction (M,), jacobian (M, inputs)) for ``inputs`` in solver form; raises ``SolverFailure``.
         ``with_jacobian=False`` integrates the concentrations alone (1 + P times less work for P sensitivity
         parameters) and returns an empty (M, 0) Jacobian."""
-        finish_background_compile()
-        solver = self.solver
-        initial = np.ascontiguousarray(inputs.initial, dtype=float)
-        kernel = network_kernel(solver.network, inputs)
-        tolerances = solver.tolerances(initial)
-        prediction = np.empty(self.run_index.size)
-        sensitivities, columns = solver.sensitivities, self.columns
+        sensitivities, columns = self.solver.sensitivities, self.columns
         if not with_jacobian:
             sensitivities, columns = self.no_sensitivities, self.no_columns
+        prediction = np.empty(self.run_index.size)
         jacobian = np.empty((self.run_index.size, self.n_inputs if with_jacobian else 0))
-        solver.stats[:] = 0
-        try:
-            failed = predict_measurements(
-                initial,
-                self.all_times,
-                self.time_offsets,
-                kernel,
-                solver.conditions_for(initial.shape[0]),
-                sensitivities,
-                tolerances,
-                self.run_index,
-                self.time_index,
-                self.species_index,
-                columns,
-                self.factor,
-                prediction,
-                jacobian,
-                solver.stats,
-            )
-        except ArithmeticError as error:  # numba raises Python's errors (x / 0) where extreme parameters lead
-            raise SolverFailure(f"the integration failed ({type(error).__name__})") from None
-        if failed >= 0:
-            raise SolverFailure(f"the integration of run {failed} did not reach its last time", failed)
+        gather = Gather(self.run_index, self.time_index, self.species_index, columns, self.factor, prediction, jacobian)
+        self.solver.integrate(inputs, sensitivities, gather)
         return prediction, jacobian
 
 
 def compile_kernels() -> None:
-    """Compile (or load from numba's on-disk cache) both entry points of the integrator: a run's profile
-    (``NetworkSolver.solve``) and every run's predictions with their Jacobian (``MeasurementSolver.solve``)."""
+    """Compile (or load from numba's on-disk cache) the integrator's entry point, ``predict_measurements``, through
+    both of its callers: profiles (``NetworkSolver.solve``) and predictions with their Jacobian
+    (``MeasurementSolver.solve``)."""
     from .network import build_network, parse_equation
 
     network = build_network(("A", "B"), ("warm",), (parse_equation("A -> B"),))
