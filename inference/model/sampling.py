@@ -185,6 +185,7 @@ def _held_mask(model: pm.Model, mapped: RaveledVars) -> np.ndarray:
 def log_density_function(model: pm.Model, start: dict | None = None) -> ValueGradFunction:
     """The model's log density with its gradient, a function of the free variables raveled in PyMC's order
     (``model.continuous_value_vars``), compiled once per fit: the start check, the mode search and NUTS share it."""
+    quiet_backend_logs()  # the first C compile of a fit is here, and PyTensor's BLAS notice with it
     log_density = model.logp_dlogp_function(ravel_inputs=True, initial_point=start or prior_centre(model))
     log_density.trust_input = True  # as NUTS sets it: inputs are float64 vectors of the right size
     log_density.set_extra_values({})

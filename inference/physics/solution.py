@@ -17,10 +17,14 @@ import numpy as np
 
 from .conditions import Conditions, isothermal_conditions
 from .integrator import predict_measurements
-from .kinetics import Kernel, Sensitivities
+from .kinetics import ACTIVATION, ADS_ENTHALPY, EXPONENT, LN_ADS, LN_K, ORDER, Kernel, Sensitivities
 from .network import Network
 from .parameters import BLOCKS, KineticInputs, SensitivityLayout
 from .stepping import Tolerances
+
+#: Sensitivity kinds that act through a reaction's rate alone: for a reaction held at equilibrium (no rate) they
+#: are inert (their sensitivities stay zero) and are not integrated.
+RATE_ONLY_KINDS = (LN_K, ORDER, LN_ADS, ACTIVATION, ADS_ENTHALPY, EXPONENT)
 
 
 class SolverFailure(RuntimeError):
@@ -160,6 +164,11 @@ class NetworkSolver:
         columns = [(block.kernel_kind, j, i) for block in BLOCKS for j, i in block.sites(self.layout)]
         table = np.array(columns, dtype=np.int64).reshape(-1, 3)
         self.sensitivities = Sensitivities(*(np.ascontiguousarray(table[:, c]) for c in range(3)))
+        #: Positions of the parameters the kernel integrates: all but those of a reaction held at equilibrium
+        #: that only its rate depends on (it has none), whose sensitivities are zero at every time.
+        inert = (table[:, 1] == network.held) & np.isin(table[:, 0], RATE_ONLY_KINDS)
+        self.active = np.flatnonzero(~inert)
+        self.integrated = Sensitivities(*(np.ascontiguousarray(values[self.active]) for values in self.sensitivities))
         self.times = [np.asarray(t, dtype=float) for t in times]
         self.all_times = np.concatenate(self.times)
         self.time_offsets = np.concatenate([[0], np.cumsum([t.size for t in self.times])]).astype(np.int64)
@@ -195,11 +204,14 @@ class NetworkSolver:
         """Integrate all runs of ``inputs`` (solver form: full orders and initial concentrations) to every one of
         their times. Raises ``SolverFailure``."""
         n_runs, n_species = np.shape(inputs.initial)
-        n_params = self.n_params if sensitivities else 0
-        columns = Sensitivities(*(values[:n_params] for values in self.sensitivities))
+        params = self.integrated if sensitivities else Sensitivities(*(values[:0] for values in self.integrated))
+        n_params = params.kind.size
         profile_c = np.empty((self.all_times.size, n_species))
         profile_s = np.empty((self.all_times.size, n_species, n_params))
-        self.integrate(inputs, columns, self.no_measurements(n_runs, n_params), profile_c, profile_s)
+        self.integrate(inputs, params, self.no_measurements(n_runs, n_params), profile_c, profile_s)
+        if sensitivities and n_params < self.n_params:  # the inert ones are zero
+            integrated, profile_s = profile_s, np.zeros((self.all_times.size, n_species, self.n_params))
+            profile_s[:, :, self.active] = integrated
         bounds = self.time_offsets
         concentrations = [profile_c[bounds[r] : bounds[r + 1]] for r in range(n_runs)]
         for r, values in enumerate(concentrations):
@@ -277,6 +289,7 @@ class MeasurementSolver:
         self.columns = np.ascontiguousarray(columns, dtype=np.int64)
         self.n_inputs = n_inputs
         self.factor = np.ones(self.run_index.size) if factor is None else np.ascontiguousarray(factor, dtype=float)
+        self.active_columns = np.ascontiguousarray(self.columns[:, solver.active])
         #: What the predictions alone integrate with: no sensitivity parameters, no Jacobian columns.
         self.no_sensitivities = Sensitivities(*(values[:0].copy() for values in solver.sensitivities))
         self.no_columns = np.zeros((self.columns.shape[0], 0), dtype=np.int64)
@@ -285,7 +298,7 @@ class MeasurementSolver:
         """(prediction (M,), jacobian (M, inputs)) for ``inputs`` in solver form; raises ``SolverFailure``.
         ``with_jacobian=False`` integrates the concentrations alone (1 + P times less work for P sensitivity
         parameters) and returns an empty (M, 0) Jacobian."""
-        sensitivities, columns = self.solver.sensitivities, self.columns
+        sensitivities, columns = self.solver.integrated, self.active_columns
         if not with_jacobian:
             sensitivities, columns = self.no_sensitivities, self.no_columns
         prediction = np.empty(self.run_index.size)
