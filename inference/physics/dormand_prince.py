@@ -12,7 +12,7 @@ import numpy as np
 
 from .conditions import dose_piece, next_stop
 from .kinetics import INITIAL, parameter_rate
-from .stepping import DONE, FAILED, STIFF, evaluate, held_share, record_start, start_state
+from .stepping import DONE, FAILED, STIFF, borrowed, evaluate, held_share, record_start, start_state
 
 #: Dormand-Prince 5(4): nodes, stage coefficients, 5th-order weights, and 5th minus 4th order weights
 #: (the last weight belongs to f at the new point).
@@ -77,26 +77,19 @@ def _augmented_rhs(u, t, start, piece, n, net, cond, params, out, work):
             out[offset + i] = total
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, inline="always")
 def dopri_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
     """Like ``radau_run`` with the explicit Dormand-Prince pair; FAILED once ``max_steps`` are used, STIFF as soon
     as the stiffness test says the step size is held by stability rather than accuracy. Steps end where the
     inflow jumps and at the points of a short temperature programme (``conditions.next_stop``), so no step
     straddles a discontinuity."""
-    rtol, atol, max_steps = tolerances.rtol, tolerances.atol, tolerances.max_steps
-    forward = net.forward
-    kinds = params.kind
-    n_reactions, n = forward.shape
-    n_params = kinds.shape[0]
-    size = n * (1 + n_params)
-    u = np.zeros(size)
-    start, start_s = start_state(y0, net, cond, params)
-    u[:n] = start
-    u[n:] = start_s.ravel()
-    stages = np.empty((7, size))
-    trial = np.empty(size)
-    new = np.empty(size)
-    work = (
+    n_reactions, n = net.forward.shape
+    size = n * (1 + params.kind.shape[0])
+    scratch = (
+        np.zeros(size),
+        np.empty((7, size)),
+        np.empty(size),
+        np.empty(size),
         np.empty((n, n)),
         np.empty(n_reactions),
         np.empty(n_reactions),
@@ -105,6 +98,23 @@ def dopri_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
         np.empty(n),
         np.empty(n + 2),
     )
+    return _dopri_steps(y0, times, net, cond, params, tolerances, out_c, out_s, stats, scratch)
+
+
+@numba.njit(cache=True)
+def _dopri_steps(y0, times, net, cond, params, tolerances, out_c, out_s, stats, scratch):
+    """``dopri_run`` with its scratch arrays allocated by the caller, so that they outlive this call and may be
+    used as views that hold no reference (``stepping.borrowed``)."""
+    rtol, atol, max_steps = tolerances.rtol, tolerances.atol, tolerances.max_steps
+    n = net.forward.shape[1]
+    n_params = params.kind.shape[0]
+    size = n * (1 + n_params)
+    u, stages, trial, new, jac, rate, forward_rate, reverse_rate, dr_dc, c, hold = borrowed(scratch)
+    out_c, out_s = borrowed((out_c, out_s))
+    work = (jac, rate, forward_rate, reverse_rate, dr_dc, c, hold)
+    start, start_s = start_state(y0, net, cond, params)
+    u[:n] = start
+    u[n:] = start_s.ravel()
     out_index = record_start(times, u[:n], u[n:].reshape((n_params, n)), out_c, out_s)
     if out_index == times.shape[0]:
         return DONE

@@ -21,7 +21,7 @@ from .dormand_prince import dopri_run
 from .kinetics import Sensitivities, run_kernel
 from .radau import radau_run
 from .steady_state import STARTUP_RESIDENCE_TIMES, steady_state_run
-from .stepping import DONE, FAILED, Tolerances
+from .stepping import DONE, FAILED, Tolerances, borrowed
 
 #: Steps of the explicit pair after which a run goes to the implicit method even if the stiffness test never fired.
 EXPLICIT_BUDGET = 1500
@@ -87,6 +87,8 @@ def predict_measurements(
     """
     n_runs, n = initial.shape
     n_params = params.kind.shape[0]
+    # The arguments live until this call returns, so everything below may use views that hold no reference.
+    kernel, conditions, params = borrowed(kernel), borrowed(conditions), borrowed(params)
     jacobian[:, :] = 0.0
     for r in range(n_runs):
         stats[3] = r
