@@ -16,7 +16,7 @@ import numpy as np
 
 from .conditions import dose_piece, next_stop
 from .kinetics import INITIAL, parameter_rate
-from .stepping import DONE, FAILED, evaluate, held_share, lu_factor, lu_solve, record_start, rms, start_state
+from .stepping import DONE, FAILED, borrowed, evaluate, held_share, lu_factor, lu_solve, record_start, rms, start_state
 
 _S6 = math.sqrt(6.0)
 #: Radau IIA(5) nodes and coefficient matrix (Hairer and Wanner, table IV.5.6).
@@ -61,7 +61,7 @@ def _evaluate_stage(y, z, bi, t, start, piece, net, cond, stage, slots):
     )
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, inline="always")
 def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
     """Integrate one run, under its ``conditions.RunConditions``, from t = 0 to every time in ``times``
     (ascending, >= 0); steps also end where the inflow jumps.
@@ -70,43 +70,78 @@ def radau_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
     ``stats`` receives the counts of accepted steps and of rejected steps (error test or Newton failure).
     Returns DONE, or FAILED when the step count or step size runs out or a value stops being finite.
     """
+    n_reactions, n = net.forward.shape
+    scratch = (
+        np.empty(n),
+        np.empty((n, n)),
+        np.empty((3, n)),
+        np.empty((3, n, n)),
+        np.empty((3, n_reactions)),
+        np.empty((3, n_reactions)),
+        np.empty((3, n_reactions)),
+        np.empty((n_reactions, n)),
+        np.empty((3, n)),
+        np.empty((3, n + 2)),
+        np.empty((3 * n, 3 * n)),
+        np.empty((n, n)),
+        np.zeros((3, n)),
+        np.empty(3 * n),
+        np.empty(n),
+        np.empty(n),
+        np.empty(n),
+        np.empty(3 * n),
+        np.empty((3, n)),
+        np.zeros(3),
+        np.zeros(3),
+        np.empty((3, 3)),
+    )
+    pivots = (np.empty(3 * n, dtype=np.int64), np.empty(n, dtype=np.int64))
+    return _radau_steps(y0, times, net, cond, params, tolerances, out_c, out_s, stats, scratch, pivots)
+
+
+@numba.njit(cache=True)
+def _radau_steps(y0, times, net, cond, params, tolerances, out_c, out_s, stats, scratch, pivots):
+    """``radau_run`` with its scratch arrays allocated by the caller, so that they outlive this call and may be
+    used as views that hold no reference (``stepping.borrowed``)."""
     rtol, atol, max_steps = tolerances.rtol, tolerances.atol, tolerances.max_steps
     stoichiometry, forward = net.stoichiometry, net.forward
     held = net.held
     held_row = max(held, 0)
     kinds, param_reaction, param_species = params.kind, params.reaction, params.species
-    n_reactions, n = forward.shape
+    n = forward.shape[1]
     n_params = kinds.shape[0]
-    a = np.empty((3, 3))
+    (
+        f0,
+        jac0,
+        fz,
+        jz,
+        rate,
+        forward_rate,
+        reverse_rate,
+        dr_dc,
+        c,
+        hold,
+        newton,
+        small,
+        z,
+        residual,
+        stage,
+        scale,
+        error,
+        rhs,
+        source,
+        temperature_x,
+        temperature_l,
+        a,
+    ) = borrowed(scratch)
+    newton_piv, small_piv = borrowed(pivots)
+    out_c, out_s = borrowed((out_c, out_s))
     for i in range(3):
         for j in range(3):
             a[i, j] = A[i, j]
     y, s = start_state(y0, net, cond, params)
-    f0 = np.empty(n)
-    jac0 = np.empty((n, n))
-    fz = np.empty((3, n))
-    jz = np.empty((3, n, n))
-    rate = np.empty((3, n_reactions))
-    forward_rate = np.empty((3, n_reactions))
-    reverse_rate = np.empty((3, n_reactions))
-    dr_dc = np.empty((n_reactions, n))
-    c = np.empty((3, n))
-    hold = np.empty((3, n + 2))
     slots = (fz, jz, rate, forward_rate, reverse_rate, dr_dc, c, hold)
     newton_tol = max(10.0 * 2.220446049250313e-16 / rtol, min(0.03, math.sqrt(rtol)))
-    newton = np.empty((3 * n, 3 * n))
-    newton_piv = np.empty(3 * n, dtype=np.int64)
-    small = np.empty((n, n))
-    small_piv = np.empty(n, dtype=np.int64)
-    z = np.zeros((3, n))
-    residual = np.empty(3 * n)
-    stage = np.empty(n)
-    scale = np.empty(n)
-    error = np.empty(n)
-    rhs = np.empty(3 * n)
-    source = np.empty((3, n))
-    temperature_x = np.zeros(3)
-    temperature_l = np.zeros(3)
 
     t = 0.0
     out_index = record_start(times, y, s, out_c, out_s)
