@@ -169,6 +169,8 @@ class NetworkSolver:
         inert = (table[:, 1] == network.held) & np.isin(table[:, 0], RATE_ONLY_KINDS)
         self.active = np.flatnonzero(~inert)
         self.integrated = Sensitivities(*(np.ascontiguousarray(values[self.active]) for values in self.sensitivities))
+        #: What the concentrations alone integrate with: no sensitivity parameters.
+        self.no_sensitivities = Sensitivities(*(values[:0].copy() for values in self.sensitivities))
         self.times = [np.asarray(t, dtype=float) for t in times]
         self.all_times = np.concatenate(self.times)
         self.time_offsets = np.concatenate([[0], np.cumsum([t.size for t in self.times])]).astype(np.int64)
@@ -204,11 +206,11 @@ class NetworkSolver:
         """Integrate all runs of ``inputs`` (solver form: full orders and initial concentrations) to every one of
         their times. Raises ``SolverFailure``."""
         n_runs, n_species = np.shape(inputs.initial)
-        params = self.integrated if sensitivities else Sensitivities(*(values[:0] for values in self.integrated))
+        params = self.integrated if sensitivities else self.no_sensitivities
         n_params = params.kind.size
         profile_c = np.empty((self.all_times.size, n_species))
         profile_s = np.empty((self.all_times.size, n_species, n_params))
-        self.integrate(inputs, params, self.no_measurements(n_runs, n_params), profile_c, profile_s)
+        self.integrate(inputs, params, self._no_measurements(n_runs, n_params), profile_c, profile_s)
         if sensitivities and n_params < self.n_params:  # the inert ones are zero
             integrated, profile_s = profile_s, np.zeros((self.all_times.size, n_species, self.n_params))
             profile_s[:, :, self.active] = integrated
@@ -220,7 +222,7 @@ class NetworkSolver:
         sens = [profile_s[bounds[r] : bounds[r + 1]] for r in range(n_runs)] if sensitivities else None
         return Solution(concentrations, sens)
 
-    def no_measurements(self, n_runs: int, n_params: int) -> Gather:
+    def _no_measurements(self, n_runs: int, n_params: int) -> Gather:
         """What ``integrate`` gathers when only the profiles are wanted: nothing."""
         empty = np.empty(0, dtype=np.int64)
         columns = np.zeros((n_runs, n_params), dtype=np.int64)
@@ -290,8 +292,7 @@ class MeasurementSolver:
         self.n_inputs = n_inputs
         self.factor = np.ones(self.run_index.size) if factor is None else np.ascontiguousarray(factor, dtype=float)
         self.active_columns = np.ascontiguousarray(self.columns[:, solver.active])
-        #: What the predictions alone integrate with: no sensitivity parameters, no Jacobian columns.
-        self.no_sensitivities = Sensitivities(*(values[:0].copy() for values in solver.sensitivities))
+        #: The Jacobian columns of the predictions alone: none.
         self.no_columns = np.zeros((self.columns.shape[0], 0), dtype=np.int64)
 
     def solve(self, inputs: KineticInputs, with_jacobian: bool = True) -> tuple[np.ndarray, np.ndarray]:
@@ -300,7 +301,7 @@ class MeasurementSolver:
         parameters) and returns an empty (M, 0) Jacobian."""
         sensitivities, columns = self.solver.integrated, self.active_columns
         if not with_jacobian:
-            sensitivities, columns = self.no_sensitivities, self.no_columns
+            sensitivities, columns = self.solver.no_sensitivities, self.no_columns
         prediction = np.empty(self.run_index.size)
         jacobian = np.empty((self.run_index.size, self.n_inputs if with_jacobian else 0))
         gather = Gather(self.run_index, self.time_index, self.species_index, columns, self.factor, prediction, jacobian)
