@@ -376,9 +376,10 @@ def run_plain(study: Path, work: Path, tag: str, draws: list[str], timeout: floa
 
 
 # --------------------------------------------------------------------------------------- the children
-def arrhenia_fit_child(calls: str, argv: list[str]) -> int:
-    """``arrhenia fit`` with every Op call logged (start and end, per process)."""
-    from inference.cli import main
+def arrhenia_fit_child(calls: str, argv: list[str]) -> None:
+    """``arrhenia fit`` (the console entry point, which exits) with every Op call logged (start and end, per
+    process)."""
+    from inference.cli import console
     from inference.model.ops import NetworkPrediction
 
     log = CallLog(Path(calls))
@@ -390,7 +391,7 @@ def arrhenia_fit_child(calls: str, argv: list[str]) -> int:
         log.write(started, time.time())
 
     NetworkPrediction.perform = logged
-    return main(argv)
+    console(argv)
 
 
 def arrhenia_measure_child(results: str, study_path: str) -> None:
@@ -607,7 +608,7 @@ def main() -> None:
 
 if __name__ == "__main__":
     if len(sys.argv) > 2 and sys.argv[1] == "--arrhenia-fit":
-        sys.exit(arrhenia_fit_child(sys.argv[2], sys.argv[3:]))
+        arrhenia_fit_child(sys.argv[2], sys.argv[3:])
     elif len(sys.argv) == 4 and sys.argv[1] == "--arrhenia-measure":
         arrhenia_measure_child(sys.argv[2], sys.argv[3])
     elif len(sys.argv) == 3 and sys.argv[1] == "--stiff-probe":

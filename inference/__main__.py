@@ -1,7 +1,5 @@
 """``python -m inference`` runs the ``arrhenia`` command."""
 
-import sys
+from .cli import console
 
-from .cli import main
-
-sys.exit(main())
+console()

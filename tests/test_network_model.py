@@ -107,6 +107,20 @@ def test_log_density_gradient_matches_finite_differences(tmp_path, noise):
     _gradient_check(_consecutive_problem(tmp_path, noise, runs, meas).build_model(T_REF))
 
 
+def test_sampling_starts_at_the_priors_centre(tmp_path):
+    # The mode search and the start check begin at every prior's centre; PyMC alone would start the bounded
+    # standardised Ea one unit above its bound (Ea near zero), not at its mean.
+    from inference.model.sampling import prior_centre
+
+    runs = "run,temperature,A,B,C\nr1,50,1.0,0,0\n"
+    meas = "run,time,A,B,C\nr1,2,0.85,0.14,0.01\n"
+    model = _consecutive_problem(tmp_path, "proportional", runs, meas).build_model(T_REF)
+    quantities = model.replace_rvs_by_values([model["Ea"], model["ln_k_ref"]])
+    at_start = model.compile_fn(quantities, inputs=model.value_vars, on_unused_input="ignore")(prior_centre(model))
+    np.testing.assert_allclose(at_start[0], [60e3, 70e3])  # J/mol: the priors' means (CONSECUTIVE)
+    np.testing.assert_allclose(at_start[1], np.log([0.1, 0.05]))  # the log of their medians
+
+
 @pytest.mark.parametrize("noise", ["proportional", "absolute", "robust"])
 def test_noise_on_the_log_scale_resolves_the_smallest_value(tmp_path, noise):
     # Noise on the log of values compares every value in relative terms, however small, so the solver's relative
