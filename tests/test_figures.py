@@ -348,23 +348,25 @@ def test_per_temperature_ln_k_of_an_isothermal_dosed_run_matches_solve_ivp(tmp_p
     assert points.table["ln_k"].iloc[0] == pytest.approx(math.log(k), abs=1e-4)
 
 
-@pytest.mark.parametrize("count", [2, 6])
-def test_run_figures_are_each_drawn_once_in_process_or_forked(tmp_path, count):
-    # Below PARALLEL_FIGURES_FROM the figures are drawn here, above it in forked processes: either way every
-    # index is drawn exactly once (each writes its own file; nothing comes back from the processes).
-    from inference.workflows import kinds
+@pytest.mark.parametrize("count", [1, 2, 6])
+def test_figures_are_each_drawn_once_while_the_block_runs(tmp_path, count):
+    # With one job it is drawn here after the block; with more, forked processes draw them while the block runs:
+    # either way every job is drawn exactly once (each writes its own file; nothing comes back).
+    from inference.outputs.drawing import drawn_meanwhile
 
-    kinds._draw_in_parallel(lambda i: (tmp_path / f"{i}.txt").open("a").write("drawn\n"), count)
-    assert sorted(p.name for p in tmp_path.iterdir()) == sorted(f"{i}.txt" for i in range(count))
+    jobs = [lambda i=i: (tmp_path / f"{i}.txt").open("a").write("drawn\n") for i in range(count)]
+    with drawn_meanwhile(jobs):
+        (tmp_path / "block.txt").write_text("ran\n")
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted([*(f"{i}.txt" for i in range(count)), "block.txt"])
     assert all((tmp_path / f"{i}.txt").read_text() == "drawn\n" for i in range(count))
 
 
 def test_a_forked_share_that_fails_is_drawn_here(tmp_path):
-    # A forked process that dies on one figure (here: index 3 raises outside this process) leaves its share to
+    # A forked process that dies on one figure (here: job 3 raises outside this process) leaves its share to
     # this process, so every figure is still written.
     import os
 
-    from inference.workflows import kinds
+    from inference.outputs.drawing import drawn_meanwhile
 
     parent = os.getpid()
 
@@ -373,6 +375,7 @@ def test_a_forked_share_that_fails_is_drawn_here(tmp_path):
             raise RuntimeError("a figure that fails in a forked process")
         (tmp_path / f"{index}.txt").write_text(f"drawn by {'parent' if os.getpid() == parent else 'child'}\n")
 
-    kinds._draw_in_parallel(draw, 6)
+    with drawn_meanwhile([lambda i=i: draw(i) for i in range(6)]):
+        pass
     assert sorted(p.name for p in tmp_path.iterdir()) == sorted(f"{i}.txt" for i in range(6))
     assert (tmp_path / "3.txt").read_text() == "drawn by parent\n"

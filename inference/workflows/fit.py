@@ -23,6 +23,7 @@ from ..inputs.schema import Sampling
 from ..inputs.study import Study
 from ..model.sampling import log_density_function, non_finite_start, sample_posterior, scratch_folder
 from ..outputs import plots, report
+from ..outputs.drawing import drawn_meanwhile
 from ..outputs.records import FitResult
 from ..outputs.reporting import CAUTION, Steps, compile_notice, process_age_s
 from ..outputs.results import (
@@ -279,17 +280,20 @@ def _write(
         folder.write_csv("correlations.csv", result.correlations)
         folder.write_csv("fit_checks.csv", result.fit_checks)
         folder.write_json("diagnostics.json", {**result.diagnostics.to_dict(), "predictive_coverage_90": coverage})
-        with steps.measure("write posterior.nc"):
+        pair, priors = folder.path("figures/pair.png"), folder.path("figures/prior_posterior.png")
+        figures = [  # the two largest first: the drawing processes take every other job
+            lambda: plots.pair_plot(_pair_columns(quantities), pair, seed=sampling["seed"]),
+            lambda: plots.prior_posterior_plot(
+                study, idata.posterior, priors, temperature_ref=result.reference_temperature_K
+            ),
+            *problem.figures(folder, idata, result.reference_temperature_K, fit_checks, points),
+        ]
+        with (
+            steps.measure("draw figures (posterior.nc written meanwhile)"),
+            drawn_meanwhile(figures),
+            steps.measure("write posterior.nc"),
+        ):
             idata.to_netcdf(str(folder.path("posterior.nc")))
-        with steps.measure("draw figures"):
-            problem.figures(folder, idata, result.reference_temperature_K, fit_checks, points)
-            plots.pair_plot(_pair_columns(quantities), folder.path("figures/pair.png"), seed=sampling["seed"])
-            plots.prior_posterior_plot(
-                study,
-                idata.posterior,
-                folder.path("figures/prior_posterior.png"),
-                temperature_ref=result.reference_temperature_K,
-            )
         folder.write_text("study.yaml", resolved_study_yaml(study, result.reference_temperature_K, sampling))
         order = ["arrhenius.png", "pair.png", "prior_posterior.png"]
         names = sorted(

@@ -9,9 +9,6 @@ the ``StagedFolder`` it is handed.
 from __future__ import annotations
 
 import math
-import multiprocessing
-import os
-from collections.abc import Callable
 from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Protocol
@@ -26,6 +23,7 @@ from ..inputs.rate_laws import REGISTRY
 from ..inputs.rate_laws.law import lognormal_text, normal_text
 from ..inputs.study import Study
 from ..outputs import plots
+from ..outputs.drawing import FigureJob
 from ..physics import closed_form
 from ..physics.parameters import BLOCKS
 from ..physics.solution import NetworkSolver, SolverFailure
@@ -87,7 +85,7 @@ class Problem(Protocol):
         temperature_ref: float,
         fit_checks: pd.DataFrame,
         points: TemperaturePoints | None = None,
-    ) -> None: ...
+    ) -> list[FigureJob]: ...
 
     def with_measurements(self, values: np.ndarray) -> Problem: ...
 
@@ -305,15 +303,14 @@ class RateConstantProblem:
         temperature_ref: float,
         fit_checks: pd.DataFrame,
         points: TemperaturePoints | None = None,
-    ) -> None:
-        plots.arrhenius_plot(
-            self.study,
-            idata.posterior,
-            temperature_ref,
-            self.temperatures_K,
-            folder.path("figures/arrhenius.png"),
-            data=self.data,
-        )
+    ) -> list[FigureJob]:
+        """The figures to draw (``outputs.drawing``): the Arrhenius plot with the measured rate constants."""
+        path = folder.path("figures/arrhenius.png")
+        return [
+            lambda: plots.arrhenius_plot(
+                self.study, idata.posterior, temperature_ref, self.temperatures_K, path, data=self.data
+            )
+        ]
 
 
 @dataclass(frozen=True)
@@ -609,74 +606,28 @@ class NetworkProblem:
         temperature_ref: float,
         fit_checks: pd.DataFrame,
         points: TemperaturePoints | None = None,
-    ) -> None:
-        obs = self.obs
-        plots.arrhenius_plot(
-            self.study,
-            idata.posterior,
-            temperature_ref,
-            self.temperatures_K,
-            folder.path("figures/arrhenius.png"),
-            points=points,
-        )
-        if obs.quantity_index is not None:
-            plots.measured_quantities_plot(self.study, obs, fit_checks, folder.path("figures/measured_quantities.png"))
-        if obs.steady:  # one point per steady state: outlet against residence time, not a profile per row
-            plots.steady_state_plot(self.study, obs, fit_checks, folder.path("figures/steady_states.png"))
-            return
-        times = [np.linspace(0.0, float(t.max()), PROFILE_POINTS) for t in obs.times]
-        curves = self.profiles(idata.posterior, temperature_ref, times)
-        paths = [
-            folder.path(f"figures/run_{''.join(ch if ch.isalnum() or ch in '-_.' else '_' for ch in run)}.png")
-            for run in obs.run_ids
+    ) -> list[FigureJob]:
+        """The figures to draw (``outputs.drawing``): Arrhenius plot, measured quantities, and each run's profiles
+        (worked out here, before the drawing processes fork) or the steady states."""
+        study, obs, posterior = self.study, self.obs, idata.posterior
+        arrhenius = folder.path("figures/arrhenius.png")
+        jobs = [
+            lambda: plots.arrhenius_plot(
+                study, posterior, temperature_ref, self.temperatures_K, arrhenius, points=points
+            )
         ]
-        _draw_in_parallel(
-            lambda r: plots.run_fit_plot(self.study, obs, r, times[r], curves[r], fit_checks, paths[r]), len(paths)
-        )
-
-
-#: Figures drawn in one process below this many; above it, forked processes share them (one per core).
-PARALLEL_FIGURES_FROM = 4
-
-_figure_job: Callable[[int], None] | None = None
-
-
-def _draw_share(first: int, count: int, step: int) -> None:
-    """In a forked process: figures first, first + step, ... below count."""
-    assert _figure_job is not None  # set by the parent before it forks
-    for index in range(first, count, step):
-        _figure_job(index)
-
-
-def _draw_in_parallel(draw: Callable[[int], None], count: int) -> None:
-    """``draw(i)`` for i < count: in forked processes, one per core, when there are enough figures to pay for
-    them (the figures are written to files; nothing comes back), else here. Where fork is not the start method
-    (it is on Linux), or this process may not have children, here.
-
-    Each process draws a fixed share and exits; nothing is queued and nothing is terminated. (A
-    ``multiprocessing.Pool`` hung here in the test suite, in two fits at once: its work done, the parent waited
-    for a worker that waited for the task queue's lock, whose other worker was gone.) A share whose process fails
-    is drawn here.
-    """
-    global _figure_job
-    workers = min(os.cpu_count() or 1, count)
-    daemon = multiprocessing.current_process().daemon  # a daemonic process (some job runners') may not fork
-    if count < PARALLEL_FIGURES_FROM or workers < 2 or daemon or multiprocessing.get_start_method() != "fork":
-        for index in range(count):
-            draw(index)
-        return
-    _figure_job = draw
-    try:
-        context = multiprocessing.get_context("fork")
-        processes = [context.Process(target=_draw_share, args=(w, count, workers)) for w in range(workers)]
-        for process in processes:
-            process.start()
-        for w, process in enumerate(processes):
-            process.join()
-            if process.exitcode != 0:
-                _draw_share(w, count, workers)
-    finally:
-        _figure_job = None
+        if obs.quantity_index is not None:
+            quantities = folder.path("figures/measured_quantities.png")
+            jobs.append(lambda: plots.measured_quantities_plot(study, obs, fit_checks, quantities))
+        if obs.steady:  # one point per steady state: outlet against residence time, not a profile per row
+            steady = folder.path("figures/steady_states.png")
+            return [*jobs, lambda: plots.steady_state_plot(study, obs, fit_checks, steady)]
+        times = [np.linspace(0.0, float(t.max()), PROFILE_POINTS) for t in obs.times]
+        curves = self.profiles(posterior, temperature_ref, times)
+        for r, run in enumerate(obs.run_ids):
+            path = folder.path(f"figures/run_{''.join(ch if ch.isalnum() or ch in '-_.' else '_' for ch in run)}.png")
+            jobs.append(lambda r=r, path=path: plots.run_fit_plot(study, obs, r, times[r], curves[r], fit_checks, path))
+        return jobs
 
 
 #: The kinds of study, by ``Study.mode``. Each reads its own data (``open``) and answers the ``Problem``
