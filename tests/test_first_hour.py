@@ -44,6 +44,29 @@ def test_no_command_prints_the_usage_once(run_cli):
     assert "new" in text and "fit" in text  # the commands are listed with it
 
 
+def test_the_arrhenia_command_is_main_in_a_process_that_defers_full_collections(capsys):
+    # pyproject's console script is cli.console: main's exit code, full garbage collections deferred (young
+    # ones still run), and what is alive frozen before exit; restored here, since this process goes on.
+    import gc
+    import tomllib
+
+    from inference import cli
+
+    scripts = tomllib.loads((REPO / "pyproject.toml").read_text())["project"]["scripts"]
+    assert scripts == {"arrhenia": "inference.cli:console"}
+    saved = gc.get_threshold()
+    try:
+        with pytest.raises(SystemExit) as stop:
+            cli.console(["schema"])
+        assert stop.value.code == 0
+        assert gc.get_threshold() == (saved[0], saved[1], cli.FULL_COLLECTION_AFTER)
+        assert gc.get_freeze_count() > 0
+    finally:
+        gc.unfreeze()
+        gc.set_threshold(*saved)
+    assert json.loads(capsys.readouterr().out)["title"]  # the schema, printed by main
+
+
 def _schema_default(root: type, key: str) -> object:
     """The default the JSON Schema (what ``arrhenia schema`` prints) gives a dotted key path of ``root``: read
     independently of the CLI, which takes its defaults from the pydantic fields."""
