@@ -32,7 +32,8 @@ validation, model, compilation, mode search, process start); sampling = first to
 processes (tuning and draws); after = the rest (posterior predictive, pointwise log-likelihood, outputs; for the
 plain way its ``pm.sample`` return); total = launch to exit (plain: to ``pm.sample``'s return). Gradient
 evaluations: Op calls in the chain processes (the sum of NUTS's ``n_steps`` over tuning and draws, plus one per
-iteration: PyMC evaluates the start of every trajectory again). Cost per gradient (ms/grad): the mean of 50 calls
+iteration for the plain way: PyMC evaluates the start of every trajectory again, which Arrhenia's log density
+remembers, ``model.sampling.RecentPoints``). Cost per gradient (ms/grad): the mean of 50 calls
 of the compiled log-density-plus-gradient (``model.logp_dlogp_function``) at 50 posterior draws, in a separate
 process after the fit (for Arrhenia with the model the study builds,
 ``open_problem(load_study(path)).build_model(T_ref, None)``); in-run ms: the mean Op call in the chain processes,
