@@ -121,6 +121,33 @@ def test_sampling_starts_at_the_priors_centre(tmp_path):
     np.testing.assert_allclose(at_start[1], np.log([0.1, 0.05]))  # the log of their medians
 
 
+def test_the_log_likelihood_and_the_predictive_integrate_each_draw_once(tmp_path, monkeypatch):
+    # Two compiled functions that read the predictions alone (as the pointwise log-likelihood and the posterior
+    # predictive do, one after the other, at the same draws) share what the Op remembers: one integration per
+    # distinct point, and the same values as a fresh one.
+    from inference.physics.solution import MeasurementSolver
+
+    runs = "run,temperature,A,B,C\nr1,50,1.0,0,0\nr2,70,0.8,0.05,0\n"
+    meas = "run,time,A,B,C\nr1,2,0.85,0.14,0.01\nr1,6,0.6,0.3,0.08\nr2,1,0.6,0.3,0.02\n"
+    model = _consecutive_problem(tmp_path, "proportional", runs, meas).build_model(T_REF)
+    pointwise = model.logp(vars=[model["observation"]], sum=False)[0]
+    first, second = (model.compile_fn(pointwise, inputs=model.value_vars, on_unused_input="ignore") for _ in range(2))
+    solves = []
+    solve = MeasurementSolver.solve
+    monkeypatch.setattr(MeasurementSolver, "solve", lambda self, *a, **k: solves.append(a) or solve(self, *a, **k))
+    point = model.initial_point()
+    moved = {name: value + 0.05 for name, value in point.items()}
+    values = [first(point), second(point), second(moved), first(moved)]
+    assert len(solves) == 2
+    np.testing.assert_array_equal(values[0], values[1])
+    np.testing.assert_array_equal(values[2], values[3])
+    fresh = model.compile_fn(pointwise, inputs=model.value_vars, on_unused_input="ignore")
+    monkeypatch.undo()
+    op = next(node.op for node in fresh.f.maker.fgraph.apply_nodes if hasattr(node.op, "remembered_predictions"))
+    op.remembered_predictions.recent.clear()
+    np.testing.assert_array_equal(fresh(moved), values[2])
+
+
 @pytest.mark.parametrize("noise", ["proportional", "absolute", "robust"])
 def test_noise_on_the_log_scale_resolves_the_smallest_value(tmp_path, noise):
     # Noise on the log of values compares every value in relative terms, however small, so the solver's relative

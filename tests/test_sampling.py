@@ -1,11 +1,13 @@
-"""The compiled log density NUTS samples with: it remembers the points it met last, which changes no draw."""
+"""The compiled log density NUTS samples with: it remembers the points it met last (``model.memory``), which
+changes no draw."""
 
 from __future__ import annotations
 
 import numpy as np
 import pymc as pm
 
-from inference.model.sampling import RecentPoints, log_density_function
+from inference.model.memory import RecentPoints
+from inference.model.sampling import log_density_function
 
 
 def test_recent_points_answer_again_without_computing_and_forget_the_oldest():
@@ -47,7 +49,7 @@ def test_nuts_draws_are_the_same_and_each_trajectory_start_is_remembered():
             calls[0] += 1
             return compiled(*inputs)
 
-        log_density._pytensor_function = RecentPoints(counted) if remember else counted
+        log_density._pytensor_function = RecentPoints(counted, 2**11) if remember else counted
         with model:
             step = pm.NUTS(logp_dlogp_func=log_density)
             idata = pm.sample(

@@ -15,8 +15,7 @@ import tempfile
 import time
 import warnings
 import weakref
-from collections import OrderedDict
-from collections.abc import Callable, Iterator
+from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
 
@@ -31,6 +30,7 @@ from scipy.optimize import minimize
 from ..inputs.schema import Sampling
 from ..processes import HOST as _HOST
 from ..processes import pid_alive
+from .memory import RecentPoints
 
 #: Weight, in draws, of the Laplace variances in the first window of mass-matrix adaptation.
 LAPLACE_WEIGHT = 10
@@ -196,43 +196,9 @@ def _held_mask(model: pm.Model, mapped: RaveledVars) -> np.ndarray:
     return np.array(mask, dtype=bool)
 
 
-#: Points a log density remembers (``RecentPoints``): more than the longest NUTS trajectory, 2^10 leapfrog steps at
-#: PyMC's default maximum tree depth.
+#: Points the log density NUTS samples with remembers (``memory.RecentPoints``): more than the longest trajectory,
+#: 2^10 leapfrog steps at PyMC's default maximum tree depth.
 RECENT_POINTS = 2**11
-
-
-class RecentPoints:
-    """A compiled log density and gradient that answers again, without computing, at the points it met last.
-
-    PyMC's NUTS evaluates the start of every trajectory, which is always a point of the trajectory before (the
-    draw it chose): one evaluation per iteration, one in seven on the benchmark network, repeated for nothing.
-    The function is deterministic, so an input with the same bytes gets the outputs it got before (copies).
-    """
-
-    def __init__(self, function: Callable, size: int = RECENT_POINTS) -> None:
-        self.function = function
-        self.size = size
-        self.recent: OrderedDict[tuple, tuple[np.ndarray, ...]] = OrderedDict()
-
-    def __call__(self, *inputs: np.ndarray) -> list:
-        if len(inputs) != 1:
-            return self.function(*inputs)
-        x = np.asarray(inputs[0])
-        key = (x.dtype.str, x.shape, x.tobytes())
-        found = self.recent.get(key)
-        if found is not None:
-            self.recent.move_to_end(key)
-            return [value.copy() for value in found]
-        outputs = self.function(*inputs)
-        self.recent[key] = tuple(np.array(value, copy=True) for value in outputs)
-        if len(self.recent) > self.size:
-            self.recent.popitem(last=False)
-        return outputs
-
-    def __getattr__(self, name: str) -> object:
-        if name.startswith("__") or name in {"function", "size", "recent"}:  # unpickling, before __init__'s
-            raise AttributeError(name)
-        return getattr(self.function, name)
 
 
 def log_density_function(model: pm.Model, start: dict | None = None) -> ValueGradFunction:
@@ -244,7 +210,7 @@ def log_density_function(model: pm.Model, start: dict | None = None) -> ValueGra
     log_density = model.logp_dlogp_function(ravel_inputs=True, initial_point=start or prior_centre(model))
     log_density.trust_input = True  # as NUTS sets it: inputs are float64 vectors of the right size
     log_density.set_extra_values({})
-    log_density._pytensor_function = RecentPoints(log_density._pytensor_function)
+    log_density._pytensor_function = RecentPoints(log_density._pytensor_function, RECENT_POINTS)
     return log_density
 
 
