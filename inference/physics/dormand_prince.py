@@ -1,6 +1,13 @@
 """The explicit Dormand-Prince 5(4) pair (Dormand and Prince, J. Comput. Appl. Math. 6 (1980) 19; coefficients
 as in ``scipy.integrate.RK45``) on the concentrations and their forward sensitivity equations together, with
 the quartic continuous extension for output times: the cheapest method for the non-stiff profiles of most draws.
+
+The step size follows the error estimate (h 0.9 err^-1/5) and, after an accepted step, no further than Gustafsson's
+predictive rule allows (Hairer and Wanner, "Solving Ordinary Differential Equations II", 2nd ed., sec. IV.8, as in
+their RADAU5), which extrapolates a trend in the error from the last two accepted steps: along a run whose error
+grows from step to step (a held equilibrium's runs, about twofold per step) the first rule alone has every other
+step rejected. Where a reaction is held at equilibrium, the error test leaves out the drift off that equilibrium
+and each accepted step is brought back onto it (``stepping.without_held_drift``, ``stepping.restore_equilibrium``).
 """
 
 from __future__ import annotations
@@ -10,9 +17,20 @@ import math
 import numba
 import numpy as np
 
-from .conditions import dose_piece, next_stop
+from .conditions import dose_piece, next_stop, temperature_terms
 from .kinetics import INITIAL, parameter_rate
-from .stepping import DONE, FAILED, STIFF, borrowed, evaluate, held_share, record_start, start_state
+from .stepping import (
+    DONE,
+    FAILED,
+    STIFF,
+    borrowed,
+    evaluate,
+    held_share,
+    record_start,
+    restore_equilibrium,
+    start_state,
+    without_held_drift,
+)
 
 #: Dormand-Prince 5(4): nodes, stage coefficients, 5th-order weights, and 5th minus 4th order weights
 #: (the last weight belongs to f at the new point).
@@ -90,6 +108,7 @@ def dopri_run(y0, times, net, cond, params, tolerances, out_c, out_s, stats):
         np.empty((7, size)),
         np.empty(size),
         np.empty(size),
+        np.empty(size),
         np.empty((n, n)),
         np.empty(n_reactions),
         np.empty(n_reactions),
@@ -109,7 +128,7 @@ def _dopri_steps(y0, times, net, cond, params, tolerances, out_c, out_s, stats, 
     n = net.forward.shape[1]
     n_params = params.kind.shape[0]
     size = n * (1 + n_params)
-    u, stages, trial, new, jac, rate, forward_rate, reverse_rate, dr_dc, c, hold = borrowed(scratch)
+    u, stages, trial, new, estimate, jac, rate, forward_rate, reverse_rate, dr_dc, c, hold = borrowed(scratch)
     out_c, out_s = borrowed((out_c, out_s))
     work = (jac, rate, forward_rate, reverse_rate, dr_dc, c, hold)
     start, start_s = start_state(y0, net, cond, params)
@@ -152,12 +171,15 @@ def _dopri_steps(y0, times, net, cond, params, tolerances, out_c, out_s, stats, 
     steps = 0
     stiff_steps = 0
     clear_steps = 0
+    h_accepted = -1.0  # the last accepted step and its error (-1: none to predict from)
+    error_accepted = -1.0
     while out_index < times.shape[0]:
         steps += 1
         if steps > max_steps:
             return FAILED
         end = min(t_end, stop)
-        if t + h >= end * (1.0 - 1e-12):
+        landing = t + h >= end * (1.0 - 1e-12)
+        if landing:
             h = end - t
         if not (h > 1e-14 * max(t_end, 1.0)):
             return FAILED
@@ -174,14 +196,18 @@ def _dopri_steps(y0, times, net, cond, params, tolerances, out_c, out_s, stats, 
                 total += DP_B[q] * stages[q, i]
             new[i] = u[i] + h * total
         _augmented_rhs(new, t + h, t, piece, n, net, cond, params, stages[6], work)
-        error = 0.0
-        finite = True
         for i in range(size):
             total = 0.0
             for q in range(7):
                 total += DP_E[q] * stages[q, i]
+            estimate[i] = h * total
+        if net.held >= 0:  # hold: w at the new point, from its evaluation just above
+            without_held_drift(estimate, n, net, hold)
+        error = 0.0
+        finite = True
+        for i in range(size):
             scale = atol + rtol * max(abs(u[i]), abs(new[i]))
-            error += (h * total / scale) ** 2
+            error += (estimate[i] / scale) ** 2
             if not math.isfinite(new[i]):
                 finite = False
         error = math.sqrt(error / size)
@@ -229,9 +255,15 @@ def _dopri_steps(y0, times, net, cond, params, tolerances, out_c, out_s, stats, 
             u[i] = new[i]
             stages[0, i] = stages[6, i]
         t = t_new
+        if net.held >= 0:  # f at the step's end is kept: the move back is within the tolerance
+            restore_equilibrium(u[:n], u[n:].reshape((n_params, n)), temperature_terms(cond, t)[0], net, params)
         if t >= stop:  # the inflow (or dT/dt) jumps here: the next step starts from the new derivative
             piece = dose_piece(cond, t)
             stop = next_stop(cond, t)
             _augmented_rhs(u, t, t, piece, n, net, cond, params, stages[0], work)
-        h *= 10.0 if error == 0.0 else min(10.0, 0.9 * error**-0.2)
+        factor = 10.0 if error == 0.0 else min(10.0, 0.9 * error**-0.2)
+        if h_accepted > 0.0 and error > 0.0:
+            factor = min(factor, max(0.2, 0.9 * (h / h_accepted) * (error_accepted / error) ** 0.2 * error**-0.2))
+        h_accepted, error_accepted = (-1.0, -1.0) if landing else (h, max(1e-2, error))
+        h *= factor
     return DONE

@@ -6,8 +6,9 @@ A reaction held at equilibrium (``Kernel.held``, the quasi-equilibrium approxima
 number is from memory) has its reaction quotient kept at K(T): with s its stoichiometry row and
 g(c) = sum_i s_i ln c_i - ln K, the state moves on g = 0. The right-hand side v of the other reactions (and the
 dosing) is projected along s, f = v + s xi with xi = (d ln K/dt - w.v) / (w.s), w_i = s_i / c_i, so that
-dg/dt = 0 (a projected index-1 system; its drift off g = 0 is of the order of the integration tolerance), and
-the start is brought onto g = 0 by the extent of that reaction (``start_state``).
+dg/dt = 0 (a projected index-1 system; its drift off g = 0 is of the order of the integration tolerance); the
+start, and every step of the explicit pair, is brought onto g = 0 by the extent of that reaction
+(``restore_equilibrium``).
 """
 
 from __future__ import annotations
@@ -202,7 +203,8 @@ def rms(values, scale):
 @numba.njit(cache=True)
 def _held_extent(y0, s, ln_eq):
     """The extent xi with sum_i s_i ln(y0_i + s_i xi) = ln_eq, all concentrations positive (Newton's method
-    kept inside a shrinking bracket); 0 when no such extent exists (a reactant and a product both absent)."""
+    from xi = 0 where that is inside the bracket, kept inside a shrinking bracket); 0 when no such extent exists
+    (a reactant and a product both absent)."""
     low, high = -math.inf, math.inf
     for i in range(y0.shape[0]):
         if s[i] > 0.0:
@@ -211,7 +213,7 @@ def _held_extent(y0, s, ln_eq):
             high = min(high, y0[i] / -s[i])
     if not low < high:
         return 0.0
-    xi = 0.5 * (low + high)
+    xi = 0.0 if low < 0.0 < high else 0.5 * (low + high)
     for _ in range(200):
         g = -ln_eq
         slope = 0.0
@@ -235,41 +237,65 @@ def _held_extent(y0, s, ln_eq):
 
 
 @numba.njit(cache=True)
+def restore_equilibrium(y, sens, x, net, params):
+    """Bring y (N) back onto the held reaction's equilibrium at temperature term x by that reaction's extent,
+    and its sensitivities ``sens`` (P, N) onto the equilibrium's tangent, along the reaction's row s:
+    sum_i w_i sens[p, i] = d ln K / d theta_p with w_i = s_i / c_i (the projection of Hairer, Lubich and Wanner,
+    "Geometric Numerical Integration", 2nd ed., Springer, 2006, sec. IV.4, for this one constraint)."""
+    held = net.held
+    n = y.shape[0]
+    row = net.stoichiometry[held]
+    ln_eq = -math.log(net.inv_eq[held]) - net.eq_enthalpy[held] * x
+    xi = _held_extent(y, row, ln_eq)
+    ws = 0.0
+    for i in range(n):
+        y[i] += row[i] * xi
+        if row[i] != 0.0:
+            ws += row[i] * row[i] / max(y[i], HELD_FLOOR)
+    for p in range(params.kind.shape[0]):
+        kind = params.kind[p]
+        target = 0.0
+        if params.reaction[p] == held and kind == LN_EQ:
+            target = 1.0
+        elif params.reaction[p] == held and kind == EQ_ENTHALPY:
+            target = -x
+        along = target
+        for i in range(n):
+            if row[i] != 0.0:
+                along -= row[i] / max(y[i], HELD_FLOOR) * sens[p, i]
+        for i in range(n):
+            sens[p, i] += row[i] * along / ws
+
+
+@numba.njit(cache=True)
+def without_held_drift(error, n, net, hold):
+    """Take out of a step's error estimate (blocks of N: the state, then each sensitivity) the part along the
+    held reaction's row that only moves the block off the equilibrium (w.e / w.s along s, ``hold`` from
+    ``hold_equilibrium``), which ``restore_equilibrium`` removes after the step: the error test then measures
+    what the step gets wrong on the equilibrium, as DAE codes leave the algebraic part out of theirs."""
+    row = net.stoichiometry[net.held]
+    for block in range(error.shape[0] // n):
+        offset = block * n
+        along = 0.0
+        for i in range(n):
+            along += hold[i] * error[offset + i]
+        along /= hold[n]
+        for i in range(n):
+            error[offset + i] -= row[i] * along
+
+
+@numba.njit(cache=True)
 def start_state(y0, net, cond, params):
     """The state at t = 0 and d c(0) / d parameter (P, N): a unit vector for each uncertain initial
     concentration; where a reaction is held, y0 brought to its equilibrium, with the sensitivities of that."""
-    n = y0.shape[0]
     y = y0.copy()
-    s = np.zeros((params.kind.shape[0], n))
+    s = np.zeros((params.kind.shape[0], y0.shape[0]))
     for p in range(params.kind.shape[0]):
         if params.kind[p] == INITIAL:
             s[p, params.species[p]] = 1.0
-    held = net.held
-    if held < 0:
-        return y, s
-    row = net.stoichiometry[held]
-    x, _ = temperature_terms(cond, 0.0)
-    ln_eq = -math.log(net.inv_eq[held]) - net.eq_enthalpy[held] * x
-    xi = _held_extent(y0, row, ln_eq)
-    w = np.zeros(n)
-    ws = 0.0
-    for i in range(n):
-        y[i] = y0[i] + row[i] * xi
-        if row[i] != 0.0:
-            w[i] = row[i] / max(y[i], HELD_FLOOR)
-            ws += w[i] * row[i]
-    for p in range(params.kind.shape[0]):
-        kind = params.kind[p]
-        if kind == INITIAL:  # d xi / d y0_m = -w_m / (w.s)
-            d_xi = -w[params.species[p]] / ws
-        elif kind == LN_EQ and params.reaction[p] == held:
-            d_xi = 1.0 / ws
-        elif kind == EQ_ENTHALPY and params.reaction[p] == held:
-            d_xi = -x / ws
-        else:
-            continue
-        for i in range(n):
-            s[p, i] += row[i] * d_xi
+    if net.held >= 0:
+        x, _ = temperature_terms(cond, 0.0)
+        restore_equilibrium(y, s, x, net, params)
     return y, s
 
 
