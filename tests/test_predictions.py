@@ -7,6 +7,7 @@ import pandas as pd
 import pytest
 
 from inference.physics.arrhenius import R
+from inference.workflows.predict import _first_crossing
 
 TRUE = {"first": (0.12, 60_000.0), "second": (0.04, 75_000.0)}  # k at 330 K (1/min), Ea (J/mol)
 SCENARIOS = """\
@@ -67,6 +68,24 @@ def test_answers_agree_with_the_closed_forms_at_the_posterior(fitted):
         assert row["q05"] < np.median(exact) < row["q95"], quantity
     spec = summary.loc["conversion of A at 10 min"]
     assert spec["share"] == pytest.approx(np.mean(1 - np.exp(-k1 * 10) >= 0.5), abs=0.05)
+
+
+def test_a_cstr_residence_time_is_read_off_its_log_spaced_grid_without_bias():
+    # Steady-state CSTR design equations (Levenspiel, Chemical Reaction Engineering, ch. 5; from memory):
+    # first order X / (1 - X) = k tau, second order k c0 tau = X / (1 - X)^2. On the 48-point grid of the search
+    # (0.01 .. 1000, ratio 1.28 per point), read at 50 % and 90 % conversion.
+    taus = np.geomspace(0.01, 1000.0, 48)
+    k = np.array([0.37, 2.9, 11.0])
+    first = k[:, None] * taus / (1 + k[:, None] * taus)
+    damkohler = k[:, None] * taus  # second order, c0 = 1: X = 1 + (1 - sqrt(1 + 4 Da)) / (2 Da)
+    second = 1 + (1 - np.sqrt(1 + 4 * damkohler)) / (2 * damkohler)
+    for target in (0.5, 0.9):
+        odds = target / (1 - target)
+        np.testing.assert_allclose(_first_crossing(taus, first, target, log_odds=True), odds / k, rtol=1e-12)
+        exact = target / (1 - target) ** 2 / k
+        np.testing.assert_allclose(_first_crossing(taus, second, target, log_odds=True), exact, rtol=2e-3)
+        # Linear in tau, as the search read it before: late by up to 1.3 % on this grid.
+        assert np.max(_first_crossing(taus, first, target) / (odds / k)) > 1.005
 
 
 def test_extrapolated_scenario_is_flagged(fitted, run_cli, tmp_path):

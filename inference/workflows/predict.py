@@ -194,8 +194,10 @@ def _to_kelvin(study: Study, value: float | np.ndarray, where: str) -> np.ndarra
     return units.to_kelvin(value, study.units.temperature, where)
 
 
-def _first_crossing(times: np.ndarray, conversion: np.ndarray, target: float) -> np.ndarray:
-    """Per draw, the first time conversion reaches ``target`` (linear between grid points); inf if never."""
+def _first_crossing(times: np.ndarray, conversion: np.ndarray, target: float, log_odds: bool = False) -> np.ndarray:
+    """Per draw, the first time conversion reaches ``target`` (linear between grid points; with ``log_odds``, ln t
+    linear in ln(X / (1 - X)) where both points lie strictly between 0 and 1, which is exact for a first-order
+    CSTR, X / (1 - X) = k tau, and far closer than linear for other orders on a log-spaced grid); inf if never."""
     out = np.full(conversion.shape[0], np.inf)
     for d, row in enumerate(conversion):
         above = np.flatnonzero(row >= target)
@@ -206,7 +208,12 @@ def _first_crossing(times: np.ndarray, conversion: np.ndarray, target: float) ->
             out[d] = times[0]
             continue
         x0, x1 = row[i - 1], row[i]
-        out[d] = times[i - 1] + (target - x0) / (x1 - x0) * (times[i] - times[i - 1])
+        if log_odds and 0.0 < x0 < x1 < 1.0 and 0.0 < target < 1.0:
+            odds0, odds1, wanted = (np.log(x / (1.0 - x)) for x in (x0, x1, target))
+            share = (wanted - odds0) / (odds1 - odds0)
+            out[d] = np.exp(np.log(times[i - 1]) + share * np.log(times[i] / times[i - 1]))
+        else:
+            out[d] = times[i - 1] + (target - x0) / (x1 - x0) * (times[i] - times[i - 1])
     return out
 
 
@@ -595,7 +602,7 @@ class _Predictor:
         ).concentrations
         key = self.study.species.index(scenario.key_reactant)
         conversion = 1.0 - c[:, :, key] / self.feed(scenario)[key]
-        return _first_crossing(taus, np.nan_to_num(conversion, nan=-1.0), target)
+        return _first_crossing(taus, np.nan_to_num(conversion, nan=-1.0), target, log_odds=True)
 
     def run(self, scenario: Scenario, where: str, stated: Scenario, time_unit: str) -> tuple[pd.DataFrame, list[dict]]:
         """Profiles and answers of ``scenario`` (in the study's units); names quote ``stated``, the scenario as
