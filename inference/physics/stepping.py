@@ -105,6 +105,8 @@ def lu_solve(lu, pivots, b):
         b[i] = total / lu[i, i]
 
 
+#: Machine epsilon of float64.
+EPSILON = 2.220446049250313e-16
 #: Concentrations of a held reaction's species are read as at least this in its projection (w_i = s_i / c_i).
 HELD_FLOOR = 1e-30
 
@@ -216,12 +218,17 @@ def _held_extent(y0, s, ln_eq):
     xi = 0.0 if low < 0.0 < high else 0.5 * (low + high)
     for _ in range(200):
         g = -ln_eq
+        magnitude = abs(ln_eq)
         slope = 0.0
         for i in range(y0.shape[0]):
             if s[i] != 0.0:
                 value = y0[i] + s[i] * xi
-                g += s[i] * math.log(value)
+                term = s[i] * math.log(value)
+                g += term
+                magnitude += abs(term)
                 slope += s[i] * s[i] / value
+        if abs(g) <= 8.0 * EPSILON * magnitude:  # zero to within the rounding of its terms
+            return xi
         if g > 0.0:
             high = xi
         else:
