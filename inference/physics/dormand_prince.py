@@ -132,9 +132,11 @@ def _dopri_steps(y0, times, net, cond, params, tolerances, out_c, out_s, stats, 
     out_c, out_s = borrowed((out_c, out_s))
     work = (jac, rate, forward_rate, reverse_rate, dr_dc, c, hold)
     start, start_s = start_state(y0, net, cond, params)
-    u[:n] = start
-    u[n:] = start_s.ravel()
-    out_index = record_start(times, u[:n], u[n:].reshape((n_params, n)), out_c, out_s)
+    for i in range(n):
+        u[i] = start[i]
+    for i in range(n * n_params):
+        u[n + i] = start_s[i]
+    out_index = record_start(times, u[:n], u[n:], out_c, out_s)
     if out_index == times.shape[0]:
         return DONE
     t = 0.0
@@ -256,7 +258,7 @@ def _dopri_steps(y0, times, net, cond, params, tolerances, out_c, out_s, stats, 
             stages[0, i] = stages[6, i]
         t = t_new
         if net.held >= 0:  # f at the step's end is kept: the move back is within the tolerance
-            restore_equilibrium(u[:n], u[n:].reshape((n_params, n)), temperature_terms(cond, t)[0], net, params)
+            restore_equilibrium(u[:n], u[n:], temperature_terms(cond, t)[0], net, params)
         if t >= stop:  # the inflow (or dT/dt) jumps here: the next step starts from the new derivative
             piece = dose_piece(cond, t)
             stop = next_stop(cond, t)

@@ -16,7 +16,19 @@ import numpy as np
 
 from .conditions import dose_piece, next_stop
 from .kinetics import INITIAL, parameter_rate
-from .stepping import DONE, FAILED, borrowed, evaluate, held_share, lu_factor, lu_solve, record_start, rms, start_state
+from .stepping import (
+    DONE,
+    EPSILON,
+    FAILED,
+    borrowed,
+    evaluate,
+    held_share,
+    lu_factor,
+    lu_solve,
+    record_start,
+    rms,
+    start_state,
+)
 
 _S6 = math.sqrt(6.0)
 #: Radau IIA(5) nodes and coefficient matrix (Hairer and Wanner, table IV.5.6).
@@ -141,7 +153,7 @@ def _radau_steps(y0, times, net, cond, params, tolerances, out_c, out_s, stats, 
             a[i, j] = A[i, j]
     y, s = start_state(y0, net, cond, params)
     slots = (fz, jz, rate, forward_rate, reverse_rate, dr_dc, c, hold)
-    newton_tol = max(10.0 * 2.220446049250313e-16 / rtol, min(0.03, math.sqrt(rtol)))
+    newton_tol = max(10.0 * EPSILON / rtol, min(0.03, math.sqrt(rtol)))
 
     t = 0.0
     out_index = record_start(times, y, s, out_c, out_s)
@@ -295,7 +307,7 @@ def _radau_steps(y0, times, net, cond, params, tolerances, out_c, out_s, stats, 
                     for i in range(n):
                         total = 0.0
                         for m in range(n):
-                            total += jz[bj, i, m] * s[p, m]
+                            total += jz[bj, i, m] * s[p * n + m]
                         if kind != INITIAL:
                             total += stoichiometry[j, i] * theta - stoichiometry[held_row, i] * along
                         source[bj, i] = total
@@ -307,7 +319,7 @@ def _radau_steps(y0, times, net, cond, params, tolerances, out_c, out_s, stats, 
                         rhs[bi * n + i] = total
                 lu_solve(newton, newton_piv, rhs)
                 for i in range(n):
-                    s[p, i] += rhs[2 * n + i]
+                    s[p * n + i] += rhs[2 * n + i]
         stats[0] += 1
         for i in range(n):
             y[i] += z[2, i]
@@ -319,7 +331,7 @@ def _radau_steps(y0, times, net, cond, params, tolerances, out_c, out_s, stats, 
             for i in range(n):
                 out_c[out_index, i] = y[i]
                 for p in range(n_params):
-                    out_s[out_index, i, p] = s[p, i]
+                    out_s[out_index, i, p] = s[p * n + i]
             out_index += 1
         # Step-size proposal with the predictive (Gustafsson) controller of the reference.
         factor = safety * error_norm**-0.25 if error_norm > 0 else 10.0

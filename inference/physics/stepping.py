@@ -246,9 +246,10 @@ def _held_extent(y0, s, ln_eq):
 @numba.njit(cache=True)
 def restore_equilibrium(y, sens, x, net, params):
     """Bring y (N) back onto the held reaction's equilibrium at temperature term x by that reaction's extent,
-    and its sensitivities ``sens`` (P, N) onto the equilibrium's tangent, along the reaction's row s:
-    sum_i w_i sens[p, i] = d ln K / d theta_p with w_i = s_i / c_i (the projection of Hairer, Lubich and Wanner,
-    "Geometric Numerical Integration", 2nd ed., Springer, 2006, sec. IV.4, for this one constraint)."""
+    and its sensitivities ``sens`` (P N, parameter by parameter) onto the equilibrium's tangent, along the
+    reaction's row s: sum_i w_i sens[p N + i] = d ln K / d theta_p with w_i = s_i / c_i (the projection of
+    Hairer, Lubich and Wanner, "Geometric Numerical Integration", 2nd ed., Springer, 2006, sec. IV.4, for this one
+    constraint)."""
     held = net.held
     n = y.shape[0]
     row = net.stoichiometry[held]
@@ -269,9 +270,9 @@ def restore_equilibrium(y, sens, x, net, params):
         along = target
         for i in range(n):
             if row[i] != 0.0:
-                along -= row[i] / max(y[i], HELD_FLOOR) * sens[p, i]
+                along -= row[i] / max(y[i], HELD_FLOOR) * sens[p * n + i]
         for i in range(n):
-            sens[p, i] += row[i] * along / ws
+            sens[p * n + i] += row[i] * along / ws
 
 
 @numba.njit(cache=True)
@@ -293,13 +294,15 @@ def without_held_drift(error, n, net, hold):
 
 @numba.njit(cache=True)
 def start_state(y0, net, cond, params):
-    """The state at t = 0 and d c(0) / d parameter (P, N): a unit vector for each uncertain initial
-    concentration; where a reaction is held, y0 brought to its equilibrium, with the sensitivities of that."""
+    """The state at t = 0 and d c(0) / d parameter (P N, parameter by parameter, as the integrators carry them):
+    a unit vector for each uncertain initial concentration; where a reaction is held, y0 brought to its
+    equilibrium, with the sensitivities of that."""
+    n = y0.shape[0]
     y = y0.copy()
-    s = np.zeros((params.kind.shape[0], y0.shape[0]))
+    s = np.zeros(params.kind.shape[0] * n)
     for p in range(params.kind.shape[0]):
         if params.kind[p] == INITIAL:
-            s[p, params.species[p]] = 1.0
+            s[p * n + params.species[p]] = 1.0
     if net.held >= 0:
         x, _ = temperature_terms(cond, 0.0)
         restore_equilibrium(y, s, x, net, params)
@@ -308,12 +311,14 @@ def start_state(y0, net, cond, params):
 
 @numba.njit(cache=True)
 def record_start(times, y, s, out_c, out_s):
-    """Write the state at every requested time t <= 0 (the initial one); returns how many were written."""
+    """Write the state y (N) and its sensitivities s (P N, as ``start_state``) at every requested time t <= 0
+    (the initial one); returns how many were written."""
+    n = y.shape[0]
     out_index = 0
     while out_index < times.shape[0] and times[out_index] <= 0.0:
-        for i in range(y.shape[0]):
+        for i in range(n):
             out_c[out_index, i] = y[i]
-            for p in range(s.shape[0]):
-                out_s[out_index, i, p] = s[p, i]
+            for p in range(out_s.shape[2]):
+                out_s[out_index, i, p] = s[p * n + i]
         out_index += 1
     return out_index
