@@ -34,7 +34,8 @@ plain way its ``pm.sample`` return); total = launch to exit (plain: to ``pm.samp
 evaluations: Op calls in the chain processes (the sum of NUTS's ``n_steps`` over tuning and draws, plus one per
 iteration for the plain way: PyMC evaluates the start of every trajectory again, which Arrhenia's log density
 remembers, ``model.sampling.RecentPoints``). Cost per gradient (ms/grad): the mean of 50 calls
-of the compiled log-density-plus-gradient (``model.logp_dlogp_function``) at 50 posterior draws, in a separate
+of the compiled log-density-plus-gradient (``model.logp_dlogp_function``) at 50 posterior draws (the fastest of
+five passes over them: ``plain_pymc.seconds_per_gradient``), in a separate
 process after the fit (for Arrhenia with the model the study builds,
 ``open_problem(load_study(path)).build_model(T_ref, None)``); in-run ms: the mean Op call in the chain processes,
 as sampling met it (two chains on two cores, and whatever else runs). Min ESS: bulk, over ln k_ref and Ea.
