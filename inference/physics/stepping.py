@@ -202,7 +202,7 @@ def rms(values, scale):
     return math.sqrt(total / values.shape[0])
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, inline="always")
 def _held_extent(y0, s, ln_eq):
     """The extent xi with sum_i s_i ln(y0_i + s_i xi) = ln_eq, all concentrations positive (Newton's method
     from xi = 0 where that is inside the bracket, kept inside a shrinking bracket); 0 when no such extent exists
@@ -243,7 +243,7 @@ def _held_extent(y0, s, ln_eq):
     return xi
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, inline="always")
 def restore_equilibrium(y, sens, x, net, params):
     """Bring y (N) back onto the held reaction's equilibrium at temperature term x by that reaction's extent,
     and its sensitivities ``sens`` (P N, parameter by parameter) onto the equilibrium's tangent, along the
@@ -275,7 +275,7 @@ def restore_equilibrium(y, sens, x, net, params):
             sens[p * n + i] += row[i] * along / ws
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, inline="always")
 def without_held_drift(error, n, net, hold):
     """Take out of a step's error estimate (blocks of N: the state, then each sensitivity) the part along the
     held reaction's row that only moves the block off the equilibrium (w.e / w.s along s, ``hold`` from
