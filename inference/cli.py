@@ -204,7 +204,7 @@ def _fit_and_report(study_path: Path, args: argparse.Namespace, out: Path | None
     if notice := reporting.compile_notice(study):
         from .physics.solution import compile_in_background
 
-        compile_in_background()
+        compile_in_background(implicit=study.has_data("steady_states"))
         if not args.quiet:
             print(notice, flush=True)
     from .workflows.fit import fit_study

@@ -136,7 +136,9 @@ def compile_notice(study: Study) -> str | None:
     if _compile_notice_given or study.network is None or solver_compiled_on_disk() is not False:
         return None
     _compile_notice_given = True
-    return "first fit in this installation: compiling the network solver (numba), about a minute; later fits reuse it"
+    return (
+        "first fit in this installation: compiling the network solver (numba), about half a minute; later fits reuse it"
+    )
 
 
 class Steps:

@@ -15,8 +15,8 @@ from typing import NamedTuple
 
 import numpy as np
 
+from . import integrator
 from .conditions import Conditions, isothermal_conditions
-from .integrator import predict_measurements
 from .kinetics import ACTIVATION, ADS_ENTHALPY, EXPONENT, LN_ADS, LN_K, ORDER, Kernel, Sensitivities
 from .network import Network
 from .parameters import BLOCKS, KineticInputs, SensitivityLayout
@@ -235,30 +235,42 @@ class NetworkSolver:
         gather: Gather,
         profile_c: np.ndarray | None = None,
         profile_s: np.ndarray | None = None,
+        *,
+        compile_implicit: bool = False,
     ) -> None:
-        """Integrate every run of ``inputs`` (solver form) with the sensitivities ``params`` in one compiled call,
-        filling ``gather``'s prediction and Jacobian and, where given, the profiles (all times, N) and
-        (all times, N, P). Raises ``SolverFailure`` naming the failing run."""
+        """Integrate every run of ``inputs`` (solver form) with the sensitivities ``params``, filling ``gather``'s
+        prediction and Jacobian and, where given, the profiles (all times, N) and (all times, N, P): the explicit
+        entry point for every run, the implicit one for the runs it leaves (``integrator``); with
+        ``compile_implicit`` the implicit one is called (and so compiled) even when no run needs it. Raises
+        ``SolverFailure`` naming the failing run."""
         finish_background_compile()
         initial = np.ascontiguousarray(inputs.initial, dtype=float)
         n_species = initial.shape[1]
         if profile_c is None:
             profile_c, profile_s = np.empty((0, n_species)), np.empty((0, n_species, params.kind.size))
         self.stats[:] = 0
+        n_runs = initial.shape[0]
+        arguments = (
+            initial,
+            self.all_times,
+            self.time_offsets,
+            network_kernel(self.network, inputs),
+            self.conditions_for(n_runs),
+            params,
+            self.tolerances(initial),
+            *gather,
+            profile_c,
+            profile_s,
+            self.stats,
+            np.zeros(n_runs, dtype=np.int64),
+            np.empty((n_runs, n_species)),
+        )
         try:
-            failed = predict_measurements(
-                initial,
-                self.all_times,
-                self.time_offsets,
-                network_kernel(self.network, inputs),
-                self.conditions_for(initial.shape[0]),
-                params,
-                self.tolerances(initial),
-                *gather,
-                profile_c,
-                profile_s,
-                self.stats,
-            )
+            failed = -1
+            if integrator.explicit_measurements(*arguments) > 0 or compile_implicit:
+                if not compile_implicit:
+                    _say_implicit_compile()
+                failed = integrator.implicit_measurements(*arguments)
         except ArithmeticError as error:  # numba raises Python's errors (x / 0) where extreme parameters lead
             run = int(self.stats[3])
             raise SolverFailure(f"the integration of run {run} failed ({type(error).__name__})", run) from None
@@ -309,10 +321,10 @@ class MeasurementSolver:
         return prediction, jacobian
 
 
-def compile_kernels() -> None:
-    """Compile (or load from numba's on-disk cache) the integrator's entry point, ``predict_measurements``, through
-    both of its callers: profiles (``NetworkSolver.solve``) and predictions with their Jacobian
-    (``MeasurementSolver.solve``)."""
+def compile_kernels(implicit: bool = True) -> None:
+    """Compile (or load from numba's on-disk cache) the integrator's explicit entry point and, with ``implicit``,
+    its implicit one (``integrator``), through both callers: profiles (``NetworkSolver.solve``) and predictions
+    with their Jacobian (``MeasurementSolver.solve``)."""
     from .network import build_network, parse_equation
 
     network = build_network(("A", "B"), ("warm",), (parse_equation("A -> B"),))
@@ -324,32 +336,53 @@ def compile_kernels() -> None:
     index = np.zeros(1, dtype=np.int64)
     columns = np.zeros((1, solver.n_params), dtype=np.int64)
     MeasurementSolver(solver, index, index, index, columns, max(solver.n_params, 1)).solve(inputs)
+    if implicit:  # both callers pass the same types: one call compiles it for both
+        n_params = solver.integrated.kind.size
+        solver.integrate(inputs, solver.integrated, solver._no_measurements(1, n_params), compile_implicit=True)
+
+
+_implicit_notice_given = False
+
+
+def _say_implicit_compile() -> None:
+    """Once per process, on stderr: that a first stiff run (or CSTR) compiles the implicit solver now."""
+    global _implicit_notice_given
+    if _implicit_notice_given or integrator.implicit_compiled_on_disk() is not False:
+        return
+    _implicit_notice_given = True
+    print(
+        "first stiff run (or CSTR) in this installation: compiling the implicit solver (numba), about half a "
+        "minute; later fits reuse it",
+        file=sys.stderr,
+        flush=True,
+    )
 
 
 _background: multiprocessing.Process | None = None
 
 
-def compile_in_background() -> bool:
-    """Start ``compile_kernels`` in a forked process (Linux), so that a first fit compiles numba's kernels on one
-    core while it imports PyMC and compiles the model's C code; the first solve in this process waits for it
+def compile_in_background(implicit: bool = False) -> bool:
+    """Start ``compile_kernels(implicit)`` in a forked process (Linux), so that a first fit compiles numba's kernels
+    on one core while it imports PyMC and compiles the model's C code; the first solve in this process waits for it
     (``finish_background_compile``) and then loads the kernels from the cache. Call it before threads start
     (the CLI does, before importing PyMC). Returns whether a process was started."""
     global _background
     if _background is not None or not sys.platform.startswith("linux"):
         return False
-    _background = multiprocessing.get_context("fork").Process(target=_compile_quietly, daemon=True)
+    context = multiprocessing.get_context("fork")
+    _background = context.Process(target=_compile_quietly, args=(implicit,), daemon=True)
     _background.start()
     return True
 
 
-def _compile_quietly() -> None:
+def _compile_quietly(implicit: bool) -> None:
     """``compile_kernels`` in the background process: Ctrl-C is the parent's to answer (it ends this daemon
     process on exit), and a failure only means the parent compiles for itself."""
     global _background
     _background = None  # the parent's handle, inherited by the fork: not this process's to wait for
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     try:
-        compile_kernels()
+        compile_kernels(implicit)
     except Exception:  # nothing to report: the parent compiles what is missing
         sys.exit(1)
 
