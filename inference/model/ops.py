@@ -58,6 +58,8 @@ class NetworkPrediction(Op):
         self.last_failure = ""
         self.observations = observations
         self.fixed_orders = np.array(fixed_orders, dtype=float)
+        #: The runs' nominal initial concentrations, a private writable copy (the solver's one compiled signature).
+        self.nominal_initial = np.array(observations.initial, dtype=float)
         self.fixed_exponents = fixed_exponents
         self.failures = 0
         n_runs = len(observations.run_ids)
@@ -107,9 +109,8 @@ class NetworkPrediction(Op):
 
     def _solve(self, *inputs: np.ndarray, with_jacobian: bool = True) -> tuple[np.ndarray, np.ndarray]:
         """Predictions and (``with_jacobian``) their Jacobian at the Op's inputs; raises ``SolverFailure``."""
-        obs = self.observations
         solver_inputs = self.solver.layout.expand(
-            KineticInputs(*inputs), self.fixed_orders, obs.initial, self.fixed_exponents
+            KineticInputs(*inputs), self.fixed_orders, self.nominal_initial, self.fixed_exponents
         )
         return self.measurements.solve(solver_inputs, with_jacobian)
 

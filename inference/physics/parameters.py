@@ -68,29 +68,36 @@ class SensitivityLayout:
     ) -> KineticInputs:
         """Solver inputs from the Op's free inputs: fitted orders written into ``fixed_orders`` (R, N), uncertain
         initial concentrations into ``nominal_initial`` (runs, N), fitted exponents into ``fixed_exponents``
-        (R,; zeros when None), the shared slopes repeated for every run (zeros where no temperature changes)."""
-        orders = np.array(fixed_orders, dtype=float)
-        for value, (j, i) in zip(free.orders, self.free_orders, strict=True):
-            orders[j, i] = value
-        initial = np.array(nominal_initial, dtype=float)
-        for g, i in enumerate(self.free_initial):
-            initial[:, i] = free.initial[:, g]
-        net = self.network
-        n_runs, n_reactions = initial.shape[0], len(net.reactions)
+        (R,; zeros when None), the shared slopes repeated for every run (read-only views; left None where no run's
+        temperature changes, as they then act nowhere)."""
+        orders = fixed_orders
+        if self.free_orders:
+            orders = np.array(fixed_orders, dtype=float)
+            for value, (j, i) in zip(free.orders, self.free_orders, strict=True):
+                orders[j, i] = value
+        initial = nominal_initial
+        if self.free_initial:
+            initial = np.array(nominal_initial, dtype=float)
+            for g, i in enumerate(self.free_initial):
+                initial[:, i] = free.initial[:, g]
+        if not self.temperature_varies:  # the slopes act only where a run's temperature changes: none does
+            return free._replace(
+                orders=orders, initial=initial, activation=None, eq_enthalpy=None, ads_enthalpy=None, exponent=None
+            )
+        n_runs, n_reactions = initial.shape[0], len(self.network.reactions)
         exponent = np.zeros(n_reactions) if fixed_exponents is None else np.array(fixed_exponents, dtype=float)
-        if not self.temperature_varies:
-            slopes = (np.zeros(n_reactions), np.zeros(int(np.sum(net.reversible))), np.zeros(len(net.adsorption_sites)))
-        else:
-            slopes = (free.activation, free.eq_enthalpy, free.ads_enthalpy)
-            exponent[list(self.fitted_exponents)] = free.exponent
-        activation, eq_enthalpy, ads_enthalpy = (np.tile(np.asarray(v, dtype=float), (n_runs, 1)) for v in slopes)
+        exponent[list(self.fitted_exponents)] = free.exponent
+        slopes = (free.activation, free.eq_enthalpy, free.ads_enthalpy, exponent)
+        activation, eq_enthalpy, ads_enthalpy, exponent = (
+            np.broadcast_to(np.asarray(v, dtype=float), (n_runs, np.size(v))) for v in slopes
+        )
         return free._replace(
             orders=orders,
             initial=initial,
             activation=activation,
             eq_enthalpy=eq_enthalpy,
             ads_enthalpy=ads_enthalpy,
-            exponent=np.tile(exponent, (n_runs, 1)),
+            exponent=exponent,
         )
 
 

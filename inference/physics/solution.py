@@ -7,6 +7,7 @@ returning the concentrations and their sensitivities to the blocks of ``paramete
 
 from __future__ import annotations
 
+import functools
 import multiprocessing
 import signal
 import sys
@@ -76,16 +77,19 @@ def rate_arrays(
     (runs, reactions, species; zero where none) from ln_ads (runs, sites); SolverFailure on overflow."""
     with np.errstate(over="ignore"):
         k_runs = np.exp(np.atleast_2d(np.asarray(ln_k, dtype=float)))
+        finite = bool(np.isfinite(k_runs).all())
         inv_eq = np.zeros_like(k_runs)
         reversible = np.flatnonzero(network.reversible)
         if reversible.size:
             inv_eq[:, reversible] = np.exp(-np.atleast_2d(np.asarray(ln_eq, dtype=float)))
+            finite = finite and bool(np.isfinite(inv_eq).all())
         ads = np.zeros((k_runs.shape[0], len(network.reactions), len(network.species)))
         if network.adsorption_sites:
             values = np.exp(np.atleast_2d(np.asarray(ln_ads, dtype=float)))
             for s, (j, i) in enumerate(network.adsorption_sites):
                 ads[:, j, i] = values[:, s]
-    if not (np.all(np.isfinite(k_runs)) and np.all(np.isfinite(inv_eq)) and np.all(np.isfinite(ads))):
+            finite = finite and bool(np.isfinite(ads).all())
+    if not finite:
         raise SolverFailure("a rate, equilibrium or adsorption constant overflows")
     return k_runs, inv_eq, ads
 
@@ -93,17 +97,30 @@ def rate_arrays(
 def _slope_arrays(network: Network, inputs: KineticInputs, n_runs: int) -> tuple[np.ndarray, ...]:
     """Ea/R and exponents (runs, R), dH/R (runs, R; zero for irreversible steps) and dH_ads/R (runs, R, N)."""
     n_reactions, n_species = network.forward_orders.shape
+    if inputs.activation is None:
+        return _no_slopes(n_runs, n_reactions, n_species)
     activation = np.zeros((n_runs, n_reactions))
     exponent = np.zeros((n_runs, n_reactions))
     eq_enthalpy = np.zeros((n_runs, n_reactions))
     ads_enthalpy = np.zeros((n_runs, n_reactions, n_species))
-    if inputs.activation is not None:
-        activation[:] = inputs.activation
-        exponent[:] = inputs.exponent
-        eq_enthalpy[:, np.flatnonzero(network.reversible)] = inputs.eq_enthalpy
-        for s, (j, i) in enumerate(network.adsorption_sites):
-            ads_enthalpy[:, j, i] = np.asarray(inputs.ads_enthalpy)[..., s]
+    activation[:] = inputs.activation
+    exponent[:] = inputs.exponent
+    eq_enthalpy[:, np.flatnonzero(network.reversible)] = inputs.eq_enthalpy
+    for s, (j, i) in enumerate(network.adsorption_sites):
+        ads_enthalpy[:, j, i] = np.asarray(inputs.ads_enthalpy)[..., s]
     return activation, exponent, eq_enthalpy, ads_enthalpy
+
+
+@functools.lru_cache(maxsize=32)
+def _no_slopes(n_runs: int, n_reactions: int, n_species: int) -> tuple[np.ndarray, ...]:
+    """``_slope_arrays`` where no run's temperature changes: zeros, allocated once per shape and shared (the
+    compiled kernel never writes its inputs; writable, so that every study calls the one compiled signature)."""
+    return (
+        np.zeros((n_runs, n_reactions)),
+        np.zeros((n_runs, n_reactions)),
+        np.zeros((n_runs, n_reactions)),
+        np.zeros((n_runs, n_reactions, n_species)),
+    )
 
 
 def network_kernel(network: Network, inputs: KineticInputs) -> Kernel:
@@ -196,7 +213,8 @@ class NetworkSolver:
         """The settings' tolerances, the absolute one scaled by the largest initial concentration and kept
         below the relative floor's resolution."""
         settings = self.settings
-        scale = float(np.max(initial)) if np.max(initial) > 0 else 1.0
+        peak = float(initial.max())
+        scale = peak if peak > 0 else 1.0
         atol = settings.atol_share * scale
         if settings.relative_floor > 0:
             atol = max(min(atol, FLOOR_RESOLUTION * settings.relative_floor), ATOL_SHARE_LIMIT * scale)
