@@ -72,3 +72,24 @@ def test_nuts_draws_are_the_same_and_each_trajectory_start_is_remembered():
     assert same_steps == steps
     assert plain_calls == steps + 120  # PyMC's own: one more per iteration (60 tuning + 60 draws)
     assert remembered_calls == steps + 1
+
+
+def test_what_a_first_fit_compiles_while_it_waits_never_integrates_the_network(monkeypatch):
+    # On a first fit the network solver compiles in a background process and the first integration waits for it;
+    # `compile_ahead` fills that wait with PyMC's later compiles (trace point function, pointwise log-likelihood,
+    # posterior predictive), so it must build and compile their graphs without evaluating any of them.
+    from pathlib import Path
+
+    from inference import load_study
+    from inference.model.sampling import compile_ahead
+    from inference.physics.solution import NetworkSolver
+    from inference.workflows.kinds import open_problem
+
+    study = load_study(Path(__file__).resolve().parents[1] / "data_demo" / "study.yaml")
+    model = open_problem(study).build_model(333.15, None)
+
+    def no_integration(*args, **kwargs):
+        raise AssertionError("compile_ahead integrated the network")
+
+    monkeypatch.setattr(NetworkSolver, "integrate", no_integration)
+    compile_ahead(model)

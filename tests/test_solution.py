@@ -275,10 +275,11 @@ def test_the_kernels_compile_in_a_background_process_that_the_first_solve_waits_
 
 
 def test_every_study_calls_the_one_compiled_signature_the_warm_up_compiles():
-    # numba compiles the whole solver (about a minute on a fresh install) for each new combination of argument
-    # types; a read-only order array or a strided index view once made a second one. In a fresh process: the
-    # warm-up (batch workers, a first fit's background compile), then the demo studies' log-densities (plain,
-    # dosed with a temperature history, area % with declared quantities): one signature of the entry point.
+    # numba compiles each of the solver's two entry points (half a minute on a fresh install) for each new
+    # combination of argument types; a read-only order array or a strided index view once made a second one. In a
+    # fresh process: the warm-up (batch workers, a first fit's background compile), then the demo studies'
+    # log-densities (plain, dosed with a temperature history, area % with declared quantities): one signature of
+    # each entry point.
     import subprocess
     import sys
 

@@ -210,6 +210,38 @@ def log_density_function(model: pm.Model, start: dict | None = None) -> ValueGra
     return log_density
 
 
+def compile_ahead(model: pm.Model) -> None:
+    """Compile the functions PyMC builds after the log density, from the graphs it builds them from: the traces'
+    point function (``pm.sample``), the pointwise log-likelihood (``pm.compute_log_likelihood``) and the posterior
+    predictive (``pm.sample_posterior_predictive``). PyTensor caches C code per operation, so PyMC's own compiles
+    then find theirs (about 7 s of C code on a fresh installation, measured on the demo network). Worth it only
+    where the process would wait anyway: a first fit, whose network solver compiles in a background process."""
+    import pytensor
+    from pymc.model.transform.conditioning import remove_value_transforms
+    from pymc.pytensorf import compile as compile_function
+    from pymc.sampling.forward import compile_forward_sampling_function
+
+    quiet_backend_logs()
+    compile_function(
+        inputs=[pytensor.In(v, borrow=True) for v in model.value_vars],
+        outputs=[pytensor.Out(v, borrow=True) for v in model.unobserved_value_vars],
+        on_unused_input="ignore",
+    )
+    untransformed = remove_value_transforms(model)
+    observed = list(untransformed.observed_RVs)
+    untransformed.compile_fn(
+        inputs=untransformed.value_vars, outs=untransformed.logp(vars=observed, sum=False), on_unused_input="ignore"
+    )
+    compile_forward_sampling_function(
+        outputs=list(model.observed_RVs),
+        vars_in_trace=[*model.free_RVs, *model.deterministics],
+        basic_rvs=model.basic_RVs,
+        givens_dict=None,
+        allow_input_downcast=True,
+        accept_inplace=True,
+    )
+
+
 def _raveled(model: pm.Model, point: dict) -> RaveledVars:
     return DictToArrayBijection.map({v.name: point[v.name] for v in model.continuous_value_vars})
 

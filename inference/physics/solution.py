@@ -405,6 +405,11 @@ def _compile_quietly(implicit: bool) -> None:
         sys.exit(1)
 
 
+def background_compile_running() -> bool:
+    """Whether the compiling process of ``compile_in_background`` is still at work."""
+    return _background is not None and _background.is_alive()
+
+
 def finish_background_compile() -> None:
     """Wait for the compiling process of ``compile_in_background``, if one runs (at once otherwise). Where it
     failed, the caller compiles the kernels itself, as without it."""

@@ -21,7 +21,7 @@ from ..errors import StudyError
 from ..inputs.config import load_study
 from ..inputs.schema import Sampling
 from ..inputs.study import Study
-from ..model.sampling import log_density_function, non_finite_start, sample_posterior, scratch_folder
+from ..model.sampling import compile_ahead, log_density_function, non_finite_start, sample_posterior, scratch_folder
 from ..outputs import plots, report
 from ..outputs.drawing import drawn_meanwhile
 from ..outputs.records import FitResult
@@ -35,6 +35,7 @@ from ..outputs.results import (
     sha256_json,
 )
 from ..physics.arrhenius import auto_reference_temperature
+from ..physics.solution import background_compile_running
 from ..posterior.diagnostics import assess
 from ..posterior.per_temperature import POINTS_FILE, TemperaturePoints
 from ..posterior.summaries import (
@@ -198,6 +199,8 @@ def _check_start(model, problem: Problem, temperature_ref: float) -> ValueGradFu
     """A log-density that is not finite where sampling starts is the study's fault: say which term. Returns the
     compiled log density (``model.sampling.log_density_function``) for the sampler."""
     log_density = log_density_function(model)
+    if background_compile_running():  # the first evaluation below waits for it: compile what comes later
+        compile_ahead(model)
     terms, measurements = non_finite_start(model, log_density)
     if not terms:
         return log_density
