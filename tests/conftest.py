@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import subprocess
+import sys
 import textwrap
 from pathlib import Path
 
@@ -28,6 +30,20 @@ temperature,k
 60,3.0e-3
 70,7.9e-3
 """
+
+
+def pytest_sessionstart(session: pytest.Session) -> None:
+    """Once per test run, before pytest-xdist starts its workers: compile the network solver's two entry points
+    into numba's on-disk cache, each in a process of its own on its own core (about half a minute on a clean
+    clone; nothing to do when the cache holds them). Otherwise every worker, and every fit's chain processes,
+    would compile what it first needs at the same time as the others."""
+    if hasattr(session.config, "workerinput"):  # a worker: the controller has done it
+        return
+    code = "from inference.physics.solution import compile_kernels; compile_kernels({})"
+    halves = ("implicit=False", "explicit=False")
+    processes = [subprocess.Popen([sys.executable, "-c", code.format(half)]) for half in halves]
+    for process in processes:
+        process.wait()  # a failure only means the tests compile what they need themselves
 
 
 @pytest.fixture

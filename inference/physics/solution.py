@@ -142,7 +142,7 @@ def network_kernel(network: Network, inputs: KineticInputs) -> Kernel:
 
 
 class Gather(NamedTuple):
-    """Where ``predict_measurements`` reads the predictions, and what it fills: measurement m is run
+    """Where the integrator's entry points read the predictions, and what it fills: measurement m is run
     ``run_index[m]`` at its time ``time_index[m]``, species ``species_index[m]``, times ``factor[m]``;
     ``columns[r, p]`` is the Jacobian column of run r's sensitivity parameter p; ``prediction`` (M,) and
     ``jacobian`` (M, inputs) are filled."""
@@ -246,29 +246,21 @@ class NetworkSolver:
         columns = np.zeros((n_runs, n_params), dtype=np.int64)
         return Gather(empty, empty, empty, columns, np.empty(0), np.empty(0), np.empty((0, 0)))
 
-    def integrate(
+    def _arguments(
         self,
         inputs: KineticInputs,
         params: Sensitivities,
         gather: Gather,
-        profile_c: np.ndarray | None = None,
-        profile_s: np.ndarray | None = None,
-        *,
-        compile_implicit: bool = False,
-    ) -> None:
-        """Integrate every run of ``inputs`` (solver form) with the sensitivities ``params``, filling ``gather``'s
-        prediction and Jacobian and, where given, the profiles (all times, N) and (all times, N, P): the explicit
-        entry point for every run, the implicit one for the runs it leaves (``integrator``); with
-        ``compile_implicit`` the implicit one is called (and so compiled) even when no run needs it. Raises
-        ``SolverFailure`` naming the failing run."""
-        finish_background_compile()
+        profile_c: np.ndarray | None,
+        profile_s: np.ndarray | None,
+    ) -> tuple:
+        """The arguments of both compiled entry points (``integrator``) for ``integrate``'s arguments."""
         initial = np.ascontiguousarray(inputs.initial, dtype=float)
-        n_species = initial.shape[1]
+        n_runs, n_species = initial.shape
         if profile_c is None:
             profile_c, profile_s = np.empty((0, n_species)), np.empty((0, n_species, params.kind.size))
         self.stats[:] = 0
-        n_runs = initial.shape[0]
-        arguments = (
+        return (
             initial,
             self.all_times,
             self.time_offsets,
@@ -283,11 +275,25 @@ class NetworkSolver:
             np.zeros(n_runs, dtype=np.int64),
             np.empty((n_runs, n_species)),
         )
+
+    def integrate(
+        self,
+        inputs: KineticInputs,
+        params: Sensitivities,
+        gather: Gather,
+        profile_c: np.ndarray | None = None,
+        profile_s: np.ndarray | None = None,
+    ) -> None:
+        """Integrate every run of ``inputs`` (solver form) with the sensitivities ``params``, filling ``gather``'s
+        prediction and Jacobian and, where given, the profiles (all times, N) and (all times, N, P): the explicit
+        entry point for every run, the implicit one for the runs it leaves (``integrator``). Raises
+        ``SolverFailure`` naming the failing run."""
+        finish_background_compile()
+        arguments = self._arguments(inputs, params, gather, profile_c, profile_s)
         try:
             failed = -1
-            if integrator.explicit_measurements(*arguments) > 0 or compile_implicit:
-                if not compile_implicit:
-                    _say_implicit_compile()
+            if integrator.explicit_measurements(*arguments) > 0:
+                _say_implicit_compile()
                 failed = integrator.implicit_measurements(*arguments)
         except ArithmeticError as error:  # numba raises Python's errors (x / 0) where extreme parameters lead
             run = int(self.stats[3])
@@ -339,10 +345,10 @@ class MeasurementSolver:
         return prediction, jacobian
 
 
-def compile_kernels(implicit: bool = True) -> None:
-    """Compile (or load from numba's on-disk cache) the integrator's explicit entry point and, with ``implicit``,
-    its implicit one (``integrator``), through both callers: profiles (``NetworkSolver.solve``) and predictions
-    with their Jacobian (``MeasurementSolver.solve``)."""
+def compile_kernels(implicit: bool = True, explicit: bool = True) -> None:
+    """Compile (or load from numba's on-disk cache) the integrator's entry points (``integrator``): the explicit one
+    through both callers, profiles (``NetworkSolver.solve``) and predictions with their Jacobian
+    (``MeasurementSolver.solve``), and, with ``implicit``, the implicit one (both callers pass it the same types)."""
     from .network import build_network, parse_equation
 
     network = build_network(("A", "B"), ("warm",), (parse_equation("A -> B"),))
@@ -350,13 +356,15 @@ def compile_kernels(implicit: bool = True) -> None:
     inputs = KineticInputs(
         np.zeros((1, 1)), np.zeros((1, 0)), np.zeros((1, 0)), network.forward_orders, np.ones((1, 2))
     )
-    solver.solve(inputs)
-    index = np.zeros(1, dtype=np.int64)
-    columns = np.zeros((1, solver.n_params), dtype=np.int64)
-    MeasurementSolver(solver, index, index, index, columns, max(solver.n_params, 1)).solve(inputs)
-    if implicit:  # both callers pass the same types: one call compiles it for both
-        n_params = solver.integrated.kind.size
-        solver.integrate(inputs, solver.integrated, solver._no_measurements(1, n_params), compile_implicit=True)
+    if explicit:
+        solver.solve(inputs)
+        index = np.zeros(1, dtype=np.int64)
+        columns = np.zeros((1, solver.n_params), dtype=np.int64)
+        MeasurementSolver(solver, index, index, index, columns, max(solver.n_params, 1)).solve(inputs)
+    if implicit:  # with no run left to it, the call only compiles it
+        params = solver.integrated
+        gather = solver._no_measurements(1, params.kind.size)
+        integrator.implicit_measurements(*solver._arguments(inputs, params, gather, None, None))
 
 
 _implicit_notice_given = False

@@ -2,10 +2,11 @@
 derivatives of that state, compiled with numba.
 
 The tank starts full of its feed and runs for ``STARTUP_RESIDENCE_TIMES`` residence times (the start-up
-transient, integrated by ``integrator.integrate_run`` without sensitivities), which puts it next to the steady
-state a real start-up reaches; Newton's method then solves g(c) = S^T r(c) + (c_feed - c)/tau = 0 to round-off.
-The derivatives follow from the implicit-function theorem: dg/dc s_p = -dg/dtheta_p, one LU for all parameters
-(d g / d c_feed_i = e_i / tau for an uncertain feed concentration). Where several steady states exist this is
+transient, integrated without sensitivities by ``integrator.explicit_measurements``, or by Radau IIA in
+``implicit_measurements`` where it is stiff), which puts it next to the steady state a real start-up reaches;
+Newton's method then solves g(c) = S^T r(c) + (c_feed - c)/tau = 0 to round-off. The derivatives follow from the
+implicit-function theorem: dg/dc s_p = -dg/dtheta_p, one LU for all parameters (d g / d c_feed_i = e_i / tau for an
+uncertain feed concentration). Where several steady states exist this is
 the one reached from the feed; ``reactors.cstr_steady_states`` searches for the others in predictions.
 """
 
