@@ -422,16 +422,24 @@ def seconds_per_gradient(model, points: list[np.ndarray]) -> float:
     """Wall time (s) of one compiled log-density-plus-gradient call: the mean over one call at each point, in the
     fastest of ``PASSES`` passes (after one warm-up call). Other work on a shared machine only ever adds time, so
     the fastest pass is the least disturbed (common practice, as Python's ``timeit`` advises)."""
+    function = gradient_function(model)
+    function(points[0])
+    return min(one_pass(function, points) for _ in range(PASSES))
+
+
+def gradient_function(model):
+    """The model's compiled log-density-plus-gradient, a function of the raveled free variables."""
     function = model.logp_dlogp_function(ravel_inputs=True)
     function.set_extra_values({})
-    function(points[0])
-    fastest = np.inf
-    for _ in range(PASSES):
-        started = time.perf_counter()
-        for point in points:
-            function(point)
-        fastest = min(fastest, time.perf_counter() - started)
-    return fastest / len(points)
+    return function
+
+
+def one_pass(function, points: list[np.ndarray]) -> float:
+    """Mean wall time (s) of one call of ``function`` at each of ``points``."""
+    started = time.perf_counter()
+    for point in points:
+        function(point)
+    return (time.perf_counter() - started) / len(points)
 
 
 def milliseconds_along(model, name: str, index: int, z_values: list[float], repeats: int = 10) -> list[float]:

@@ -38,7 +38,9 @@ of the compiled log-density-plus-gradient (``model.logp_dlogp_function``) at 50 
 five passes over them: ``plain_pymc.seconds_per_gradient``), in a separate
 process after the fit (for Arrhenia with the model the study builds,
 ``open_problem(load_study(path)).build_model(T_ref, None)``); in-run ms: the mean Op call in the chain processes,
-as sampling met it (two chains on two cores, and whatever else runs). Min ESS: bulk, over ln k_ref and Ea.
+as sampling met it (two chains on two cores, and whatever else runs). For ``process`` the two problems' costs are also
+measured side by side in one process, their passes alternating (the machine's speed drifts by tens of percent
+between minutes), and that ratio is the one set against the target. Min ESS: bulk, over ln k_ref and Ea.
 ESS/s: per second of total wall time. For ``stiff`` the cost of one log-density-plus-gradient of both models is
 also measured with the binding step's k_ref at 0.1, 1, 10 and 100 times its prior median (the rest at the priors'
 centre): how the cost grows as the posterior reaches into stiffer regions.
@@ -423,6 +425,33 @@ def arrhenia_measure_child(results: str, study_path: str) -> None:
     )
 
 
+def side_by_side_child(*folders_and_studies: str) -> None:
+    """The cost (ms) of one log-density-plus-gradient of each finished fit (results folder, study file, in pairs),
+    measured in one process with their passes alternating (``seconds_per_gradient`` with one pass at a time), so
+    that a machine whose speed drifts between minutes slows each alike; as a JSON list."""
+    import arviz as az
+    from plain_pymc import PASSES, gradient_function, one_pass, unconstrained_points
+
+    from inference import load_study
+    from inference.workflows.kinds import open_problem
+
+    prepared = []
+    for results, study_path in zip(folders_and_studies[::2], folders_and_studies[1::2], strict=True):
+        folder = Path(results)
+        kelvin = json.loads((folder / "manifest.json").read_text())["reference_temperature_K"]
+        model = open_problem(load_study(Path(study_path))).build_model(kelvin, None)
+        posterior = az.from_netcdf(str(folder / "posterior.nc")).posterior
+        points = unconstrained_points(model, posterior, 50)
+        function = gradient_function(model)
+        function(points[0])
+        prepared.append((function, points))
+    fastest = [np.inf] * len(prepared)
+    for _ in range(PASSES):
+        for i, (function, points) in enumerate(prepared):
+            fastest[i] = min(fastest[i], one_pass(function, points))
+    print(json.dumps([seconds * 1e3 for seconds in fastest]))
+
+
 #: The stiff probe: k_ref of the binding step at these multiples of its prior median (z = ln(multiple) / sd).
 PROBE_MULTIPLES = (0.1, 1.0, 10.0, 100.0)
 
@@ -511,9 +540,17 @@ def print_ratios(results: dict[str, dict[str, dict]], cores: int) -> None:
         a, b = twelve.get(way, {}), twenty_four.get(way, {})
         if a.get("finished") and b.get("finished"):
             ratio = b["gradient_ms"] / a["gradient_ms"]
+            measured = "each after its fit"
+            if "side_by_side_ms" in a and "side_by_side_ms" in b:
+                ratio = b["side_by_side_ms"] / a["side_by_side_ms"]
+                measured = (
+                    f"side by side, {a['side_by_side_ms']:.2f} and {b['side_by_side_ms']:.2f} ms; each after its fit "
+                    f"{b['gradient_ms'] / a['gradient_ms']:.2f}"
+                )
             target = f" (target <= 2.1: {_verdict(ratio, 2.1)})" if way == "Arrhenia" else ""
             print(
-                f"  process, {way}: cost per gradient 24 runs over 12 runs {ratio:.2f}{target}; sampling wall "
+                f"  process, {way}: cost per gradient 24 runs over 12 runs {ratio:.2f}{target} ({measured}); "
+                f"in the chains {b['in_op_ms'] / a['in_op_ms']:.2f}; sampling wall "
                 f"{b['sampling_s'] / a['sampling_s']:.2f}, total wall {b['total_s'] / a['total_s']:.2f}"
             )
     network_fit_row = network.get("Arrhenia")
@@ -596,6 +633,17 @@ def main() -> None:
             if name == "stiff":
                 probe, *_ = _run([sys.executable, __file__, "--stiff-probe", str(study)], LONG)
                 probes = _last_json(probe.stdout) if probe is not None and not probe.returncode else {}
+        twelve, twenty_four = results.get("process-12", {}), results.get("process-24", {})
+        if twelve.get("Arrhenia", {}).get("finished") and twenty_four.get("Arrhenia", {}).get("finished"):
+            pairs = [
+                str(item)
+                for name in ("process-12", "process-24")
+                for item in (work / f"results-{name}", work / name / "study.yaml")
+            ]
+            measured, *_ = _run([sys.executable, __file__, "--side-by-side", *pairs], LONG)
+            if measured is not None and not measured.returncode:
+                side_by_side = _last_json(measured.stdout)
+                twelve["Arrhenia"]["side_by_side_ms"], twenty_four["Arrhenia"]["side_by_side_ms"] = side_by_side
     print()
     print_table([(name, way, row) for name, ways in results.items() for way, row in ways.items()])
     print_ratios(results, cores)
@@ -613,6 +661,8 @@ if __name__ == "__main__":
         arrhenia_fit_child(sys.argv[2], sys.argv[3:])
     elif len(sys.argv) == 4 and sys.argv[1] == "--arrhenia-measure":
         arrhenia_measure_child(sys.argv[2], sys.argv[3])
+    elif len(sys.argv) > 2 and sys.argv[1] == "--side-by-side":
+        side_by_side_child(*sys.argv[2:])
     elif len(sys.argv) == 3 and sys.argv[1] == "--stiff-probe":
         stiff_probe_child(sys.argv[2])
     else:
