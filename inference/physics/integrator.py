@@ -37,23 +37,9 @@ SETTLED, TO_IMPLICIT, TO_STEADY_STATE = 0, 1, 2
 
 
 @numba.njit(cache=True, inline="always")
-def _gather(
-    r,
-    first,
-    out_c,
-    out_s,
-    run_index,
-    time_index,
-    species_index,
-    columns,
-    factor,
-    prediction,
-    jacobian,
-    profile_c,
-    profile_s,
-):
+def _gather(r, first, out_c, out_s, gather, profile_c, profile_s):
     """Run r's part of the predictions (M,), their Jacobian (M, inputs) and, where ``profile_c`` has rows, of the
-    whole profiles (rows from ``first``)."""
+    whole profiles (rows from ``first``); ``gather`` as in ``explicit_measurements``."""
     n = out_c.shape[1]
     n_params = out_s.shape[2]
     if profile_c.shape[0] > 0:
@@ -62,14 +48,14 @@ def _gather(
                 profile_c[first + k, i] = out_c[k, i]
                 for p in range(n_params):
                     profile_s[first + k, i, p] = out_s[k, i, p]
-    for m in range(run_index.shape[0]):
-        if run_index[m] != r:
+    for m in range(gather.run_index.shape[0]):
+        if gather.run_index[m] != r:
             continue
-        t = time_index[m]
-        i = species_index[m]
-        prediction[m] = factor[m] * out_c[t, i]
+        t = gather.time_index[m]
+        i = gather.species_index[m]
+        gather.prediction[m] = gather.factor[m] * out_c[t, i]
         for p in range(n_params):
-            jacobian[m, columns[r, p]] += factor[m] * out_s[t, i, p]
+            gather.jacobian[m, gather.columns[r, p]] += gather.factor[m] * out_s[t, i, p]
 
 
 @numba.njit(cache=True, inline="always")
@@ -87,13 +73,7 @@ def explicit_measurements(
     conditions,
     params,
     tolerances,
-    run_index,
-    time_index,
-    species_index,
-    columns,
-    factor,
-    prediction,
-    jacobian,
+    gather,
     profile_c,
     profile_s,
     stats,
@@ -105,16 +85,17 @@ def explicit_measurements(
     run's whole profile there. Marks in ``pending`` (runs,) what is left to ``implicit_measurements`` (a CSTR's
     start-up end in ``starts`` (runs, N)) and returns how many runs that is.
 
-    Run r's times are ``all_times[time_offsets[r]:time_offsets[r + 1]]``; measurement m reads run
-    ``run_index[m]`` at its time ``time_index[m]`` and species ``species_index[m]``; ``columns[r, p]`` is the
-    input column of run r's sensitivity parameter p; ``factor[m]`` multiplies the concentration (the volume
-    there, for a measured amount; else 1). ``stats[3]`` holds the run being integrated.
+    Run r's times are ``all_times[time_offsets[r]:time_offsets[r + 1]]``; ``gather`` (``solution.Gather``) says
+    where the predictions are read: measurement m reads run ``run_index[m]`` at its time ``time_index[m]`` and
+    species ``species_index[m]``; ``columns[r, p]`` is the input column of run r's sensitivity parameter p;
+    ``factor[m]`` multiplies the concentration (the volume there, for a measured amount; else 1); ``prediction``
+    and ``jacobian`` are filled. ``stats[3]`` holds the run being integrated.
     """
     n_runs, n = initial.shape
     # The arguments live until this call returns, so everything below may use views that hold no reference.
-    kernel, conditions, params = borrowed(kernel), borrowed(conditions), borrowed(params)
+    kernel, conditions, params, gather = borrowed(kernel), borrowed(conditions), borrowed(params), borrowed(gather)
     explicit = Tolerances(tolerances.rtol, tolerances.atol, min(EXPLICIT_BUDGET, tolerances.max_steps))
-    jacobian[:, :] = 0.0
+    gather.jacobian[:, :] = 0.0
     none = Sensitivities(params.kind[:0], params.reaction[:0], params.species[:0])
     left = 0
     for r in range(n_runs):
@@ -138,21 +119,7 @@ def explicit_measurements(
             pending[r] = TO_IMPLICIT
         else:
             pending[r] = SETTLED
-            _gather(
-                r,
-                first,
-                out_c,
-                out_s,
-                run_index,
-                time_index,
-                species_index,
-                columns,
-                factor,
-                prediction,
-                jacobian,
-                profile_c,
-                profile_s,
-            )
+            _gather(r, first, out_c, out_s, gather, profile_c, profile_s)
             continue
         left += 1
     return left
@@ -167,13 +134,7 @@ def implicit_measurements(
     conditions,
     params,
     tolerances,
-    run_index,
-    time_index,
-    species_index,
-    columns,
-    factor,
-    prediction,
-    jacobian,
+    gather,
     profile_c,
     profile_s,
     stats,
@@ -185,7 +146,7 @@ def implicit_measurements(
     first where the explicit pair could not do it). Returns the index of the first failing run, or -1."""
     n = initial.shape[1]
     n_params = params.kind.shape[0]
-    kernel, conditions, params = borrowed(kernel), borrowed(conditions), borrowed(params)
+    kernel, conditions, params, gather = borrowed(kernel), borrowed(conditions), borrowed(params), borrowed(gather)
     for r in range(initial.shape[0]):
         if pending[r] == SETTLED:
             continue
@@ -222,21 +183,7 @@ def implicit_measurements(
             status = radau_run(initial[r].copy(), times, net, cond, params, tolerances, out_c, out_s, stats)
         if status != DONE:
             return r
-        _gather(
-            r,
-            first,
-            out_c,
-            out_s,
-            run_index,
-            time_index,
-            species_index,
-            columns,
-            factor,
-            prediction,
-            jacobian,
-            profile_c,
-            profile_s,
-        )
+        _gather(r, first, out_c, out_s, gather, profile_c, profile_s)
     return -1
 
 

@@ -268,7 +268,7 @@ class NetworkSolver:
             self.conditions_for(n_runs),
             params,
             self.tolerances(initial),
-            *gather,
+            gather,
             profile_c,
             profile_s,
             self.stats,
