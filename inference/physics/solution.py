@@ -259,7 +259,6 @@ class NetworkSolver:
         n_runs, n_species = initial.shape
         if profile_c is None:
             profile_c, profile_s = np.empty((0, n_species)), np.empty((0, n_species, params.kind.size))
-        self.stats[:] = 0
         return (
             initial,
             self.all_times,
@@ -289,6 +288,7 @@ class NetworkSolver:
         entry point for every run, the implicit one for the runs it leaves (``integrator``). Raises
         ``SolverFailure`` naming the failing run."""
         finish_background_compile()
+        self.stats[:] = 0
         arguments = self._arguments(inputs, params, gather, profile_c, profile_s)
         try:
             failed = -1
@@ -373,9 +373,11 @@ _implicit_notice_given = False
 def _say_implicit_compile() -> None:
     """Once per process, on stderr: that a first stiff run (or CSTR) compiles the implicit solver now."""
     global _implicit_notice_given
-    if _implicit_notice_given or integrator.implicit_compiled_on_disk() is not False:
+    if _implicit_notice_given:
         return
     _implicit_notice_given = True
+    if integrator.implicit_compiled_on_disk() is not False:
+        return
     print(
         "first stiff run (or CSTR) in this installation: compiling the implicit solver (numba), about half a "
         "minute; later fits reuse it",
