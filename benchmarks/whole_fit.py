@@ -427,8 +427,9 @@ def arrhenia_measure_child(results: str, study_path: str) -> None:
 
 def side_by_side_child(*folders_and_studies: str) -> None:
     """The cost (ms) of one log-density-plus-gradient of each finished fit (results folder, study file, in pairs),
-    measured in one process with their passes alternating (``seconds_per_gradient`` with one pass at a time), so
-    that a machine whose speed drifts between minutes slows each alike; as a JSON list."""
+    measured in one process with their passes alternating (the fastest of ``PASSES`` passes of each, as in
+    ``seconds_per_gradient``), so that a machine whose speed drifts between minutes slows each alike; as a JSON
+    list."""
     import arviz as az
     from plain_pymc import PASSES, gradient_function, one_pass, unconstrained_points
 
