@@ -398,19 +398,27 @@ def arrhenia_fit_child(calls: str, argv: list[str]) -> None:
     console(argv)
 
 
-def arrhenia_measure_child(results: str, study_path: str) -> None:
-    """Min bulk ESS, n_steps and the cost of one log-density-plus-gradient of a finished fit, as JSON."""
+def _fitted_model(folder: Path, study_path: str):
+    """The model a finished fit in ``folder`` sampled (rebuilt from its study at the fit's T_ref), its posterior
+    (InferenceData) and 50 of its draws as raveled free-variable vectors."""
     import arviz as az
-    from plain_pymc import seconds_per_gradient, unconstrained_points
+    from plain_pymc import unconstrained_points
 
     from inference import load_study
     from inference.workflows.kinds import open_problem
 
-    folder = Path(results)
-    manifest = json.loads((folder / "manifest.json").read_text())
+    kelvin = json.loads((folder / "manifest.json").read_text())["reference_temperature_K"]
+    model = open_problem(load_study(Path(study_path))).build_model(kelvin, None)
     idata = az.from_netcdf(str(folder / "posterior.nc"))
-    model = open_problem(load_study(Path(study_path))).build_model(manifest["reference_temperature_K"], None)
-    points = unconstrained_points(model, idata.posterior, 50)
+    return model, idata, unconstrained_points(model, idata.posterior, 50)
+
+
+def arrhenia_measure_child(results: str, study_path: str) -> None:
+    """Min bulk ESS, n_steps and the cost of one log-density-plus-gradient of a finished fit, as JSON."""
+    from plain_pymc import seconds_per_gradient
+
+    folder = Path(results)
+    model, idata, points = _fitted_model(folder, study_path)
     diagnostics = json.loads((folder / "diagnostics.json").read_text())
     print(
         json.dumps(
@@ -430,19 +438,11 @@ def side_by_side_child(*folders_and_studies: str) -> None:
     measured in one process with their passes alternating (the fastest of ``PASSES`` passes of each, as in
     ``seconds_per_gradient``), so that a machine whose speed drifts between minutes slows each alike; as a JSON
     list."""
-    import arviz as az
-    from plain_pymc import PASSES, gradient_function, one_pass, unconstrained_points
-
-    from inference import load_study
-    from inference.workflows.kinds import open_problem
+    from plain_pymc import PASSES, gradient_function, one_pass
 
     prepared = []
     for results, study_path in zip(folders_and_studies[::2], folders_and_studies[1::2], strict=True):
-        folder = Path(results)
-        kelvin = json.loads((folder / "manifest.json").read_text())["reference_temperature_K"]
-        model = open_problem(load_study(Path(study_path))).build_model(kelvin, None)
-        posterior = az.from_netcdf(str(folder / "posterior.nc")).posterior
-        points = unconstrained_points(model, posterior, 50)
+        model, _, points = _fitted_model(Path(results), study_path)
         function = gradient_function(model)
         function(points[0])
         prepared.append((function, points))
