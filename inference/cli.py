@@ -16,6 +16,7 @@ from typing import NoReturn
 
 from ._version import __version__
 from .errors import ExitCode, StudyError
+from .processes import cache_folder, own_pytensor_cache
 
 
 class _Terminated(BaseException):
@@ -453,9 +454,11 @@ def console(argv: list[str] | None = None) -> NoReturn:
     Imports and model compilation leave about 800 000 long-lived objects; with Python's default thresholds the
     collector walks all of them about ten times while they are made (about 1.8 s of a 15 s fit) and several times
     more at interpreter exit (about 2.6 s). Here full collections wait for 1000 young ones instead of 10 (young
-    garbage is still collected), and everything alive at the end is frozen, which exit then skips. A library
-    user's process keeps its own settings: only this entry point changes them.
+    garbage is still collected), and everything alive at the end is frozen, which exit then skips. PyTensor's
+    compiled C modules go to Arrhenia's own cache folder (``processes.own_pytensor_cache``) unless the user chose
+    one. A library user's process keeps its own settings: only this entry point changes them.
     """
+    own_pytensor_cache(cache_folder() / "pytensor")
     young, middle, _ = gc.get_threshold()
     gc.set_threshold(young, middle, FULL_COLLECTION_AFTER)
     code = main(argv)

@@ -9,7 +9,12 @@ from pathlib import Path
 
 import pytest
 
-from inference.cli import main
+from inference.processes import cache_folder, own_pytensor_cache
+
+# The tests compile hundreds of models no fit compiles again: they keep them out of the cache users' fits read.
+own_pytensor_cache(cache_folder() / "pytensor-tests")
+
+from inference.cli import main  # noqa: E402
 
 BASE_STUDY = """\
 study: t-study

@@ -8,6 +8,7 @@ import contextlib
 import io
 import json
 import logging
+import os
 import re
 import warnings
 from pathlib import Path
@@ -65,6 +66,54 @@ def test_the_arrhenia_command_is_main_in_a_process_that_defers_full_collections(
         gc.unfreeze()
         gc.set_threshold(*saved)
     assert json.loads(capsys.readouterr().out)["title"]  # the schema, printed by main
+
+
+def test_the_arrhenia_command_keeps_pytensors_c_modules_apart_unless_the_user_chose_a_folder(tmp_path, monkeypatch):
+    # A process that has not imported PyTensor: with no folder chosen, PyTensor takes the one given (and so do
+    # the processes it starts, through the environment); a folder named in PYTENSOR_FLAGS or in a PyTensor
+    # config file, or a PyTensor already imported, is left alone.
+    import subprocess
+    import sys
+
+    from inference import cli
+
+    rc = tmp_path / "pytensorrc"
+    script = f"""
+import json, os
+from pathlib import Path
+from inference.processes import own_pytensor_cache as own
+os.environ["PYTENSOR_FLAGS"] = "floatX=float64,compiledir={tmp_path}/mine"
+chosen_by_flags = own(Path("{tmp_path}/a"))
+os.environ["PYTENSOR_FLAGS"] = "floatX=float64"
+os.environ["PYTENSORRC"] = "{rc}"
+Path("{rc}").write_text("[global]\\nbase_compiledir = {tmp_path}/rc\\n")
+chosen_by_file = own(Path("{tmp_path}/a"))
+Path("{rc}").write_text("[global]\\nfloatX = float64\\n")
+taken = own(Path("{tmp_path}/ours"))
+import pytensor
+print(json.dumps([chosen_by_flags, chosen_by_file, taken, os.environ["PYTENSOR_FLAGS"],
+                  str(pytensor.config.base_compiledir), own(Path("{tmp_path}/later"))]))
+"""
+    env = {k: v for k, v in os.environ.items() if not k.startswith("PYTENSOR")}
+    done = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, env=env, check=True)
+    by_flags, by_file, taken, flags, base, after_import = json.loads(done.stdout.strip().splitlines()[-1])
+    assert (by_flags, by_file, taken, after_import) == (False, False, True, False)
+    assert flags == f"floatX=float64,base_compiledir={tmp_path}/ours"
+    assert base == f"{tmp_path}/ours"
+
+    import gc
+
+    chosen = []
+    monkeypatch.setattr(cli, "own_pytensor_cache", chosen.append)
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "xdg"))
+    saved = gc.get_threshold()
+    try:
+        with pytest.raises(SystemExit), contextlib.redirect_stdout(io.StringIO()):
+            cli.console(["--version"])
+    finally:
+        gc.unfreeze()
+        gc.set_threshold(*saved)
+    assert chosen == [tmp_path / "xdg" / "arrhenia" / "pytensor"]
 
 
 def _schema_default(root: type, key: str) -> object:
