@@ -387,7 +387,10 @@ def run_plain(study: Path, work: Path, tag: str, draws: list[str], timeout: floa
 def arrhenia_fit_child(calls: str, argv: list[str]) -> None:
     """``arrhenia fit`` (the console entry point, which exits) with every Op call logged (start and end, per
     process)."""
-    from inference.cli import console
+    from inference.cli import command_pytensor_cache, console
+    from inference.processes import own_pytensor_cache
+
+    own_pytensor_cache(command_pytensor_cache())  # as ``console`` does, before the Op's import brings in PyTensor
     from inference.model.ops import NetworkPrediction
 
     log = CallLog(Path(calls))

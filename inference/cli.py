@@ -448,6 +448,11 @@ def _reader_gone() -> bool:
         return False
 
 
+def command_pytensor_cache() -> Path:
+    """The folder of the ``arrhenia`` command's PyTensor C modules (unless the user chose one)."""
+    return cache_folder() / "pytensor"
+
+
 def console(argv: list[str] | None = None) -> NoReturn:
     """The ``arrhenia`` command: ``main`` in a process of its own, which it ends.
 
@@ -458,7 +463,7 @@ def console(argv: list[str] | None = None) -> NoReturn:
     compiled C modules go to Arrhenia's own cache folder (``processes.own_pytensor_cache``) unless the user chose
     one. A library user's process keeps its own settings: only this entry point changes them.
     """
-    own_pytensor_cache(cache_folder() / "pytensor")
+    own_pytensor_cache(command_pytensor_cache())
     young, middle, _ = gc.get_threshold()
     gc.set_threshold(young, middle, FULL_COLLECTION_AFTER)
     code = main(argv)
