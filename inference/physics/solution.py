@@ -142,7 +142,7 @@ def network_kernel(network: Network, inputs: KineticInputs) -> Kernel:
 
 
 class Gather(NamedTuple):
-    """Where the integrator's entry points read the predictions, and what it fills: measurement m is run
+    """Where the integrator's entry points read the predictions, and what they fill: measurement m is run
     ``run_index[m]`` at its time ``time_index[m]``, species ``species_index[m]``, times ``factor[m]``;
     ``columns[r, p]`` is the Jacobian column of run r's sensitivity parameter p; ``prediction`` (M,) and
     ``jacobian`` (M, inputs) are filled."""
