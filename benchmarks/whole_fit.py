@@ -15,15 +15,17 @@ Problems (invented; data simulated here with scipy's Radau at rtol 1e-10 and log
   dH, no k_ref or Ea); Arrhenia only (the plain way has no such step). Its whole fit is set against the network
   problem's (2 steps, 4 species, 180 values: a non-stiff network of its size). ``stiff-dense`` and
   ``stiff-held-dense``: the same two with ``sampling: {mass_matrix: dense}`` (what a fit that needs many gradient
-  evaluations per draw advises); Arrhenia only.
+  evaluations per draw advises); Arrhenia only. ``stiff-saturating-dense``: the held problem's twin of its size on
+  the same data, the saturating law S -> P that holding the binding gives where the catalyst is scarce
+  (``saturating_text``), dense mass matrix; Arrhenia only, set against ``stiff-held-dense``.
 All: T_ref stated, priors off the true values (``PROCESS_STEPS``, ``STIFF_STEPS``), proportional noise with
 sigma ~ HalfNormal(0.2), 2 chains x 500 tuning + 500 draws, seed 1 (``--quick``: 2 x 100 + 100).
 
 Ways, each a fresh interpreter started by this script:
-1. Arrhenia: ``arrhenia fit`` on the study folder (YAML + CSV in a temporary folder); for ``network`` and the two
-   held ones twice, the second (warm PyTensor and numba caches) reported, these fits before all others: the
-   warm-up fits, then the reported ones one after the other. The launcher adds one thing to the
-   command: it logs the start and end of every call of the Op (``NetworkPrediction.perform``: one
+1. Arrhenia: ``arrhenia fit`` on the study folder (YAML + CSV in a temporary folder); for ``network``, the two
+   held ones and the saturating twin twice, the second (warm PyTensor and numba caches) reported, these fits
+   before all others: the warm-up fits, then the reported ones one after the other. The launcher adds one thing
+   to the command: it logs the start and end of every call of the Op (``NetworkPrediction.perform``: one
    log-density-plus-gradient) per process, which costs microseconds per call. The manifest's ``timings_s``
    are read back and printed.
 2. plain: ``benchmarks/plain_pymc.py`` (the same model written directly in PyMC: odeint on the stacked
