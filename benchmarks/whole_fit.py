@@ -275,11 +275,10 @@ def saturating_text(mass_matrix: str) -> str:
     binding at equilibrium gives the rate r = k K_c [Cat]0 [S] / (1 + K_c [S]) of the turnover (k) (the pre-
     equilibrium of Atkins and de Paula, "Atkins' Physical Chemistry", 8th ed., sec. 22.7, with the catalyst balance
     [Cat]0 = [Cat] + [SCat]), a saturating law in S whose k_eff = k K_c [Cat]0 takes the catalyst (0.02 mol/L in
-    every run): S -> P with k_ref, Ea, K_ref
-    and dH, four kinetic parameters as the held study has, on its 5 runs and 150 values (true k_eff 0.5 1/min at
-    T_ref, Ea_eff 55 kJ/mol, K_c 50 L/mol, dH -25 kJ/mol; it counts the 2 % of S bound to the catalyst as S).
-    Priors: those of the held study's two steps, multiplied (k) and added (Ea) as independent lognormals and
-    normals."""
+    every run): S -> P with k_ref, Ea, K_ref and dH, four kinetic parameters as the held study has, on its 5 runs
+    and 150 values (true k_eff 0.5 1/min at T_ref, Ea_eff 55 kJ/mol, K_c 50 L/mol, dH -25 kJ/mol; it counts the
+    2 % of S bound to the catalyst as S). Priors: those of the held study's two steps, multiplied (k) and added
+    (Ea) as independent lognormals and normals."""
     binding, turnover = STIFF_STEPS
     catalyst = STIFF.runs[0][1]["Cat"]
     factor = float(np.exp(np.hypot(np.log(turnover.k_prior[1]), np.log(binding.K_prior[1]))))
@@ -310,7 +309,7 @@ def write_problem(name: str, root: Path) -> Path:
     if name == "network":
         folder.mkdir(parents=True, exist_ok=True)
         return network_fit.write_study(folder)
-    if name.startswith("stiff"):  # -held: the same data, the binding step declared fast_equilibrium
+    if name.startswith("stiff"):  # -held: the binding step declared fast_equilibrium; -saturating: the twin
         mass_matrix = "dense" if name.endswith("-dense") else "diagonal"
         path = write_design(STIFF, folder, ("binding",) if "-held" in name else (), mass_matrix)
         if "-saturating" in name:  # the same data, S and P alone
@@ -547,8 +546,9 @@ def _cell(row: dict, key: str, form: str) -> str:
 
 
 def print_table(rows: list[tuple[str, str, dict]]) -> None:
+    width = max(len(name) for name in PROBLEMS) + 2
     header = (
-        f"{'problem':<17}{'way':<10}{'setup s':>9}{'sampling s':>11}{'after s':>9}{'total s':>9}{'grad evals':>11}"
+        f"{'problem':<{width}}{'way':<10}{'setup s':>9}{'sampling s':>11}{'after s':>9}{'total s':>9}{'grad evals':>11}"
         f"{'ms/grad':>9}{'in-run ms':>10}{'min ESS':>9}{'ESS/s':>8}  note"
     )
     print(header)
@@ -563,7 +563,7 @@ def print_table(rows: list[tuple[str, str, dict]]) -> None:
         else:
             note = f"{row.get('divergences')} divergent"
         print(
-            f"{problem:<17}{way:<10}{_cell(row, 'setup_s', '9.1f')}{_cell(row, 'sampling_s', '11.1f')}"
+            f"{problem:<{width}}{way:<10}{_cell(row, 'setup_s', '9.1f')}{_cell(row, 'sampling_s', '11.1f')}"
             f"{_cell(row, 'after_s', '9.1f')}{_cell(row, 'total_s', '9.1f')}{_cell(row, 'evaluations', '11d')}"
             f"{_cell(row, 'gradient_ms', '9.2f')}{_cell(row, 'in_op_ms', '10.2f')}{_cell(row, 'ess', '9.0f')}"
             f"{format(ess_rate, '8.2f') if ess_rate is not None else '       -'}  {note}"
