@@ -248,14 +248,15 @@ def study_text(design: Design, held: tuple[str, ...] = (), mass_matrix: str = "d
     return "\n".join(lines) + "\n"
 
 
-def write_design(design: Design, folder: Path, held: tuple[str, ...] = (), mass_matrix: str = "diagonal") -> Path:
-    """The design as an Arrhenia study folder (``held``, ``mass_matrix``: as in ``study_text``); returns the study
-    file."""
+def write_design(design: Design, folder: Path, study: str, species: tuple[str, ...] | None = None) -> Path:
+    """The design's data as an Arrhenia study folder with the study file ``study``; runs.csv has the starting
+    concentrations of ``species`` (default: all of the design's). Returns the study file."""
     folder.mkdir(parents=True, exist_ok=True)
     data = simulate(design)
-    runs = ["run,temperature," + ",".join(design.species)]
+    species = design.species if species is None else species
+    runs = ["run,temperature," + ",".join(species)]
     runs += [
-        f"r{i + 1},{t:g}," + ",".join(f"{start.get(s, 0.0):g}" for s in design.species)
+        f"r{i + 1},{t:g}," + ",".join(f"{start.get(s, 0.0):g}" for s in species)
         for i, (t, start) in enumerate(design.runs)
     ]
     measurements = ["run,time," + ",".join(design.observed)]
@@ -266,7 +267,7 @@ def write_design(design: Design, folder: Path, held: tuple[str, ...] = (), mass_
     (folder / "runs.csv").write_text("\n".join(runs) + "\n")
     (folder / "measurements.csv").write_text("\n".join(measurements) + "\n")
     path = folder / "study.yaml"
-    path.write_text(study_text(design, held, mass_matrix))
+    path.write_text(study)
     return path
 
 
@@ -311,15 +312,11 @@ def write_problem(name: str, root: Path) -> Path:
         return network_fit.write_study(folder)
     if name.startswith("stiff"):  # -held: the binding step declared fast_equilibrium; -saturating: the twin
         mass_matrix = "dense" if name.endswith("-dense") else "diagonal"
-        path = write_design(STIFF, folder, ("binding",) if "-held" in name else (), mass_matrix)
         if "-saturating" in name:  # the same data, S and P alone
-            path.write_text(saturating_text(mass_matrix))
-            runs = (folder / "runs.csv").read_text().splitlines()
-            columns = runs[0].split(",")
-            keep = [columns.index(c) for c in ("run", "temperature", "S", "P")]
-            (folder / "runs.csv").write_text("\n".join(",".join(r.split(",")[i] for i in keep) for r in runs) + "\n")
-        return path
-    return write_design(_process(int(name.split("-")[1])), folder)
+            return write_design(STIFF, folder, saturating_text(mass_matrix), ("S", "P"))
+        return write_design(STIFF, folder, study_text(STIFF, ("binding",) if "-held" in name else (), mass_matrix))
+    design = _process(int(name.split("-")[1]))
+    return write_design(design, folder, study_text(design))
 
 
 PROBLEMS = (

@@ -5,11 +5,14 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import gc
 import io
 import json
 import logging
 import os
 import re
+import subprocess
+import sys
 import warnings
 from pathlib import Path
 
@@ -18,7 +21,7 @@ import pandas as pd
 import pytest
 from conftest import BASE_STUDY, BASE_TABLE
 
-from inference import __version__
+from inference import __version__, cli
 from inference.cli import _parser, main
 from inference.inputs.config import load_study
 from inference.inputs.data import read_observations
@@ -48,10 +51,7 @@ def test_no_command_prints_the_usage_once(run_cli):
 def test_the_arrhenia_command_is_main_in_a_process_that_defers_full_collections(capsys):
     # pyproject's console script is cli.console: main's exit code, full garbage collections deferred (young
     # ones still run), and what is alive frozen before exit; restored here, since this process goes on.
-    import gc
     import tomllib
-
-    from inference import cli
 
     scripts = tomllib.loads((REPO / "pyproject.toml").read_text())["project"]["scripts"]
     assert scripts == {"arrhenia": "inference.cli:console"}
@@ -72,11 +72,6 @@ def test_the_arrhenia_command_keeps_pytensors_c_modules_apart_unless_the_user_ch
     # A process that has not imported PyTensor: with no folder chosen, PyTensor takes the one given (and so do
     # the processes it starts, through the environment); a folder named in PYTENSOR_FLAGS or in a PyTensor
     # config file, or a PyTensor already imported, is left alone.
-    import subprocess
-    import sys
-
-    from inference import cli
-
     rc = tmp_path / "pytensorrc"
     script = f"""
 import json, os
@@ -100,8 +95,6 @@ print(json.dumps([chosen_by_flags, chosen_by_file, taken, os.environ["PYTENSOR_F
     assert (by_flags, by_file, taken, after_import) == (False, False, True, False)
     assert flags == f"floatX=float64,base_compiledir={tmp_path}/ours"
     assert base == f"{tmp_path}/ours"
-
-    import gc
 
     chosen = []
     monkeypatch.setattr(cli, "own_pytensor_cache", chosen.append)
